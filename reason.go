@@ -1,0 +1,66 @@
+package midsag
+
+import (
+	"errors"
+	"fmt"
+)
+
+// Reason is a machine-readable code for why an input was refused. The same
+// strings appear in CLI errors, HTTP bodies, gRPC status details and batch
+// tables.
+type Reason string
+
+// Reason codes. The vocabulary is part of the public contract (DESIGN.md).
+const (
+	ReasonNoInput              Reason = "no_input"
+	ReasonNotDICOM             Reason = "not_dicom"
+	ReasonTruncated            Reason = "truncated"
+	ReasonTooLarge             Reason = "too_large"
+	ReasonUnsupportedSyntax    Reason = "unsupported_transfer_syntax"
+	ReasonBadPixelData         Reason = "bad_pixel_data"
+	ReasonMultipleStudies      Reason = "multiple_studies"
+	ReasonNoSagittalT2         Reason = "no_sagittal_t2_series"
+	ReasonTooFewSlices         Reason = "too_few_slices"
+	ReasonInconsistentGeometry Reason = "inconsistent_geometry"
+	ReasonModelInputMismatch   Reason = "model_input_mismatch"
+	ReasonBadModel             Reason = "bad_model"
+	ReasonOverloaded           Reason = "overloaded"
+)
+
+// Error is an input refusal: a reason code and a sentence for a person.
+type Error struct {
+	Reason Reason
+	Msg    string
+	Err    error
+}
+
+// Error returns "reason: message[: cause]".
+func (e *Error) Error() string {
+	s := string(e.Reason) + ": " + e.Msg
+	if e.Err != nil {
+		s += ": " + e.Err.Error()
+	}
+	return s
+}
+
+// Unwrap returns the underlying cause, if any.
+func (e *Error) Unwrap() error { return e.Err }
+
+// Rejectf returns an *Error with the given reason and formatted message.
+func Rejectf(reason Reason, format string, args ...any) *Error {
+	return &Error{Reason: reason, Msg: fmt.Sprintf(format, args...)}
+}
+
+// Reject returns an *Error with the given reason and message that wraps err.
+func Reject(reason Reason, msg string, err error) *Error {
+	return &Error{Reason: reason, Msg: msg, Err: err}
+}
+
+// ReasonOf returns the reason code carried anywhere in err's chain.
+func ReasonOf(err error) (Reason, bool) {
+	var e *Error
+	if errors.As(err, &e) {
+		return e.Reason, true
+	}
+	return "", false
+}

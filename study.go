@@ -1,0 +1,78 @@
+package midsag
+
+// Instance is one DICOM composite instance (one image) as read from its
+// header, with its pixel data kept undecoded until its series is picked.
+type Instance struct {
+	// Source names where the instance came from (a path, a zip entry, an
+	// upload part); never shown with patient data.
+	Source string
+
+	SOPClassUID       string
+	SOPInstanceUID    string
+	StudyInstanceUID  string
+	SeriesInstanceUID string
+	TransferSyntaxUID string
+	Modality          string
+	SeriesNumber      int
+	SeriesDescription string
+	InstanceNumber    int
+	// ImageType is Image Type (0008,0008), e.g. ORIGINAL\PRIMARY\M.
+	ImageType []string
+
+	// ImageOrientation is Image Orientation (Patient) (0020,0037): row then
+	// column direction cosines. HasGeometry is false when it or Image
+	// Position (Patient) is missing.
+	ImageOrientation [6]float64
+	// ImagePosition is Image Position (Patient) (0020,0032) in mm.
+	ImagePosition [3]float64
+	HasGeometry   bool
+	// PixelSpacing is (row spacing, column spacing) in mm, PS3.3 10.7.1.3.
+	PixelSpacing         [2]float64
+	SliceThickness       float64
+	SpacingBetweenSlices float64
+
+	// MR acquisition attributes (PS3.3 C.8.3.1); zero when absent.
+	RepetitionTime   float64
+	EchoTime         float64
+	InversionTime    float64
+	ScanningSequence []string
+	SequenceVariant  []string
+	MagneticField    float64
+
+	Rows, Columns             int
+	NumberOfFrames            int
+	SamplesPerPixel           int
+	BitsAllocated, BitsStored int
+	HighBit                   int
+	PixelRepresentation       int
+	Photometric               string
+	RescaleSlope              float64
+	RescaleIntercept          float64
+	PlanarConfiguration       int
+
+	// PixelData holds native (uncompressed) pixel data bytes in the byte
+	// order of the transfer syntax; Fragments holds encapsulated frames.
+	PixelData []byte
+	Fragments [][]byte
+}
+
+// Series is the instances of one Series Instance UID.
+type Series struct {
+	SeriesInstanceUID string
+	SeriesNumber      int
+	Description       string
+	Instances         []*Instance
+}
+
+// Study is the series of one Study Instance UID.
+type Study struct {
+	StudyInstanceUID string
+	Series           []*Series
+}
+
+// Image is one decoded frame in modality units (rescale applied,
+// MONOCHROME1 inverted), row-major.
+type Image struct {
+	Rows, Columns int
+	Pix           []float32
+}
