@@ -77,6 +77,13 @@ func DecodeRLE(frame []byte, rows, cols, samplesPerPixel, bitsAllocated int) ([]
 	}
 
 	stride := samplesPerPixel * bps
+	// PS3.5 G.3.1: a two-byte replicate run yields at most 128 bytes, so the
+	// segments cannot expand beyond 64 times their length; checking this
+	// first keeps a small hostile frame from forcing a large allocation.
+	if pixels*stride > 64*(len(frame)-rleHeaderSize) {
+		return nil, fmt.Errorf("codec: rle: %d bytes cannot hold %d decoded bytes: %w",
+			len(frame), pixels*stride, ErrTruncated)
+	}
 	out := make([]byte, pixels*stride)
 	for seg := range nseg {
 		// PS3.5 G.2: segments run most significant byte first within each
