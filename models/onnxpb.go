@@ -1,0 +1,385 @@
+package models
+
+import (
+	"fmt"
+
+	"google.golang.org/protobuf/encoding/protowire"
+
+	"github.com/midsag/midsag"
+)
+
+// Field numbers of the ONNX protobuf messages this package reads, from
+// onnx/onnx.proto (github.com/onnx/onnx, IR version 8 and later; the numbers
+// are stable across IR versions).
+const (
+	modelIRVersion       = 1  // ModelProto.ir_version (int64)
+	modelProducerName    = 2  // ModelProto.producer_name
+	modelProducerVersion = 3  // ModelProto.producer_version
+	modelGraph           = 7  // ModelProto.graph (GraphProto)
+	modelOpsetImport     = 8  // ModelProto.opset_import (OperatorSetIdProto)
+	modelMetadataProps   = 14 // ModelProto.metadata_props (StringStringEntryProto)
+
+	opsetDomain  = 1 // OperatorSetIdProto.domain
+	opsetVersion = 2 // OperatorSetIdProto.version
+
+	entryKey   = 1 // StringStringEntryProto.key
+	entryValue = 2 // StringStringEntryProto.value
+
+	graphNode        = 1  // GraphProto.node (NodeProto)
+	graphInitializer = 5  // GraphProto.initializer (TensorProto)
+	graphInput       = 11 // GraphProto.input (ValueInfoProto)
+	graphOutput      = 12 // GraphProto.output (ValueInfoProto)
+
+	nodeOpType = 4 // NodeProto.op_type
+	nodeDomain = 7 // NodeProto.domain
+
+	tensorName = 8 // TensorProto.name
+
+	valueInfoName = 1 // ValueInfoProto.name
+	valueInfoType = 2 // ValueInfoProto.type (TypeProto)
+
+	typeTensor     = 1 // TypeProto.tensor_type (TypeProto.Tensor)
+	tensorElemType = 1 // TypeProto.Tensor.elem_type (TensorProto.DataType)
+	tensorShape    = 2 // TypeProto.Tensor.shape (TensorShapeProto)
+	shapeDim       = 1 // TensorShapeProto.dim (Dimension)
+	dimValue       = 1 // TensorShapeProto.Dimension.dim_value (int64)
+	dimParam       = 2 // TensorShapeProto.Dimension.dim_param (string)
+)
+
+// elemTypeNames are the TensorProto.DataType enum values of onnx/onnx.proto.
+var elemTypeNames = map[int64]string{
+	1: "float32", 2: "uint8", 3: "int8", 4: "uint16", 5: "int16", 6: "int32",
+	7: "int64", 8: "string", 9: "bool", 10: "float16", 11: "float64",
+	12: "uint32", 13: "uint64", 14: "complex64", 15: "complex128", 16: "bfloat16",
+}
+
+// field is one top-level protobuf field: its number, wire type, value bytes
+// (for varints, the decoded value in num) and its full encoding.
+type field struct {
+	num  protowire.Number
+	typ  protowire.Type
+	val  []byte
+	u    uint64
+	full []byte
+}
+
+// fields splits a protobuf message into its fields, refusing malformed input.
+func fields(b []byte) ([]field, error) {
+	var out []field
+	for len(b) > 0 {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 {
+			return nil, fmt.Errorf("bad protobuf tag: %w", protowire.ParseError(n))
+		}
+		m := protowire.ConsumeFieldValue(num, typ, b[n:])
+		if m < 0 {
+			return nil, fmt.Errorf("bad protobuf field %d: %w", num, protowire.ParseError(m))
+		}
+		f := field{num: num, typ: typ, full: b[:n+m]}
+		v := b[n : n+m]
+		switch typ {
+		case protowire.BytesType:
+			f.val, _ = protowire.ConsumeBytes(v)
+		case protowire.VarintType:
+			f.u, _ = protowire.ConsumeVarint(v)
+		}
+		out = append(out, f)
+		b = b[n+m:]
+	}
+	return out, nil
+}
+
+// pbValueInfo is a graph input or output read from the protobuf.
+type pbValueInfo struct {
+	name     string
+	elemType string
+	dims     []string
+}
+
+// pbModel is what this package reads from a ModelProto without ONNX Runtime.
+type pbModel struct {
+	irVersion       int64
+	producerName    string
+	producerVersion string
+	opsets          []Opset
+	opCounts        map[string]int
+	nodes           int
+	inputs, outputs []pbValueInfo
+	metadata        []MetadataEntry
+}
+
+// parseModel walks a serialized ModelProto. Errors carry ReasonBadModel.
+func parseModel(data []byte) (*pbModel, error) {
+	bad := func(what string, err error) error {
+		return midsag.Reject(midsag.ReasonBadModel, "not an ONNX model: "+what, err)
+	}
+	top, err := fields(data)
+	if err != nil {
+		return nil, bad("model", err)
+	}
+	m := &pbModel{opCounts: map[string]int{}}
+	var graph []byte
+	sawGraph := false
+	for _, f := range top {
+		switch {
+		case f.num == modelIRVersion && f.typ == protowire.VarintType:
+			m.irVersion = int64(f.u)
+		case f.num == modelProducerName && f.typ == protowire.BytesType:
+			m.producerName = string(f.val)
+		case f.num == modelProducerVersion && f.typ == protowire.BytesType:
+			m.producerVersion = string(f.val)
+		case f.num == modelGraph && f.typ == protowire.BytesType:
+			graph, sawGraph = f.val, true
+		case f.num == modelOpsetImport && f.typ == protowire.BytesType:
+			fs, err := fields(f.val)
+			if err != nil {
+				return nil, bad("opset_import", err)
+			}
+			var o Opset
+			for _, g := range fs {
+				switch {
+				case g.num == opsetDomain && g.typ == protowire.BytesType:
+					o.Domain = string(g.val)
+				case g.num == opsetVersion && g.typ == protowire.VarintType:
+					o.Version = int64(g.u)
+				}
+			}
+			m.opsets = append(m.opsets, o)
+		case f.num == modelMetadataProps && f.typ == protowire.BytesType:
+			k, v, err := parseEntry(f.val)
+			if err != nil {
+				return nil, bad("metadata_props", err)
+			}
+			m.metadata = append(m.metadata, MetadataEntry{Key: k, Value: v})
+		}
+	}
+	if !sawGraph || m.irVersion == 0 {
+		return nil, midsag.Rejectf(midsag.ReasonBadModel, "not an ONNX model: no ir_version or graph")
+	}
+	gfs, err := fields(graph)
+	if err != nil {
+		return nil, bad("graph", err)
+	}
+	initializers := map[string]bool{}
+	for _, f := range gfs {
+		if f.num == graphInitializer && f.typ == protowire.BytesType {
+			tfs, err := fields(f.val)
+			if err != nil {
+				return nil, bad("initializer", err)
+			}
+			for _, t := range tfs {
+				if t.num == tensorName && t.typ == protowire.BytesType {
+					initializers[string(t.val)] = true
+				}
+			}
+		}
+	}
+	for _, f := range gfs {
+		if f.typ != protowire.BytesType {
+			continue
+		}
+		switch f.num {
+		case graphNode:
+			nfs, err := fields(f.val)
+			if err != nil {
+				return nil, bad("node", err)
+			}
+			var op, domain string
+			for _, g := range nfs {
+				switch {
+				case g.num == nodeOpType && g.typ == protowire.BytesType:
+					op = string(g.val)
+				case g.num == nodeDomain && g.typ == protowire.BytesType:
+					domain = string(g.val)
+				}
+			}
+			// Custom-domain ops are counted under their qualified name so
+			// they cannot be confused with standard ops of the same name.
+			if domain != "" && domain != "ai.onnx" {
+				op = domain + "." + op
+			}
+			m.opCounts[op]++
+			m.nodes++
+		case graphInput, graphOutput:
+			vi, err := parseValueInfo(f.val)
+			if err != nil {
+				return nil, bad("graph input/output", err)
+			}
+			// Before IR version 4 initializers were also listed as inputs;
+			// they are weights, not inputs a caller feeds.
+			if f.num == graphInput && initializers[vi.name] {
+				continue
+			}
+			if f.num == graphInput {
+				m.inputs = append(m.inputs, vi)
+			} else {
+				m.outputs = append(m.outputs, vi)
+			}
+		}
+	}
+	return m, nil
+}
+
+func parseEntry(b []byte) (key, value string, err error) {
+	fs, err := fields(b)
+	if err != nil {
+		return "", "", err
+	}
+	for _, f := range fs {
+		switch {
+		case f.num == entryKey && f.typ == protowire.BytesType:
+			key = string(f.val)
+		case f.num == entryValue && f.typ == protowire.BytesType:
+			value = string(f.val)
+		}
+	}
+	return key, value, nil
+}
+
+func parseValueInfo(b []byte) (pbValueInfo, error) {
+	var vi pbValueInfo
+	fs, err := fields(b)
+	if err != nil {
+		return vi, err
+	}
+	for _, f := range fs {
+		if f.typ != protowire.BytesType {
+			continue
+		}
+		switch f.num {
+		case valueInfoName:
+			vi.name = string(f.val)
+		case valueInfoType:
+			if err := parseTensorType(f.val, &vi); err != nil {
+				return vi, err
+			}
+		}
+	}
+	return vi, nil
+}
+
+func parseTensorType(b []byte, vi *pbValueInfo) error {
+	tfs, err := fields(b)
+	if err != nil {
+		return err
+	}
+	for _, t := range tfs {
+		if t.num != typeTensor || t.typ != protowire.BytesType {
+			continue
+		}
+		vi.elemType = "non-tensor"
+		fs, err := fields(t.val)
+		if err != nil {
+			return err
+		}
+		for _, f := range fs {
+			switch {
+			case f.num == tensorElemType && f.typ == protowire.VarintType:
+				vi.elemType = elemTypeNames[int64(f.u)]
+				if vi.elemType == "" {
+					vi.elemType = fmt.Sprintf("type%d", f.u)
+				}
+			case f.num == tensorShape && f.typ == protowire.BytesType:
+				dims, err := parseShape(f.val)
+				if err != nil {
+					return err
+				}
+				vi.dims = dims
+			}
+		}
+	}
+	return nil
+}
+
+// parseShape returns each dimension as its value, its symbolic name, or "?"
+// when the dimension is unknown.
+func parseShape(b []byte) ([]string, error) {
+	dims := []string{}
+	fs, err := fields(b)
+	if err != nil {
+		return nil, err
+	}
+	for _, f := range fs {
+		if f.num != shapeDim || f.typ != protowire.BytesType {
+			continue
+		}
+		ds, err := fields(f.val)
+		if err != nil {
+			return nil, err
+		}
+		d := "?"
+		for _, g := range ds {
+			switch {
+			case g.num == dimValue && g.typ == protowire.VarintType:
+				d = fmt.Sprint(int64(g.u))
+			case g.num == dimParam && g.typ == protowire.BytesType:
+				d = string(g.val)
+			}
+		}
+		dims = append(dims, d)
+	}
+	return dims, nil
+}
+
+// EmbedManifest returns a copy of the ONNX model with manifest stored in its
+// metadata_props under ManifestKey; any earlier entry with that key is
+// dropped. The manifest is validated first so that a model never carries
+// one this package would refuse. Protobuf field order is not significant
+// (protobuf language guide, "Encoding"), so the entry is appended at the end.
+func EmbedManifest(onnx []byte, manifest []byte) ([]byte, error) {
+	if _, err := ParseManifest(manifest); err != nil {
+		return nil, fmt.Errorf("embed manifest: %w", err)
+	}
+	if _, err := parseModel(onnx); err != nil {
+		return nil, fmt.Errorf("embed manifest: %w", err)
+	}
+	top, err := fields(onnx)
+	if err != nil {
+		return nil, fmt.Errorf("embed manifest: %w", err)
+	}
+	out := make([]byte, 0, len(onnx)+len(manifest)+32)
+	for _, f := range top {
+		if f.num == modelMetadataProps && f.typ == protowire.BytesType {
+			if k, _, err := parseEntry(f.val); err == nil && k == ManifestKey {
+				continue
+			}
+		}
+		out = append(out, f.full...)
+	}
+	var entry []byte
+	entry = protowire.AppendTag(entry, entryKey, protowire.BytesType)
+	entry = protowire.AppendString(entry, ManifestKey)
+	entry = protowire.AppendTag(entry, entryValue, protowire.BytesType)
+	entry = protowire.AppendBytes(entry, manifest)
+	out = protowire.AppendTag(out, modelMetadataProps, protowire.BytesType)
+	out = protowire.AppendBytes(out, entry)
+	return out, nil
+}
+
+// ReadManifest returns the manifest embedded in an ONNX model's metadata.
+// A model without one, or with one that does not validate, is refused with
+// midsag.ReasonBadModel.
+func ReadManifest(onnx []byte) (*Manifest, error) {
+	pm, err := parseModel(onnx)
+	if err != nil {
+		return nil, err
+	}
+	raw, ok := pm.manifestBytes()
+	if !ok {
+		return nil, midsag.Rejectf(midsag.ReasonBadModel, "model has no %q metadata entry and no sidecar manifest", ManifestKey)
+	}
+	return ParseManifest(raw)
+}
+
+// manifestBytes returns the last ManifestKey entry, as ONNX Runtime's
+// metadata map keeps the last of duplicate keys (from memory).
+func (m *pbModel) manifestBytes() ([]byte, bool) {
+	var raw []byte
+	found := false
+	for _, e := range m.metadata {
+		if e.Key == ManifestKey {
+			raw, found = []byte(e.Value), true
+		}
+	}
+	return raw, found
+}
