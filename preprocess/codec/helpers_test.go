@@ -156,6 +156,11 @@ func writeVariant(tb testing.TB, im *image, dir, name, ts string, pixels []byte,
 		info = dicom.PixelDataInfo{IntentionallyUnprocessed: true, UnprocessedValueData: pixels}
 	} else {
 		vl = tag.VLUndefinedLength
+		// PS3.5 A.4: fragments have even length; a trailing zero after EOI
+		// is the usual padding (common practice).
+		if len(pixels)%2 != 0 {
+			pixels = append(bytes.Clone(pixels), 0)
+		}
 		info = dicom.PixelDataInfo{IsEncapsulated: true, Frames: []*frame.Frame{{
 			Encapsulated: true, EncapsulatedData: frame.EncapsulatedFrame{Data: pixels},
 		}}}
