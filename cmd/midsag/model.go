@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"sort"
@@ -70,9 +71,29 @@ func runModelInspect(_ context.Context, args []string, stdout, stderr io.Writer)
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
-		return enc.Encode(ins)
+		err = enc.Encode(ins)
+	} else {
+		err = printInspection(stdout, ins)
 	}
-	return printInspection(stdout, ins)
+	if err != nil {
+		return fmt.Errorf("model inspect: write: %w", err)
+	}
+	return inspectVerdict(ins, stderr)
+}
+
+// inspectVerdict makes the exit code usable as a gate before deploying a
+// model: a missing or invalid manifest, or a model ONNX Runtime refuses,
+// exits with the rejection code after the full report was printed.
+func inspectVerdict(ins *models.Inspection, stderr io.Writer) error {
+	problem := ins.ManifestError
+	if r := ins.Runtime; problem == "" && r != nil && r.Library != "" && !r.OK {
+		problem = r.Error
+	}
+	if problem == "" {
+		return nil
+	}
+	fmt.Fprintf(stderr, "midsag: rejected: %s\n", problem)
+	return &reportedError{err: errors.New(problem), code: exitRejected}
 }
 
 // printInspection writes the human-readable form of an Inspection.

@@ -64,6 +64,15 @@ func TestModelInspectUsage(t *testing.T) {
 			t.Errorf("%q: exit %d, want %d", args, code, exitUsage)
 		}
 	}
+	// fixed224.onnx takes [1,1,224,224] while its manifest asks for 3x32x32
+	// (make_models.py), so ONNX Runtime's check refuses it.
+	if _, err := models.FindLibrary(""); err == nil {
+		var out, errb bytes.Buffer
+		code := run(context.Background(), []string{"model", "inspect", "../../models/testdata/fixed224.onnx"}, &out, &errb)
+		if code != exitRejected || !strings.Contains(errb.String(), string(midsag.ReasonModelInputMismatch)) {
+			t.Errorf("mismatched model: exit %d, stderr %q; want %d and %s", code, errb.String(), exitRejected, midsag.ReasonModelInputMismatch)
+		}
+	}
 	var out, errb bytes.Buffer
 	if code := run(context.Background(), []string{"model", "inspect", "missing.onnx"}, &out, &errb); code != exitRuntime {
 		t.Errorf("missing file: exit %d, want %d", code, exitRuntime)
