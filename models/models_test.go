@@ -553,3 +553,26 @@ func FuzzParseModel(f *testing.F) {
 		}
 	})
 }
+
+// BenchmarkPredict measures one [1,3,32,32] run of the tiny test model,
+// mostly the fixed cost of a session call through onnxruntime_go.
+func BenchmarkPredict(b *testing.B) {
+	lib, err := FindLibrary("")
+	if err == nil {
+		err = Init(lib)
+	}
+	if err != nil {
+		b.Skip(err)
+	}
+	m, err := Load("testdata/tiny_logit.onnx", Options{IntraOpThreads: 1})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer m.Close()
+	in := refInput([]int64{1, 3, 32, 32})
+	for b.Loop() {
+		if _, err := m.Predict(context.Background(), in); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
