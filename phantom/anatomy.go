@@ -66,19 +66,19 @@ type neck struct {
 func newNeck(r *rand.Rand, compressLevel int) *neck {
 	u := func(a, b float64) float64 { return a + (b-a)*r.Float64() }
 	n := &neck{
-		period: u(17.5, 20), // C3-C7 body ~14-15 mm plus disc ~4-6 mm, from memory
-		discH:  u(4.5, 6),
-		canalA: u(6.5, 7.5), // canal AP ~13-15 mm, from memory
-		canalB: u(10.5, 12), // canal LR ~22 mm, from memory
-		cordA:  u(3.2, 3.8), // cord AP ~7 mm, from memory
-		cordB:  u(5.0, 6.0), // cord LR ~11 mm, from memory
-		cordY:  u(-0.6, 0.2),
-		bodyAP: u(15, 17.5), // body AP ~16 mm, from memory
-		bodyW:  u(8, 10),
-		spinW:  u(2.5, 3.5),
-		neckY:  u(2, 10),
-		neckA:  u(58, 70),
-		neckB:  u(50, 62),
+		period:  u(17.5, 20), // C3-C7 body ~14-15 mm plus disc ~4-6 mm, from memory
+		discH:   u(4.5, 6),
+		canalA:  u(6.5, 7.5), // canal AP ~13-15 mm, from memory
+		canalB:  u(10.5, 12), // canal LR ~22 mm, from memory
+		cordA:   u(3.2, 3.8), // cord AP ~7 mm, from memory
+		cordB:   u(5.0, 6.0), // cord LR ~11 mm, from memory
+		cordY:   u(-0.6, 0.2),
+		bodyAP:  u(15, 17.5), // body AP ~16 mm, from memory
+		bodyW:   u(8, 10),
+		spinW:   u(2.5, 3.5),
+		neckY:   u(2, 10),
+		neckA:   u(58, 70),
+		neckB:   u(50, 62),
 		fatPost: u(6, 14),
 		fatAnt:  u(3, 6),
 		airA:    u(6, 8),
@@ -87,7 +87,7 @@ func newNeck(r *rand.Rand, compressLevel int) *neck {
 		bulgeW:  u(6.5, 9), // protrusion LR extent about ±8 mm
 		osteo:   r.IntN(2) == 0,
 	}
-	n.lord = u(4, 9) / (70 * 70) // 4-9 mm at ±70 mm, from memory
+	n.lord = u(3, 7) / (70 * 70) // 3-7 mm at ±70 mm, from memory
 	n.airY = -n.canalA - 1 - n.bodyAP - u(3, 6) - n.airA
 	n.vertY = -n.canalA - u(2, 4)
 	for v := range n.spinLen {
@@ -229,7 +229,7 @@ func (n *neck) at(x, y, z float64) tissue {
 	}
 	// Posterior muscles with thin fat planes between them.
 	if ys > n.canalA && ax > 4 {
-		if f := math.Mod(ys+0.5*ax, 13); f < 1.2 {
+		if f := ys + 0.5*ax; f-13*math.Floor(f/13) < 1.2 {
 			return tFat
 		}
 	}

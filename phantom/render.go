@@ -72,24 +72,23 @@ func render(n *neck, p pose, f frame, lk look, r *rand.Rand) []uint16 {
 	for s, o := range subsamples {
 		starts[s] = l0.add(lc.scale(o[0])).add(lr.scale(o[1])).add(ln.scale(o[2]))
 	}
+	tab := lk.table
 	for i := 0; i < f.rows; i++ {
-		for j := 0; j < f.cols; j++ {
-			var sum float32
-			var y float64
-			for s := range starts {
-				q := starts[s].add(lc.scale(float64(i))).add(lr.scale(float64(j)))
-				sum += lk.table[n.at(q[0], q[1], q[2])]
-				y = q[1]
-			}
-			bias := math.Max(0.5, 1+lk.biasPer*y)
+		down := lc.scale(float64(i))
+		p0, p1, p2 := starts[0].add(down), starts[1].add(down), starts[2].add(down)
+		line := out[i*f.cols : (i+1)*f.cols]
+		for j := range line {
+			sum := tab[n.at(p0[0], p0[1], p0[2])] + tab[n.at(p1[0], p1[1], p1[2])] + tab[n.at(p2[0], p2[1], p2[2])]
+			bias := math.Max(0.5, 1+lk.biasPer*p1[1])
 			v := float64(sum) / 3 * lk.gain * bias
 			a := v + lk.sigma*r.NormFloat64()
 			b := lk.sigma * r.NormFloat64()
-			m := math.Round(math.Sqrt(a*a + b*b))
+			m := math.Sqrt(a*a+b*b) + 0.5
 			if m > lk.maxVal {
 				m = lk.maxVal
 			}
-			out[i*f.cols+j] = uint16(m)
+			line[j] = uint16(m)
+			p0, p1, p2 = p0.add(lr), p1.add(lr), p2.add(lr)
 		}
 	}
 	return out

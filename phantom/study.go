@@ -287,11 +287,13 @@ func GenerateStudy(opts Options, index int) ([]File, StudyTruth, error) {
 	}
 	yaw, roll := deg(uniform(r, -6, 6)), deg(uniform(r, -6, 6))
 	s := &study{
-		opts:      opts,
-		index:     index,
-		r:         r,
-		neck:      newNeck(rngFor("neck", opts.Seed, index), level),
-		ts:        pick(r, syntaxes),
+		opts:  opts,
+		index: index,
+		r:     r,
+		neck:  newNeck(rngFor("neck", opts.Seed, index), level),
+		// A separate stream, so restricting the syntaxes changes nothing
+		// else about the study.
+		ts:        pick(rngFor("syntax", opts.Seed, index), syntaxes),
 		bitsStore: pick(r, []int{12, 16}),
 		date:      time.Date(2019, 1, 1, 7, 0, 0, 0, time.UTC).Add(time.Duration(r.IntN(6*365*24*3600)) * time.Second),
 		studyUID:  uidFrom("study", opts.Seed, index),

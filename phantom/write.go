@@ -40,6 +40,9 @@ func (s *study) write(plan []*series, center int) ([]File, string, error) {
 				centerUID = uid
 			}
 			pix := render(s.neck, s.pose, f, lk, pixRNG)
+			if pixelHook != nil {
+				pixelHook(uid, pix)
+			}
 			ds := append(dataset(nil), common...)
 			ds.text(0x00080018, "UI", uid)
 			ds.is(0x00200013, sr.instance[k])
@@ -77,6 +80,10 @@ func (s *study) write(plan []*series, center int) ([]File, string, error) {
 	}
 	return files, centerUID, nil
 }
+
+// pixelHook, when set by a test, sees the stored values of every image
+// before encoding, so decoded pixels can be compared with what was meant.
+var pixelHook func(sopInstanceUID string, pix []uint16)
 
 // timeStep is the gap between series starts.
 func timeStep(r *rand.Rand) time.Duration {
