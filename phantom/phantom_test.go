@@ -130,7 +130,8 @@ for p in sys.argv[1:]:
 var hookMu sync.Mutex
 
 // Checked against pydicom: every native and RLE syntax decodes to exactly
-// the stored values the renderer produced.
+// the stored values the renderer produced; JPEG lossless after dcmtk's
+// dcmdjpeg.
 func TestPydicomPixelsEqualWritten(t *testing.T) {
 	py := needPydicom(t)
 	hookMu.Lock()
@@ -154,6 +155,20 @@ func TestPydicomPixelsEqualWritten(t *testing.T) {
 		}
 		ps := writeStudyFiles(t, dir, files)
 		paths = append(paths, ps[0], ps[len(ps)-1])
+	}
+	// pydicom has no JPEG lossless decoder of its own; dcmtk's dcmdjpeg
+	// decodes the SV1 codestream (ITU-T T.81 process 14) to native first.
+	dcmdjpeg := needTool(t, "dcmdjpeg")
+	files, _, err := GenerateStudy(Options{Seed: 5, Syntaxes: []string{JPEGLosslessSV1}, NoDecoys: true}, 9)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, p := range writeStudyFiles(t, dir, files)[:2] {
+		plain := p + ".native"
+		if out, err := exec.Command(dcmdjpeg, p, plain).CombinedOutput(); err != nil {
+			t.Fatalf("dcmdjpeg %s: %v\n%s", p, err, out)
+		}
+		paths = append(paths, plain)
 	}
 	out, err := exec.Command(py, append([]string{"-c", pydicomDigest}, paths...)...).CombinedOutput()
 	if err != nil {
