@@ -11,14 +11,25 @@ import (
 	"strings"
 )
 
-// Transfer syntax UIDs (PS3.5 Section 10 and Annex A; PS3.6 Annex A).
+// Transfer syntax UIDs the phantom writes (PS3.5 Section 10 and Annex A;
+// PS3.6 Annex A).
 const (
-	ImplicitVRLittleEndian  = "1.2.840.10008.1.2"
-	ExplicitVRLittleEndian  = "1.2.840.10008.1.2.1"
-	DeflatedExplicitVRLE    = "1.2.840.10008.1.2.1.99"
-	ExplicitVRBigEndian     = "1.2.840.10008.1.2.2"
-	RLELossless             = "1.2.840.10008.1.2.5"
-	JPEGLosslessSV1         = "1.2.840.10008.1.2.4.70"
+	// ImplicitVRLittleEndian is the default DICOM transfer syntax (PS3.5 A.1).
+	ImplicitVRLittleEndian = "1.2.840.10008.1.2"
+	// ExplicitVRLittleEndian is Explicit VR Little Endian (PS3.5 A.2).
+	ExplicitVRLittleEndian = "1.2.840.10008.1.2.1"
+	// DeflatedExplicitVRLE is Deflated Explicit VR Little Endian (PS3.5 A.5).
+	DeflatedExplicitVRLE = "1.2.840.10008.1.2.1.99"
+	// ExplicitVRBigEndian is the retired Explicit VR Big Endian (PS3.5 A.3).
+	ExplicitVRBigEndian = "1.2.840.10008.1.2.2"
+	// RLELossless is RLE Lossless (PS3.5 A.4.2, Annex G).
+	RLELossless = "1.2.840.10008.1.2.5"
+	// JPEGLosslessSV1 is JPEG Lossless, first-order prediction, selection
+	// value 1 (PS3.5 A.4.1).
+	JPEGLosslessSV1 = "1.2.840.10008.1.2.4.70"
+)
+
+const (
 	mrImageStorage          = "1.2.840.10008.5.1.4.1.1.4" // PS3.4 B.5
 	implementationVersion   = "MIDSAG_PHANTOM1"
 	implementationClassSeed = "midsag phantom implementation class"

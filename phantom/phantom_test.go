@@ -438,3 +438,13 @@ func BenchmarkGenerateStudyNoDecoys(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkGenerateStudy measures a full study with the four decoy series.
+func BenchmarkGenerateStudy(b *testing.B) {
+	opts := Options{Seed: 1}
+	for i := 0; b.Loop(); i++ {
+		if _, _, err := GenerateStudy(opts, i%50); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
