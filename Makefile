@@ -1,0 +1,39 @@
+# midsag build and test entry points. `make demo` and `make test` are the
+# two commands the README opens with; .ci/run calls `make test`.
+
+GO       ?= go
+BIN      := bin/midsag
+ORT_LIB  := third_party/onnxruntime/linux-$(shell uname -m | sed -e 's/x86_64/x64/' -e 's/aarch64/arm64/')/libonnxruntime.so.1
+
+.PHONY: all build ort demo test test-long bench vet fmt clean
+
+all: build
+
+# ort fetches ONNX Runtime 1.24.1 from the npm registry once (sha256-checked).
+ort: $(ORT_LIB)
+
+$(ORT_LIB): scripts/get-onnxruntime.sh
+	bash scripts/get-onnxruntime.sh
+
+build: ort
+	$(GO) build -o $(BIN) ./cmd/midsag
+
+demo: build
+	./$(BIN) demo --out demo-out
+
+# test runs the default suite (well under 15 minutes on 2 cores). Tests
+# that compare against DCMTK, dicom3tools or pydicom skip when those are
+# missing unless MIDSAG_REQUIRE_TOOLS=1 (set by .ci/run).
+test: ort
+	$(GO) vet ./...
+	$(GO) test -count=1 -timeout 20m ./...
+
+# test-long adds the soak and scale runs kept out of the default suite.
+test-long: ort
+	MIDSAG_LONG=1 $(GO) test -count=1 -timeout 60m ./...
+
+bench: ort
+	$(GO) test -run '^$$' -bench . -benchmem ./preprocess/... ./models/...
+
+clean:
+	rm -rf bin demo-out

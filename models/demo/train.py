@@ -1,0 +1,130 @@
+#!/usr/bin/python3
+"""Train the midsag demo model on phantom stacks and export it to ONNX.
+
+Demonstration only: the data are synthetic phantoms of the fictional
+Northfield Spine Imaging Lab, made by `midsag phantom` and preprocessed by
+midsag's own code (models/demo/mkstacks). Runs offline with Debian's
+python3-torch on the CPU; not part of CI. See README.md for the commands.
+"""
+import argparse
+import hashlib
+import json
+import os
+
+import numpy as np
+import onnx
+import torch
+import torch.nn as nn
+
+
+def load(folder):
+    n, c, h, w = [int(v) for v in open(os.path.join(folder, "shape.txt")).read().split()]
+    x = np.fromfile(os.path.join(folder, "x.f32"), dtype="<f4").reshape(n, c, h, w)
+    y = np.fromfile(os.path.join(folder, "y.u8"), dtype=np.uint8).astype(np.float32)
+    return torch.from_numpy(x.copy()), torch.from_numpy(y)
+
+
+class Net(nn.Module):
+    """Four conv blocks, global average pooling and one logit."""
+
+    def __init__(self, channels=3):
+        super().__init__()
+        layers = []
+        width = [channels, 16, 32, 48, 64]
+        for a, b in zip(width, width[1:]):
+            layers += [nn.Conv2d(a, b, 3, padding=1), nn.BatchNorm2d(b), nn.ReLU(), nn.MaxPool2d(2)]
+        self.features = nn.Sequential(*layers)
+        self.head = nn.Linear(64, 1)
+
+    def forward(self, x):
+        f = self.features(x).mean(dim=(2, 3))
+        return self.head(f)
+
+
+def fit_temperature(logits, y):
+    """Temperature scaling (Guo et al. 2017): one T minimising the NLL."""
+    t = torch.ones(1, requires_grad=True)
+    opt = torch.optim.LBFGS([t], lr=0.1, max_iter=200)
+    bce = nn.BCEWithLogitsLoss()
+
+    def closure():
+        opt.zero_grad()
+        loss = bce(logits / t.clamp(min=0.05), y)
+        loss.backward()
+        return loss
+
+    opt.step(closure)
+    return float(t.detach().clamp(min=0.05))
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--train", required=True)
+    ap.add_argument("--test", required=True)
+    ap.add_argument("--out", default="models/demo/midsag-demo.onnx")
+    ap.add_argument("--manifest", default="models/demo/manifest.json")
+    ap.add_argument("--epochs", type=int, default=12)
+    args = ap.parse_args()
+    torch.manual_seed(5)
+    torch.set_num_threads(2)
+    x, y = load(args.train)
+    xt, yt = load(args.test)
+    nval = len(x) // 5
+    xv, yv, xtr, ytr = x[:nval], y[:nval], x[nval:], y[nval:]
+    net = Net(x.shape[1])
+    opt = torch.optim.Adam(net.parameters(), lr=2e-3, weight_decay=1e-4)
+    bce = nn.BCEWithLogitsLoss()
+    for epoch in range(args.epochs):
+        net.train()
+        perm = torch.randperm(len(xtr))
+        total = 0.0
+        for i in range(0, len(perm), 32):
+            idx = perm[i:i + 32]
+            xb = xtr[idx]
+            if torch.rand(1).item() < 0.5:
+                xb = xb.flip(1)  # left-right mirror: channel order reversed
+            opt.zero_grad()
+            loss = bce(net(xb).squeeze(1), ytr[idx])
+            loss.backward()
+            opt.step()
+            total += loss.item() * len(idx)
+        net.eval()
+        with torch.no_grad():
+            acc = ((net(xv).squeeze(1) > 0).float() == yv).float().mean().item()
+        print(f"epoch {epoch + 1}: train loss {total / len(xtr):.4f}, validation accuracy {acc:.3f}", flush=True)
+    net.eval()
+    with torch.no_grad():
+        temp = fit_temperature(net(xv).squeeze(1), yv)
+        lt = net(xt).squeeze(1)
+    acc = ((lt > 0).float() == yt).float().mean().item()
+    print(f"temperature {temp:.3f}; held-out accuracy {acc:.3f} on {len(xt)} studies")
+
+    man = json.load(open(args.manifest))
+    man["calibration"] = {"method": "temperature", "temperature": round(temp, 4)}
+    tmp = args.out + ".tmp"
+    torch.onnx.export(net, xt[:1], tmp, input_names=[man["input"]["name"]],
+                      output_names=[man["output"]["name"]],
+                      dynamic_axes={"input": {0: "batch"}, "logit": {0: "batch"}},
+                      opset_version=17, dynamo=False)
+    model = onnx.load(tmp)
+    entry = model.metadata_props.add()
+    entry.key = "midsag.manifest"
+    entry.value = json.dumps(man, indent=2)
+    onnx.save(model, tmp)
+    os.replace(tmp, args.out)
+    # The reference output that models/demo's test checks ONNX Runtime against.
+    gen = torch.Generator().manual_seed(1234)
+    probe = torch.rand((1,) + tuple(x.shape[1:]), generator=gen)
+    with torch.no_grad():
+        ref = net(torch.cat([xt[:1], probe])).squeeze(1).tolist()
+    np.concatenate([xt[:1].numpy(), probe.numpy()]).astype("<f4").tofile(
+        os.path.join(os.path.dirname(args.out), "reference-input.f32"))
+    digest = hashlib.sha256(open(args.out, "rb").read()).hexdigest()
+    json.dump({"shape": [2] + list(x.shape[1:]), "torch_logits": ref, "torch_version": torch.__version__,
+               "heldout_accuracy": acc, "heldout_studies": len(xt), "temperature": temp, "sha256": digest},
+              open(os.path.join(os.path.dirname(args.out), "reference.json"), "w"), indent=2)
+    print("wrote", args.out, digest)
+
+
+if __name__ == "__main__":
+    main()
