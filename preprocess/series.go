@@ -2,6 +2,7 @@ package preprocess
 
 import (
 	"fmt"
+	"math"
 	"regexp"
 	"sort"
 	"strings"
@@ -134,18 +135,29 @@ func PickSeries(st *midsag.Study, minSlices int) (*midsag.Series, []midsag.Serie
 func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 	c := &candidate{series: se, eligible: true}
 	images := 0
+	// The series is judged by its most common orientation, so one stray
+	// slice does not hide a sagittal series; SortSlices refuses the mix.
+	votes := map[[3]int]int{}
 	var first *midsag.Instance
+	best := 0
 	for _, in := range se.Instances {
-		if in.Rows > 0 && in.Columns > 0 {
-			images++
-			if first == nil {
-				first = in
-			}
+		if in.Rows <= 0 || in.Columns <= 0 {
+			continue
+		}
+		images++
+		n := Normal(in)
+		key := [3]int{int(math.Round(n[0] * 10)), int(math.Round(n[1] * 10)), int(math.Round(n[2] * 10))}
+		votes[key]++
+		if votes[key] > best {
+			best, first = votes[key], in
 		}
 	}
 	if first == nil {
 		c.exclude("no image pixels")
 		return c
+	}
+	if best < images {
+		c.reasons = append(c.reasons, fmt.Sprintf("%d of %d slices have another orientation", images-best, images))
 	}
 	if first.Modality != "" && first.Modality != "MR" {
 		c.exclude("modality %s, not MR", first.Modality)

@@ -1,0 +1,169 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/preprocess"
+)
+
+func init() {
+	register("score", "score one study (files, folders or a zip) and print the result", runScore)
+}
+
+func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("score", "PATH...", "Reads one study from DICOM files, folders or a zip archive, picks the T2 sagittal\n"+
+		"series and its midline slices, runs the model on the CPU and prints the result.", stderr)
+	var mf modelFlags
+	mf.register(fs)
+	asJSON := fs.Bool("json", false, "print the result (or the refusal) as JSON")
+	out := fs.String("out", "", "also write result.json into this `folder`")
+	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() == 0 {
+		fs.Usage()
+		return usagef("score needs at least one PATH")
+	}
+	res, err := scoreStudy(ctx, &mf, *lenient, fs.Args())
+	if err != nil {
+		return reportRejection(err, *asJSON, stderr)
+	}
+	if *out != "" {
+		if err := writeJSONFile(filepath.Join(*out, "result.json"), res); err != nil {
+			return err
+		}
+	}
+	if *asJSON {
+		return printJSON(stdout, res)
+	}
+	printSummary(stdout, res)
+	return nil
+}
+
+// scoreStudy runs the one Pipeline on the given paths.
+func scoreStudy(ctx context.Context, mf *modelFlags, lenient bool, paths []string) (*midsag.Result, error) {
+	sources, closeSources, err := collectSources(paths)
+	if err != nil {
+		return nil, err
+	}
+	defer closeSources()
+	model, err := mf.load()
+	if err != nil {
+		return nil, err
+	}
+	defer model.Close()
+	p := &midsag.Pipeline{Pre: preprocess.New(preprocess.Options{Lenient: lenient}), Model: model}
+	return p.Run(ctx, sources)
+}
+
+// refusal is the JSON form of an input refusal on stderr.
+type refusal struct {
+	Error struct {
+		Reason  midsag.Reason `json:"reason"`
+		Message string        `json:"message"`
+	} `json:"error"`
+	Notice string `json:"notice"`
+}
+
+// reportRejection prints an input refusal as JSON when asked, and returns
+// err so the exit code follows it.
+func reportRejection(err error, asJSON bool, stderr io.Writer) error {
+	r, ok := midsag.ReasonOf(err)
+	if !ok || !asJSON {
+		return err
+	}
+	var ref refusal
+	ref.Error.Reason = r
+	ref.Error.Message = err.Error()
+	ref.Notice = midsag.Notice
+	if perr := printJSON(stderr, ref); perr != nil {
+		return perr
+	}
+	return &reportedError{err: err, code: exitRejected}
+}
+
+func printJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
+
+// writeJSONFile writes v to path through a temporary file and a rename,
+// so a reader never sees a partial file.
+func writeJSONFile(path string, v any) error {
+	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+		return err
+	}
+	b, err := json.MarshalIndent(v, "", "  ")
+	if err != nil {
+		return err
+	}
+	return writeFileAtomic(path, append(b, '\n'))
+}
+
+func writeFileAtomic(path string, data []byte) error {
+	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
+	if err != nil {
+		return err
+	}
+	if _, err := tmp.Write(data); err != nil {
+		tmp.Close()
+		os.Remove(tmp.Name())
+		return err
+	}
+	if err := tmp.Sync(); err != nil {
+		tmp.Close()
+		os.Remove(tmp.Name())
+		return err
+	}
+	if err := tmp.Close(); err != nil {
+		os.Remove(tmp.Name())
+		return err
+	}
+	if err := os.Rename(tmp.Name(), path); err != nil {
+		os.Remove(tmp.Name())
+		return fmt.Errorf("write %s: %w", path, err)
+	}
+	return nil
+}
+
+// printSummary prints a short human-readable account of a result.
+func printSummary(w io.Writer, r *midsag.Result) {
+	fmt.Fprintf(w, "%s\n\n", r.Notice)
+	fmt.Fprintf(w, "study        %s\n", r.StudyInstanceUID)
+	for _, c := range r.SeriesCandidates {
+		if c.Picked {
+			fmt.Fprintf(w, "series       #%d %q, %d slices, score %.2f (best of %d series)\n",
+				c.SeriesNumber, c.Description, c.Instances, c.Score, len(r.SeriesCandidates))
+		}
+	}
+	var stack []string
+	center := -1
+	for i, s := range r.Slices {
+		if s.InStack {
+			stack = append(stack, fmt.Sprint(i+1))
+		}
+		if s.SOPInstanceUID == r.CenterSOPInstanceUID {
+			center = i
+		}
+	}
+	fmt.Fprintf(w, "midline      slice %d of %d (instance %d); stack %s\n",
+		center+1, len(r.Slices), r.Slices[center].InstanceNumber, strings.Join(stack, ","))
+	fmt.Fprintf(w, "model        %s %s (sha256 %.12s)\n", r.Model.Name, r.Model.Version, r.Model.SHA256)
+	fmt.Fprintf(w, "probability  %.4g uncalibrated, %.4g calibrated (%s)\n", r.Probability, r.CalibratedProb, r.CalibrationMethod)
+	fmt.Fprintf(w, "decision     %s (threshold %.2f)\n", r.Decision, r.Threshold)
+	flags := "none"
+	if len(r.QualityFlags) > 0 {
+		flags = strings.Join(r.QualityFlags, ", ")
+	}
+	fmt.Fprintf(w, "quality      %s\n", flags)
+	fmt.Fprintf(w, "time         %.0f ms\n", r.TimingsMS["total"])
+}

@@ -1,0 +1,100 @@
+package preprocess
+
+import (
+	"bytes"
+	"context"
+	"io"
+	"testing"
+
+	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/phantom"
+)
+
+// benchStudy is one phantom study with its four decoy series (about 50
+// files), in Explicit VR Little Endian.
+func benchStudy(b *testing.B) []phantom.File {
+	b.Helper()
+	files, _, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 77,
+		Syntaxes: []string{phantom.ExplicitVRLittleEndian}}, 0)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return files
+}
+
+// BenchmarkStudyCopyBaseline copies the study's bytes: the floor that
+// reading headers is compared against (bench/study.sh prints the ratio).
+func BenchmarkStudyCopyBaseline(b *testing.B) {
+	files := benchStudy(b)
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		for _, f := range files {
+			if _, err := io.Copy(io.Discard, bytes.NewReader(f.Data)); err != nil {
+				b.Fatal(err)
+			}
+		}
+	}
+	b.ReportMetric(float64(len(files)), "files")
+}
+
+// BenchmarkStudyReadHeaders reads every file of the study with Read
+// (headers parsed, pixel data kept undecoded).
+func BenchmarkStudyReadHeaders(b *testing.B) {
+	files := benchStudy(b)
+	pre := New(Options{})
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		for _, f := range files {
+			if _, err := pre.Read(f.Name, bytes.NewReader(f.Data)); err != nil {
+				b.Fatal(err)
+			}
+		}
+	}
+	b.ReportMetric(float64(len(files)), "files")
+}
+
+func readAll(b *testing.B, files []phantom.File) []*midsag.Instance {
+	pre := New(Options{})
+	var insts []*midsag.Instance
+	for _, f := range files {
+		in, err := pre.Read(f.Name, bytes.NewReader(f.Data))
+		if err != nil {
+			b.Fatal(err)
+		}
+		insts = append(insts, in)
+	}
+	return insts
+}
+
+// BenchmarkSeriesDecodeBaseline decodes the pixels of the T2 series only:
+// the floor that preparing the study is compared against.
+func BenchmarkSeriesDecodeBaseline(b *testing.B) {
+	insts := readAll(b, benchStudy(b))
+	se, _, _, err := PickSeries(Group(insts)[0], 3)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		for _, in := range se.Instances {
+			if _, err := Decode(in); err != nil {
+				b.Fatal(err)
+			}
+		}
+	}
+}
+
+// BenchmarkStudyPrepare runs Prepare on the read study: series pick, slice
+// sort, decoding the picked series, midline scoring and the 3x128x128 stack.
+func BenchmarkStudyPrepare(b *testing.B) {
+	insts := readAll(b, benchStudy(b))
+	spec := midsag.InputSpec{Layout: "NCHW", Height: 128, Width: 128, Slices: 3, SliceStep: 1,
+		Normalize: "percentile", PercentileLow: 1, PercentileHigh: 99}
+	pre := New(Options{})
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := pre.Prepare(context.Background(), insts, spec); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
