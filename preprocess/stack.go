@@ -170,7 +170,7 @@ func fit(img *midsag.Image, sp [2]float64, spec midsag.InputSpec) ([]float32, []
 
 // resize resamples img to h x w with a separable triangle (linear) filter
 // widened by the scale factor when shrinking, so downsampling averages
-// rather than aliases.
+// rather than aliases; rows first, then columns, as Pillow does.
 func resize(img *midsag.Image, h, w int) []float32 {
 	tmp := resample1D(img.Pix, img.Rows, img.Columns, w) // rows x w
 	tr := transpose(tmp, img.Rows, w)                    // w x rows
@@ -188,7 +188,10 @@ func transpose(p []float32, rows, cols int) []float32 {
 	return out
 }
 
-// resample1D resamples each of rows rows of length n to length m.
+// resample1D resamples each of rows rows of length n to length m. The
+// taps are those of Pillow's bilinear filter (Resample.c: a triangle of
+// support max(1, scale) around (j+0.5)*scale, taps outside the image left
+// out and the rest renormalised), so results can be checked against it.
 func resample1D(p []float32, rows, n, m int) []float32 {
 	scale := float64(n) / float64(m)
 	support := math.Max(1, scale)
@@ -207,8 +210,10 @@ func resample1D(p []float32, rows, n, m int) []float32 {
 			if wt <= 0 {
 				continue
 			}
-			ci := min(max(i, 0), n-1)
-			t.idx = append(t.idx, ci)
+			if i < 0 || i >= n {
+				continue
+			}
+			t.idx = append(t.idx, i)
 			t.w = append(t.w, float32(wt))
 			sum += wt
 		}

@@ -7,6 +7,7 @@ package testtool
 import (
 	"os"
 	"os/exec"
+	"strings"
 	"testing"
 )
 
@@ -55,4 +56,16 @@ func Run(t testing.TB, name string, args ...string) []byte {
 		t.Fatalf("%s %v: %v\n%s", name, args, err, out)
 	}
 	return out
+}
+
+// Python returns Debian's /usr/bin/python3 if it imports the given
+// modules, or skips/fails t.
+func Python(t testing.TB, modules ...string) string {
+	t.Helper()
+	const py = "/usr/bin/python3"
+	args := []string{"-c", "import " + strings.Join(append([]string{"sys"}, modules...), ", ")}
+	if err := exec.Command(py, args...).Run(); err != nil {
+		missing(t, py+" with "+strings.Join(modules, ", "))
+	}
+	return py
 }
