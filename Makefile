@@ -15,8 +15,11 @@ ort: $(ORT_LIB)
 $(ORT_LIB): scripts/get-onnxruntime.sh
 	bash scripts/get-onnxruntime.sh
 
+# The library is copied next to the binary, where midsag looks for it, so
+# bin/midsag runs from any working directory.
 build: ort
 	$(GO) build -o $(BIN) ./cmd/midsag
+	cp -f $(ORT_LIB) bin/libonnxruntime.so.1
 
 demo: build
 	./$(BIN) demo --out demo-out
