@@ -132,7 +132,11 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 	if _, err := sc.dataset(0, len(body), 0); err != nil {
 		return nil, err
 	}
-	ds, err := parseDataset(body, bo, implicit)
+	parseTS := m.transferSyntax
+	if parseTS == DeflatedExplicitVRLittleEndian {
+		parseTS = ExplicitVRLittleEndian // already inflated above
+	}
+	ds, err := parseDataset(body, parseTS)
 	if err != nil {
 		return nil, err
 	}
@@ -145,24 +149,22 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 }
 
 // parseDataset runs the DICOM parser over a data set body, converting a
-// panic inside it into a refusal.
-func parseDataset(body []byte, bo binary.ByteOrder, implicit bool) (ds dicom.Dataset, err error) {
+// panic inside it into a refusal. The body is preceded by a minimal file
+// meta information group naming its transfer syntax (PS3.10 7.1): without
+// one the parser guesses the syntax by trial parses, which is slow and
+// allocates.
+func parseDataset(body []byte, ts string) (ds dicom.Dataset, err error) {
 	defer func() {
 		if r := recover(); r != nil {
 			err = midsag.Rejectf(midsag.ReasonNotDICOM, "the DICOM parser failed on this file: %v", r)
 		}
 	}()
-	// The parser peeks 100 bytes to guess a transfer syntax even when told
-	// to skip the meta information; padding past the read limit satisfies
-	// the peek, and its guess is overridden below.
-	padded := append(body[:len(body):len(body)], make([]byte, 128)...)
-	parser, err := dicom.NewParser(bytes.NewReader(padded), int64(len(body)), nil,
-		dicom.SkipMetadataReadOnNewParserInit(), dicom.SkipProcessingPixelDataValue(),
-		dicom.AllowUnknownSpecificCharacterSet(), dicom.AllowMismatchPixelDataLength())
-	if parser == nil {
+	head := metaHeader(ts)
+	parser, err := dicom.NewParser(io.MultiReader(bytes.NewReader(head), bytes.NewReader(body)), int64(len(head)+len(body)), nil,
+		dicom.SkipProcessingPixelDataValue(), dicom.AllowUnknownSpecificCharacterSet(), dicom.AllowMismatchPixelDataLength())
+	if err != nil {
 		return ds, midsag.Reject(midsag.ReasonNotDICOM, "cannot start parsing", err)
 	}
-	parser.SetTransferSyntax(bo, implicit)
 	var elems []*dicom.Element
 	for {
 		e, err := parser.Next()
@@ -178,6 +180,27 @@ func parseDataset(body []byte, bo binary.ByteOrder, implicit bool) (ds dicom.Dat
 		elems = append(elems, e)
 	}
 	return dicom.Dataset{Elements: elems}, nil
+}
+
+// metaHeader returns a preamble, "DICM" and a group 0002 holding only its
+// group length and the transfer syntax UID, in Explicit VR Little Endian.
+func metaHeader(ts string) []byte {
+	if len(ts)%2 == 1 {
+		ts += "\x00"
+	}
+	tsElem := binary.LittleEndian.AppendUint16(nil, 0x0002)
+	tsElem = binary.LittleEndian.AppendUint16(tsElem, 0x0010)
+	tsElem = append(tsElem, 'U', 'I')
+	tsElem = binary.LittleEndian.AppendUint16(tsElem, uint16(len(ts)))
+	tsElem = append(tsElem, ts...)
+	b := make([]byte, 128, 128+4+12+len(tsElem))
+	b = append(b, "DICM"...)
+	b = binary.LittleEndian.AppendUint16(b, 0x0002)
+	b = binary.LittleEndian.AppendUint16(b, 0x0000)
+	b = append(b, 'U', 'L')
+	b = binary.LittleEndian.AppendUint16(b, 4)
+	b = binary.LittleEndian.AppendUint32(b, uint32(len(tsElem)))
+	return append(b, tsElem...)
 }
 
 // instance extracts the attributes midsag uses and checks the limits on
