@@ -201,4 +201,3 @@ func TestScoreUsage(t *testing.T) {
 		t.Errorf("unknown flag: exit %d, want 2", code)
 	}
 }
-
