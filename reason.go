@@ -32,6 +32,9 @@ type Error struct {
 	Reason Reason
 	Msg    string
 	Err    error
+	// Candidates, for series-picking refusals, lists every series with
+	// its score and reasons so the refusal can be inspected.
+	Candidates []SeriesCandidate
 }
 
 // Error returns "reason: message[: cause]".
@@ -54,6 +57,15 @@ func Rejectf(reason Reason, format string, args ...any) *Error {
 // Reject returns an *Error with the given reason and message that wraps err.
 func Reject(reason Reason, msg string, err error) *Error {
 	return &Error{Reason: reason, Msg: msg, Err: err}
+}
+
+// RefusalOf returns the *Error anywhere in err's chain, or nil.
+func RefusalOf(err error) *Error {
+	var e *Error
+	if errors.As(err, &e) {
+		return e
+	}
+	return nil
 }
 
 // ReasonOf returns the reason code carried anywhere in err's chain.

@@ -114,13 +114,17 @@ func PickSeries(st *midsag.Study, minSlices int) (*midsag.Series, []midsag.Serie
 	if best == nil {
 		for _, c := range cands {
 			if c.fewSlices {
-				return nil, out, nil, midsag.Rejectf(midsag.ReasonTooFewSlices,
+				e := midsag.Rejectf(midsag.ReasonTooFewSlices,
 					"series %q (%s) is sagittal T2 but has %d slices; the model needs at least %d",
 					c.series.Description, c.series.SeriesInstanceUID, len(c.series.Instances), minSlices)
+				e.Candidates = out
+				return nil, out, nil, e
 			}
 		}
-		return nil, out, nil, midsag.Rejectf(midsag.ReasonNoSagittalT2,
-			"none of the %d series is a T2-weighted sagittal MR series (see series_candidates for each one's reasons)", len(cands))
+		e := midsag.Rejectf(midsag.ReasonNoSagittalT2,
+			"none of the %d series is a T2-weighted sagittal MR series (each series' score and reasons are listed)", len(cands))
+		e.Candidates = out
+		return nil, out, nil, e
 	}
 	var flags []string
 	if best.stir {

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"fmt"
@@ -67,32 +68,48 @@ func scoreStudy(ctx context.Context, mf *modelFlags, lenient bool, paths []strin
 // refusal is the JSON form of an input refusal on stderr.
 type refusal struct {
 	Error struct {
-		Reason  midsag.Reason `json:"reason"`
-		Message string        `json:"message"`
+		Reason           midsag.Reason            `json:"reason"`
+		Message          string                   `json:"message"`
+		SeriesCandidates []midsag.SeriesCandidate `json:"series_candidates,omitempty"`
 	} `json:"error"`
 	Notice string `json:"notice"`
 }
 
-// reportRejection prints an input refusal as JSON when asked, and returns
-// err so the exit code follows it.
+// reportRejection prints an input refusal (as JSON when asked, with the
+// series candidates when there are any) and returns an error whose exit
+// code is 3. Other errors are returned unchanged.
 func reportRejection(err error, asJSON bool, stderr io.Writer) error {
-	r, ok := midsag.ReasonOf(err)
-	if !ok || !asJSON {
+	e := midsag.RefusalOf(err)
+	if e == nil {
 		return err
 	}
-	var ref refusal
-	ref.Error.Reason = r
-	ref.Error.Message = err.Error()
-	ref.Notice = midsag.Notice
-	if perr := printJSON(stderr, ref); perr != nil {
-		return perr
+	msg := strings.Replace(err.Error(), string(e.Reason)+": ", "", 1)
+	if asJSON {
+		var ref refusal
+		ref.Error.Reason = e.Reason
+		ref.Error.Message = msg
+		ref.Error.SeriesCandidates = e.Candidates
+		ref.Notice = midsag.Notice
+		if perr := printJSON(stderr, ref); perr != nil {
+			return perr
+		}
+		return &reportedError{err: err, code: exitRejected}
 	}
+	fmt.Fprintf(stderr, "midsag: rejected (%s): %s\n", e.Reason, msg)
+	for _, c := range e.Candidates {
+		fmt.Fprintf(stderr, "  series #%d %q, %d instances, score %.2f\n", c.SeriesNumber, c.Description, c.Instances, c.Score)
+		for _, r := range c.Reasons {
+			fmt.Fprintf(stderr, "    - %s\n", r)
+		}
+	}
+	fmt.Fprintf(stderr, "%s\n", midsag.Notice)
 	return &reportedError{err: err, code: exitRejected}
 }
 
 func printJSON(w io.Writer, v any) error {
 	enc := json.NewEncoder(w)
 	enc.SetIndent("", "  ")
+	enc.SetEscapeHTML(false)
 	return enc.Encode(v)
 }
 
@@ -102,11 +119,11 @@ func writeJSONFile(path string, v any) error {
 	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 		return err
 	}
-	b, err := json.MarshalIndent(v, "", "  ")
-	if err != nil {
+	var b bytes.Buffer
+	if err := printJSON(&b, v); err != nil {
 		return err
 	}
-	return writeFileAtomic(path, append(b, '\n'))
+	return writeFileAtomic(path, b.Bytes())
 }
 
 func writeFileAtomic(path string, data []byte) error {
