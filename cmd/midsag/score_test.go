@@ -174,6 +174,10 @@ func TestScoreRefusals(t *testing.T) {
 		if ref.Error.Reason != c.reason || ref.Notice != midsag.Notice {
 			t.Errorf("%s: reason %q (%s), want %q", c.name, ref.Error.Reason, ref.Error.Message, c.reason)
 		}
+		seriesRefusal := c.reason == midsag.ReasonNoSagittalT2 || c.reason == midsag.ReasonTooFewSlices
+		if seriesRefusal && (len(ref.Error.SeriesCandidates) == 0 || len(ref.Error.SeriesCandidates[0].Reasons) == 0) {
+			t.Errorf("%s: refusal lists no series candidates with reasons", c.name)
+		}
 	}
 	// Without --json the reason code is still on stderr.
 	code, _, errs := runCLI("score", png)
