@@ -1,0 +1,123 @@
+package server
+
+import (
+	"context"
+	"net/http"
+
+	"google.golang.org/grpc/codes"
+
+	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/server/store"
+)
+
+// Record is one result version of a study, as kept by the store.
+type Record = store.Record
+
+// Query filters and pages result records.
+type Query = store.Query
+
+// Record statuses.
+const (
+	StatusPending  = store.StatusPending
+	StatusRunning  = store.StatusRunning
+	StatusDone     = store.StatusDone
+	StatusRejected = store.StatusRejected
+	StatusFailed   = store.StatusFailed
+)
+
+// Origin says where an instance came from; it is recorded with the
+// instance and never holds patient data.
+type Origin struct {
+	// Listener is "rest", "stow", "grpc" or "dicom".
+	Listener string
+	// CallingAE is the peer's AE title for the DICOM listener.
+	CallingAE string
+	// Remote is the peer's network address.
+	Remote string
+}
+
+// Stored identifies an instance after Ingest has made it durable.
+type Stored struct {
+	StudyInstanceUID  string
+	SeriesInstanceUID string
+	SOPInstanceUID    string
+	SOPClassUID       string
+	// Duplicate is true when the same SOP Instance UID with the same bytes
+	// was already stored; nothing new was written.
+	Duplicate bool
+}
+
+// ScoreRequest asks for the instances of one request to be scored as one
+// study, without waiting for the settle time.
+type ScoreRequest struct {
+	// SOPInstanceUIDs are the request's instances, already ingested.
+	SOPInstanceUIDs []string
+	// Model and ModelVersion name a model of the registry; empty means
+	// the default model.
+	Model        string
+	ModelVersion string
+	Explain      bool
+	// Async returns at once with a pending record instead of waiting.
+	Async bool
+}
+
+// ModelEntry describes one model the service can run.
+type ModelEntry struct {
+	Name        string
+	Version     string
+	SHA256      string
+	Default     bool
+	Labels      []string
+	IntendedUse string
+	Source      string
+}
+
+// Backend is what every listener calls. Core implements it.
+type Backend interface {
+	// Ingest parses the header of one DICOM Part 10 instance and stores it
+	// durably (spool file and database row) before returning.
+	Ingest(ctx context.Context, origin Origin, data []byte) (Stored, error)
+	// Score scores the request's instances as one study. Without Async it
+	// waits for the result; with Async it returns the pending record.
+	// Refusals are *midsag.Error values; a full queue is
+	// midsag.ReasonOverloaded.
+	Score(ctx context.Context, req ScoreRequest) (Record, error)
+	// Result returns one record by id (store.ErrNotFound if unknown).
+	Result(ctx context.Context, id string) (Record, error)
+	// Results lists records matching q, newest first, with a next-page
+	// token ("" on the last page).
+	Results(ctx context.Context, q Query) ([]Record, string, error)
+	// Models lists the models that can be named in a ScoreRequest.
+	Models(ctx context.Context) []ModelEntry
+}
+
+// HTTPStatus maps a refusal reason to an HTTP status (DESIGN.md: 400, 413,
+// 415, 422, 429, 503).
+func HTTPStatus(r midsag.Reason) int {
+	switch r {
+	case midsag.ReasonTooLarge:
+		return http.StatusRequestEntityTooLarge
+	case midsag.ReasonNotDICOM, midsag.ReasonUnsupportedSyntax:
+		return http.StatusUnsupportedMediaType
+	case midsag.ReasonOverloaded:
+		return http.StatusTooManyRequests
+	case midsag.ReasonNoInput, midsag.ReasonTruncated, midsag.ReasonBadPixelData, midsag.ReasonMultipleStudies:
+		return http.StatusBadRequest
+	case midsag.ReasonNoSagittalT2, midsag.ReasonTooFewSlices, midsag.ReasonInconsistentGeometry,
+		midsag.ReasonModelInputMismatch, midsag.ReasonBadModel:
+		return http.StatusUnprocessableEntity
+	}
+	return http.StatusBadRequest
+}
+
+// GRPCCode maps a refusal reason to a gRPC status code.
+func GRPCCode(r midsag.Reason) codes.Code {
+	switch r {
+	case midsag.ReasonOverloaded:
+		return codes.ResourceExhausted
+	case midsag.ReasonNoSagittalT2, midsag.ReasonTooFewSlices, midsag.ReasonInconsistentGeometry,
+		midsag.ReasonModelInputMismatch, midsag.ReasonBadModel:
+		return codes.FailedPrecondition
+	}
+	return codes.InvalidArgument
+}
