@@ -24,6 +24,7 @@ const (
 	ReasonInconsistentGeometry Reason = "inconsistent_geometry"
 	ReasonModelInputMismatch   Reason = "model_input_mismatch"
 	ReasonBadModel             Reason = "bad_model"
+	ReasonUnknownModel         Reason = "unknown_model"
 	ReasonOverloaded           Reason = "overloaded"
 )
 
