@@ -5,7 +5,7 @@ GO       ?= go
 BIN      := bin/midsag
 ORT_LIB  := third_party/onnxruntime/linux-$(shell uname -m | sed -e 's/x86_64/x64/' -e 's/aarch64/arm64/')/libonnxruntime.so.1
 
-.PHONY: all build ort demo test test-long bench vet fmt clean
+.PHONY: all build ort demo test test-long bench vet fmt clean gen-api
 
 all: build
 
@@ -37,6 +37,11 @@ test-long: ort
 
 bench: ort
 	$(GO) test -run '^$$' -bench . -benchmem ./preprocess/... ./models/...
+
+# gen-api regenerates api/midsag/v1 (Go, gateway, OpenAPI) from the .proto
+# and its HTTP rules with pinned protoc plugins; the output is committed.
+gen-api:
+	bash scripts/gen-api.sh
 
 clean:
 	rm -rf bin demo-out
