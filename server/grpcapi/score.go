@@ -1,0 +1,277 @@
+package grpcapi
+
+import (
+	"archive/zip"
+	"bufio"
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"mime"
+	"mime/multipart"
+	"net/http"
+	"net/url"
+	"os"
+	"strconv"
+	"strings"
+
+	"github.com/midsag/midsag"
+	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
+	"github.com/midsag/midsag/server"
+)
+
+// Zip limits against archive bombs. Our choice: a cervical spine MR study
+// has a few hundred to a few thousand instances, and one instance is
+// rarely above 64 MiB.
+const (
+	maxZipEntries = 20000
+	// maxZipEntryBytes caps one entry's uncompressed size, whatever its
+	// header says.
+	maxZipEntryBytes int64 = 256 << 20
+	// zipExpansion bounds the total uncompressed size at this multiple
+	// of MaxBodyBytes.
+	zipExpansion = 4
+)
+
+// gzipRefusal is the answer to a gzip body: the service cannot tell a
+// gzipped zip from a gzipped DICOM file, so it asks for the plain form.
+const gzipRefusal = "gzip is not accepted; send a zip or application/dicom"
+
+// sniffLen covers the 128-byte preamble and "DICM" (PS3.10 7.1) and the
+// zip and gzip signatures.
+const sniffLen = 132
+
+// score serves POST /v1/studies:score: every instance of the body is
+// ingested (durable) before Score is asked, and only then is anything
+// answered.
+func (a *httpAPI) score(w http.ResponseWriter, r *http.Request) {
+	opts, err := scoreOptions(r.URL.Query())
+	if err != nil {
+		writeError(w, a.cfg.Logger, classify(err))
+		return
+	}
+	if r.ContentLength > a.cfg.MaxBodyBytes {
+		writeError(w, a.cfg.Logger, tooLarge(a.cfg.MaxBodyBytes))
+		return
+	}
+	body := http.MaxBytesReader(w, r.Body, a.cfg.MaxBodyBytes)
+	ing := &ingester{backend: a.cfg.Backend, origin: server.Origin{Listener: "rest", Remote: r.RemoteAddr}}
+	if err := a.readStudy(r.Context(), r.Header, body, ing); err != nil {
+		writeError(w, a.cfg.Logger, classify(err))
+		return
+	}
+	res, err := score(r.Context(), a.cfg.Backend, ing.uids, opts)
+	if err != nil {
+		writeError(w, a.cfg.Logger, classify(err))
+		return
+	}
+	b, err := resultJSON.Marshal(res)
+	if err != nil {
+		writeError(w, a.cfg.Logger, classify(fmt.Errorf("encode result: %w", err)))
+		return
+	}
+	code := http.StatusOK
+	if opts.GetAsync() {
+		w.Header().Set("Location", "/v1/results/"+url.PathEscape(res.GetResultId()))
+		code = http.StatusAccepted
+	}
+	writeBytes(w, code, "application/json", append(b, '\n'))
+}
+
+// scoreOptions reads the query parameters model, model_version, explain
+// and async.
+func scoreOptions(q url.Values) (*midsagv1.ScoreOptions, error) {
+	opts := &midsagv1.ScoreOptions{Model: q.Get("model"), ModelVersion: q.Get("model_version")}
+	for name, dst := range map[string]*bool{"explain": &opts.Explain, "async": &opts.Async} {
+		if v := q.Get(name); v != "" {
+			b, err := strconv.ParseBool(v)
+			if err != nil {
+				return nil, newAPIError(ReasonBadRequest, fmt.Sprintf("%s=%q is not true or false", name, v))
+			}
+			*dst = b
+		}
+	}
+	return opts, nil
+}
+
+// readStudy ingests every instance of an upload: a zip of one study, one
+// application/dicom instance, or multipart/related parts of
+// application/dicom (PS3.18 8.6.1.2). The media type decides; a generic
+// or missing one is settled by the body's first bytes.
+func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, ing *ingester) error {
+	if strings.Contains(strings.ToLower(h.Get("Content-Encoding")), "gzip") {
+		return newAPIError(midsag.ReasonNotDICOM, gzipRefusal)
+	}
+	mt, params, err := mime.ParseMediaType(h.Get("Content-Type"))
+	if err != nil && h.Get("Content-Type") != "" {
+		return newAPIError(ReasonBadRequest, fmt.Sprintf("Content-Type is malformed: %v", err))
+	}
+	if mt == "multipart/related" {
+		return a.readMultipart(ctx, params, body, ing)
+	}
+	br := bufio.NewReaderSize(body, 64<<10)
+	head, err := br.Peek(sniffLen)
+	if err != nil && !errors.Is(err, io.EOF) {
+		return fmt.Errorf("read body: %w", err)
+	}
+	isZip := bytes.HasPrefix(head, []byte("PK\x03\x04"))
+	switch {
+	case len(head) == 0:
+		return newAPIError(midsag.ReasonNoInput, "the request body is empty")
+	case bytes.HasPrefix(head, []byte{0x1f, 0x8b}), mt == "application/gzip", mt == "application/x-gzip":
+		return newAPIError(midsag.ReasonNotDICOM, gzipRefusal)
+	case mt == "application/zip", mt == "application/x-zip-compressed", isZip && genericType(mt):
+		return a.readZip(ctx, br, ing)
+	case mt == "application/dicom", genericType(mt):
+		data, err := io.ReadAll(br)
+		if err != nil {
+			return fmt.Errorf("read body: %w", err)
+		}
+		return ing.ingest(ctx, "body", data)
+	}
+	return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf(
+		"Content-Type %s is not accepted; send application/zip, application/dicom or multipart/related; type=\"application/dicom\"", mt))
+}
+
+// genericType reports whether mt says nothing about the payload: none,
+// octet-stream, or the form type curl --data-binary sends by default.
+func genericType(mt string) bool {
+	return mt == "" || mt == "application/octet-stream" || mt == "application/x-www-form-urlencoded"
+}
+
+// readMultipart ingests each part of a multipart/related body; every part
+// must be application/dicom (PS3.18 8.6.1.2).
+func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, body io.Reader, ing *ingester) error {
+	mr, err := relatedReader(params, body)
+	if err != nil {
+		return err
+	}
+	for n := 1; ; n++ {
+		part, err := mr.NextRawPart()
+		if errors.Is(err, io.EOF) {
+			return nil
+		}
+		if err != nil {
+			return multipartError(n, err)
+		}
+		if err := partIsDICOM(part); err != nil {
+			return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf("part %d: %v", n, err))
+		}
+		data, err := io.ReadAll(part)
+		if err != nil {
+			return multipartError(n, err)
+		}
+		if err := ing.ingest(ctx, fmt.Sprintf("part %d", n), data); err != nil {
+			return err
+		}
+	}
+}
+
+// relatedReader checks a multipart/related media type's parameters and
+// returns a reader of its parts. A type parameter other than
+// application/dicom is refused; a missing one is taken as DICOM.
+func relatedReader(params map[string]string, body io.Reader) (*multipart.Reader, error) {
+	if t := params["type"]; t != "" && !strings.EqualFold(t, "application/dicom") {
+		return nil, newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf(
+			"multipart/related type %q is not accepted; only application/dicom parts are (PS3.18 8.6.1.2)", t))
+	}
+	if params["boundary"] == "" {
+		return nil, newAPIError(ReasonBadRequest, "multipart/related without a boundary parameter")
+	}
+	return multipart.NewReader(body, params["boundary"]), nil
+}
+
+// partIsDICOM refuses a part whose own Content-Type is not
+// application/dicom; a part without one inherits the type parameter.
+func partIsDICOM(p *multipart.Part) error {
+	ct := p.Header.Get("Content-Type")
+	if ct == "" {
+		return nil
+	}
+	mt, _, err := mime.ParseMediaType(ct)
+	if err != nil || mt != "application/dicom" {
+		return fmt.Errorf("Content-Type %q is not application/dicom", ct)
+	}
+	return nil
+}
+
+// multipartError reports a body that breaks off or is not valid MIME.
+func multipartError(n int, err error) error {
+	var mbe *http.MaxBytesError
+	if errors.As(err, &mbe) {
+		return tooLarge(mbe.Limit)
+	}
+	return midsag.Reject(midsag.ReasonTruncated, fmt.Sprintf("multipart body is malformed at part %d", n), err)
+}
+
+// readZip spools the archive to a temporary file (zip needs random
+// access; memory stays bounded) and ingests each entry. Entries that are
+// not DICOM (a README, DICOMDIR-less junk) are skipped as the CLI skips
+// them in folders; the upload is refused only if none is DICOM.
+func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) error {
+	f, err := os.CreateTemp("", "midsag-upload-*.zip")
+	if err != nil {
+		return fmt.Errorf("spool zip: %w", err)
+	}
+	defer func() {
+		f.Close()
+		os.Remove(f.Name())
+	}()
+	size, err := io.Copy(f, body)
+	if err != nil {
+		return fmt.Errorf("spool zip: %w", err)
+	}
+	zr, err := zip.NewReader(f, size)
+	if err != nil {
+		return midsag.Reject(midsag.ReasonNotDICOM, "the body is not a readable zip archive", err)
+	}
+	if len(zr.File) > maxZipEntries {
+		return newAPIError(midsag.ReasonTooLarge, fmt.Sprintf("the zip has %d entries; at most %d are accepted", len(zr.File), maxZipEntries))
+	}
+	budget := zipExpansion * a.cfg.MaxBodyBytes
+	skipped := 0
+	for i, zf := range zr.File {
+		if zf.FileInfo().IsDir() || strings.HasPrefix(zf.Name, "__MACOSX/") {
+			continue
+		}
+		name := fmt.Sprintf("zip entry %d (%s)", i+1, zf.Name)
+		data, err := readZipEntry(zf, min(maxZipEntryBytes, budget))
+		if err != nil {
+			return prefixed(name, err)
+		}
+		budget -= int64(len(data))
+		if err := ing.ingest(ctx, name, data); err != nil {
+			if classify(err).reason == midsag.ReasonNotDICOM {
+				skipped++
+				continue
+			}
+			return err
+		}
+	}
+	if len(ing.uids) == 0 {
+		return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf("the zip holds no DICOM instance (%d entries skipped)", skipped))
+	}
+	return nil
+}
+
+// readZipEntry inflates one entry, reading at most limit bytes whatever
+// the header claims, so a forged size cannot bypass the cap.
+func readZipEntry(zf *zip.File, limit int64) ([]byte, error) {
+	if zf.UncompressedSize64 > uint64(limit) {
+		return nil, midsag.Rejectf(midsag.ReasonTooLarge, "the entry declares %d bytes uncompressed; the limit is %d", zf.UncompressedSize64, limit)
+	}
+	rc, err := zf.Open()
+	if err != nil {
+		return nil, midsag.Reject(midsag.ReasonNotDICOM, "the entry cannot be opened", err)
+	}
+	defer rc.Close()
+	data, err := io.ReadAll(io.LimitReader(rc, limit+1))
+	if err != nil {
+		return nil, midsag.Reject(midsag.ReasonTruncated, "the entry is damaged", err)
+	}
+	if int64(len(data)) > limit {
+		return nil, midsag.Rejectf(midsag.ReasonTooLarge, "the entry inflates beyond the %d-byte limit", limit)
+	}
+	return data, nil
+}

@@ -1,0 +1,176 @@
+package grpcapi
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"mime"
+	"net/http"
+
+	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/server"
+)
+
+// DICOM tags of the Store Instances response (PS3.18 10.5.3, attributes
+// from PS3.3 C.12.1 and the PS3.6 data dictionary).
+const (
+	tagFailureReason        = "00081197" // (0008,1197) US
+	tagFailedSOPSequence    = "00081198" // (0008,1198) SQ
+	tagReferencedSOPSeq     = "00081199" // (0008,1199) SQ
+	tagReferencedSOPClass   = "00081150" // (0008,1150) UI
+	tagReferencedSOPInstance = "00081155" // (0008,1155) UI
+)
+
+// Failure Reason values (PS3.18 10.5.3 refers to the status codes of
+// PS3.4 / PS3.7 Annex C). All from memory.
+const (
+	// failureOutOfResources: refused for size or load (0xA700).
+	failureOutOfResources = 0xA700
+	// failureStudyMismatch: the instance's Study Instance UID is not the
+	// one in the request URL (0xA900, "data set does not match").
+	failureStudyMismatch = 0xA900
+	// failureCannotUnderstand: the part is not a readable DICOM instance
+	// (0xC000).
+	failureCannotUnderstand = 0xC000
+	// failureProcessing: the service failed to store it (0x0110).
+	failureProcessing = 0x0110
+)
+
+// dicomJSON is one data set in the DICOM JSON model (PS3.18 F.2): keys
+// are 8 upper-case hex digits of the tag.
+type dicomJSON map[string]dicomAttr
+
+// dicomAttr is one attribute of the DICOM JSON model (PS3.18 F.2.2); an
+// empty value is written without "Value" (F.2.5).
+type dicomAttr struct {
+	VR    string `json:"vr"`
+	Value []any  `json:"Value,omitempty"`
+}
+
+func uiAttr(uid string) dicomAttr {
+	if uid == "" {
+		return dicomAttr{VR: "UI"}
+	}
+	return dicomAttr{VR: "UI", Value: []any{uid}}
+}
+
+// stow serves STOW-RS Store Instances (PS3.18 10.5): each
+// application/dicom part is ingested on its own and listed as referenced
+// or failed. It does not score: the core's settle scheduler does once the
+// study has been quiet. The response has no Retrieve URL (0008,1190)
+// because midsag serves no WADO-RS to retrieve from.
+func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
+	study := r.PathValue("study")
+	if r.ContentLength > a.cfg.MaxBodyBytes {
+		writeError(w, a.cfg.Logger, tooLarge(a.cfg.MaxBodyBytes))
+		return
+	}
+	mt, params, err := mime.ParseMediaType(r.Header.Get("Content-Type"))
+	if err != nil || mt != "multipart/related" {
+		writeError(w, a.cfg.Logger, newAPIError(midsag.ReasonNotDICOM,
+			`STOW-RS takes multipart/related; type="application/dicom" (PS3.18 10.5.1)`))
+		return
+	}
+	mr, err := relatedReader(params, http.MaxBytesReader(w, r.Body, a.cfg.MaxBodyBytes))
+	if err != nil {
+		writeError(w, a.cfg.Logger, classify(err))
+		return
+	}
+	origin := server.Origin{Listener: "stow", Remote: r.RemoteAddr}
+	var refs, fails []any
+	for n := 1; ; n++ {
+		part, err := mr.NextRawPart()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			// Parts before this one are stored (each is durable on its
+			// own); the client learns the body broke and may resend, which
+			// stores nothing twice.
+			writeError(w, a.cfg.Logger, classify(multipartError(n, err)))
+			return
+		}
+		data, err := io.ReadAll(part)
+		if err != nil {
+			writeError(w, a.cfg.Logger, classify(multipartError(n, err)))
+			return
+		}
+		ref, code := a.stowPart(r, origin, study, n, part.Header.Get("Content-Type"), data)
+		if code != 0 {
+			ref[tagFailureReason] = dicomAttr{VR: "US", Value: []any{code}}
+			fails = append(fails, ref)
+			continue
+		}
+		refs = append(refs, ref)
+	}
+	if len(refs)+len(fails) == 0 {
+		writeError(w, a.cfg.Logger, newAPIError(midsag.ReasonNoInput, "the multipart body has no parts"))
+		return
+	}
+	resp := dicomJSON{}
+	if len(refs) > 0 {
+		resp[tagReferencedSOPSeq] = dicomAttr{VR: "SQ", Value: refs}
+	}
+	if len(fails) > 0 {
+		resp[tagFailedSOPSequence] = dicomAttr{VR: "SQ", Value: fails}
+	}
+	// PS3.18 10.5.3: 200 all stored, 202 some failed, 409 none stored
+	// (status choice from memory).
+	code := http.StatusOK
+	switch {
+	case len(refs) == 0:
+		code = http.StatusConflict
+	case len(fails) > 0:
+		code = http.StatusAccepted
+	}
+	writeJSON(w, code, "application/dicom+json", resp)
+}
+
+// stowPart stores one part and returns its Referenced SOP item, with a
+// nonzero Failure Reason when it was not stored. The header is read
+// first so an instance of another study is refused before it is stored.
+func (a *httpAPI) stowPart(r *http.Request, origin server.Origin, study string, n int, contentType string, data []byte) (dicomJSON, int) {
+	item := dicomJSON{tagReferencedSOPClass: uiAttr(""), tagReferencedSOPInstance: uiAttr("")}
+	fail := func(code int, err error) (dicomJSON, int) {
+		ae := classify(err)
+		attrs := []any{"part", n, "failure_reason", fmt.Sprintf("0x%04X", code), "reason", ae.reason}
+		if ae.cause != nil {
+			attrs = append(attrs, "err", ae.cause)
+		}
+		a.cfg.Logger.Info("stow part refused", attrs...)
+		return item, code
+	}
+	if ct := contentType; ct != "" {
+		if mt, _, err := mime.ParseMediaType(ct); err != nil || mt != "application/dicom" {
+			return fail(failureCannotUnderstand, newAPIError(midsag.ReasonNotDICOM, "part is not application/dicom"))
+		}
+	}
+	inst, err := a.pre.Read(fmt.Sprintf("part %d", n), bytes.NewReader(data))
+	if err != nil {
+		return fail(failureCode(err), err)
+	}
+	item[tagReferencedSOPClass] = uiAttr(inst.SOPClassUID)
+	item[tagReferencedSOPInstance] = uiAttr(inst.SOPInstanceUID)
+	if study != "" && inst.StudyInstanceUID != study {
+		return fail(failureStudyMismatch, newAPIError(midsag.ReasonMultipleStudies, "instance of another study"))
+	}
+	st, err := a.cfg.Backend.Ingest(r.Context(), origin, data)
+	if err != nil {
+		return fail(failureCode(err), err)
+	}
+	item[tagReferencedSOPClass] = uiAttr(st.SOPClassUID)
+	item[tagReferencedSOPInstance] = uiAttr(st.SOPInstanceUID)
+	return item, 0
+}
+
+// failureCode maps a refusal to a Failure Reason (values from memory).
+func failureCode(err error) int {
+	switch classify(err).reason {
+	case midsag.ReasonTooLarge, midsag.ReasonOverloaded:
+		return failureOutOfResources
+	case ReasonInternal:
+		return failureProcessing
+	}
+	return failureCannotUnderstand
+}
