@@ -7,6 +7,7 @@ import (
 	"strings"
 	"testing"
 
+	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
 )
 
@@ -58,12 +59,14 @@ func TestStorescuPhantomStudy(t *testing.T) {
 	}
 }
 
-// checkReceived compares each sent file with what the handler got: equal
-// dataset bytes when the transfer syntax was kept, equal dcmdump text of
-// the dataset otherwise; dcmdump (DCMTK) must parse every received file.
+// checkReceived compares each sent file with what the handler got: the
+// handler saw callingAE; dataset bytes are equal when the transfer syntax
+// was kept; otherwise DCMTK's dcmdump must show the same dataset
+// elements. dcmdump must parse every received file.
 func checkReceived(t *testing.T, sent map[string][]byte, got *received, callingAE string) {
 	t.Helper()
-	out := t.TempDir()
+	dir := t.TempDir()
+	var names, rpaths, spaths []string
 	for name, b := range sent {
 		sm, err := parsePart10(b)
 		if err != nil {
@@ -82,46 +85,56 @@ func checkReceived(t *testing.T, sent map[string][]byte, got *received, callingA
 		if rm.sopClass != sm.sopClass {
 			t.Errorf("%s: SOP class %s, sent %s", name, rm.sopClass, sm.sopClass)
 		}
-		p := filepath.Join(out, name)
-		if err := os.WriteFile(p, rb, 0o644); err != nil {
+		names = append(names, name)
+		rpaths = append(rpaths, filepath.Join(dir, name+".rcv"))
+		spaths = append(spaths, filepath.Join(dir, name+".snd"))
+		if err := os.WriteFile(rpaths[len(rpaths)-1], rb, 0o644); err != nil {
 			t.Fatal(err)
 		}
-		dump, err := dcmtk(t, "dcmdump", "-q", "+L", p)
-		if err != nil {
-			t.Errorf("%s: dcmdump of received file: %v\n%s", name, err, dump)
-			continue
-		}
-		if !strings.Contains(string(dump), "(0002,0016) AE ["+callingAE+"]") {
-			t.Errorf("%s: dcmdump shows no Source AE %s", name, callingAE)
+		if err := os.WriteFile(spaths[len(spaths)-1], b, 0o644); err != nil {
+			t.Fatal(err)
 		}
 		// Deflated datasets are re-deflated by storescu, so only their
 		// content can be compared.
-		if rm.transferSyntax == sm.transferSyntax && sm.transferSyntax != phantom.DeflatedExplicitVRLE {
-			if !bytes.Equal(rm.dataset, sm.dataset) {
-				t.Errorf("%s: dataset differs (%d vs %d bytes)", name, len(rm.dataset), len(sm.dataset))
-			}
-			continue
+		if rm.transferSyntax == sm.transferSyntax && sm.transferSyntax != phantom.DeflatedExplicitVRLE &&
+			!bytes.Equal(rm.dataset, sm.dataset) {
+			t.Errorf("%s: dataset differs (%d vs %d bytes)", name, len(rm.dataset), len(sm.dataset))
 		}
-		// storescu converted the encoding: the dataset content as DCMTK
-		// reads it must still match.
-		sp := filepath.Join(out, name+".sent")
-		if err := os.WriteFile(sp, b, 0o644); err != nil {
-			t.Fatal(err)
+	}
+	rdump := dumps(t, rpaths)
+	sdump := dumps(t, spaths)
+	for i, name := range names {
+		if !strings.Contains(rdump[i], "(0002,0016) AE ["+callingAE+"]") {
+			t.Errorf("%s: dcmdump shows no Source AE %s", name, callingAE)
 		}
-		want, err := dcmtk(t, "dcmdump", "-q", "+L", sp)
-		if err != nil {
-			t.Fatalf("dcmdump of sent file: %v\n%s", err, want)
-		}
-		if a, b := datasetLines(dump), datasetLines(want); a != b {
-			t.Errorf("%s: dataset differs after %s -> %s:\n%s\nvs\n%s", name, sm.transferSyntax, rm.transferSyntax, a, b)
+		if a, b := datasetLines(rdump[i]), datasetLines(sdump[i]); a != b {
+			t.Errorf("%s: dcmdump of the dataset differs:\n%.2000s\nvs\n%.2000s", name, a, b)
 		}
 	}
 }
 
+// dumps runs DCMTK's dcmdump once over paths and splits its output per
+// file at the "# Dicom-File-Format" line it prints for each.
+func dumps(t *testing.T, paths []string) []string {
+	t.Helper()
+	if len(paths) == 0 {
+		return nil
+	}
+	out, err := dcmtk(t, "dcmdump", append([]string{"-q", "+L"}, paths...)...)
+	if err != nil {
+		t.Fatalf("dcmdump: %v\n%.2000s", err, out)
+	}
+	parts := strings.Split(string(out), "# Dicom-File-Format")[1:]
+	if len(parts) != len(paths) {
+		t.Fatalf("dcmdump printed %d files, want %d", len(parts), len(paths))
+	}
+	return parts
+}
+
 // datasetLines keeps dcmdump's element lines outside the meta group.
-func datasetLines(dump []byte) string {
+func datasetLines(dump string) string {
 	var keep []string
-	for _, l := range strings.Split(string(dump), "\n") {
+	for _, l := range strings.Split(dump, "\n") {
 		l = strings.TrimSpace(l)
 		if l == "" || strings.HasPrefix(l, "#") || strings.HasPrefix(l, "(0002,") {
 			continue
@@ -129,4 +142,56 @@ func datasetLines(dump []byte) string {
 		keep = append(keep, l)
 	}
 	return strings.Join(keep, "\n")
+}
+
+// TestStorescuUnsupportedSOPClass: pydicom's CT_small.dcm is CT Image
+// Storage, which we do not accept; DCMTK storescu must fail for lack of
+// an accepted presentation context and nothing reaches the handler.
+func TestStorescuUnsupportedSOPClass(t *testing.T) {
+	ct := testtool.PydicomFile(t, "CT_small.dcm")
+	var got received
+	_, _, port := startSCP(t, Config{}, got.handler(StatusSuccess))
+	out, err := dcmtk(t, "storescu", "-aet", "PACS", "-aec", "MIDSAG", "127.0.0.1", port, ct)
+	if err == nil {
+		t.Fatalf("storescu succeeded with an unsupported SOP class:\n%s", out)
+	}
+	if !strings.Contains(strings.ToLower(string(out)), "presentation context") {
+		t.Errorf("storescu output does not mention the presentation context:\n%s", out)
+	}
+	if got.count() != 0 {
+		t.Errorf("handler got %d files", got.count())
+	}
+}
+
+// TestEchoscuRejected: DCMTK echoscu must fail with an association
+// rejection when its calling AE is not allowed or it calls another AE.
+func TestEchoscuRejected(t *testing.T) {
+	for _, tc := range []struct{ name, calling, called, want string }{
+		{"calling AE not allowed", "INTRUDER", "MIDSAG", "Calling AE Title Not Recognized"},
+		{"wrong called AE", "PACS", "OTHER", "Called AE Title Not Recognized"},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			s, _, port := startSCP(t, Config{AllowedCallingAEs: []string{"PACS"}}, (&received{}).handler(StatusSuccess))
+			out, err := dcmtk(t, "echoscu", "-aet", tc.calling, "-aec", tc.called, "127.0.0.1", port)
+			if err == nil {
+				t.Fatalf("echoscu succeeded:\n%s", out)
+			}
+			// echoscu prints "Association Rejected" and the reason in the
+			// standard's words (observed with DCMTK 3.6.7).
+			if !strings.Contains(string(out), "Association Rejected") || !strings.Contains(string(out), tc.want) {
+				t.Errorf("echoscu output lacks the rejection %q:\n%s", tc.want, out)
+			}
+			if testing.Verbose() {
+				t.Logf("%s", out)
+			}
+			if st := s.Stats(); st.Rejected != 1 || st.Total != 0 {
+				t.Errorf("stats: %+v", st)
+			}
+		})
+	}
+	// The allowed AE still gets in: the rejection is not blanket.
+	_, _, port := startSCP(t, Config{AllowedCallingAEs: []string{"PACS"}}, (&received{}).handler(StatusSuccess))
+	if out, err := dcmtk(t, "echoscu", "-aet", "PACS", "-aec", "MIDSAG", "127.0.0.1", port); err != nil {
+		t.Fatalf("echoscu from an allowed AE: %v\n%s", err, out)
+	}
 }
