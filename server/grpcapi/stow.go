@@ -15,10 +15,10 @@ import (
 // DICOM tags of the Store Instances response (PS3.18 10.5.3, attributes
 // from PS3.3 C.12.1 and the PS3.6 data dictionary).
 const (
-	tagFailureReason        = "00081197" // (0008,1197) US
-	tagFailedSOPSequence    = "00081198" // (0008,1198) SQ
-	tagReferencedSOPSeq     = "00081199" // (0008,1199) SQ
-	tagReferencedSOPClass   = "00081150" // (0008,1150) UI
+	tagFailureReason         = "00081197" // (0008,1197) US
+	tagFailedSOPSequence     = "00081198" // (0008,1198) SQ
+	tagReferencedSOPSeq      = "00081199" // (0008,1199) SQ
+	tagReferencedSOPClass    = "00081150" // (0008,1150) UI
 	tagReferencedSOPInstance = "00081155" // (0008,1155) UI
 )
 
