@@ -292,7 +292,7 @@ func (s *Server) serveConn(ctx context.Context, conn net.Conn, withSlot bool) {
 		}
 	}()
 	// ARTIM runs from connect to A-ASSOCIATE-RQ (PS3.8 9.1.5, state Sta2).
-	typ, body, err := u.readPDU(time.Now().Add(s.cfg.ARTIM), 0, minAssocPDU)
+	typ, body, err := u.readPDU(time.Now().Add(s.cfg.ARTIM), minAssocPDU, minAssocPDU)
 	if err != nil {
 		s.endOnError(u, log, "read A-ASSOCIATE-RQ", err)
 		return
