@@ -209,9 +209,12 @@ func FuzzServeConn(f *testing.F) {
 	}
 	f.Fuzz(func(t *testing.T, in []byte) {
 		srv, cli := net.Pipe()
+		// The pipe is synchronous: read the server's replies while
+		// writing, and close after writing so the server sees EOF.
+		go func() { _, _ = io.Copy(io.Discard, cli) }()
 		go func() {
 			_, _ = cli.Write(in)
-			_, _ = io.Copy(io.Discard, cli)
+			cli.Close()
 		}()
 		done := make(chan struct{})
 		go func() {

@@ -17,7 +17,7 @@ import (
 // startStorescp runs DCMTK's storescp (the reference Storage SCP) on a
 // free loopback port, writing into the returned folder, until the test
 // ends.
-func startStorescp(t *testing.T) (addr, dir string) {
+func startStorescp(t testing.TB) (addr, dir string) {
 	t.Helper()
 	path := testtool.Command(t, "storescp")
 	dir = t.TempDir()

@@ -115,7 +115,7 @@ func checkReceived(t *testing.T, sent map[string][]byte, got *received, callingA
 
 // dumps runs DCMTK's dcmdump once over paths and splits its output per
 // file at the "# Dicom-File-Format" line it prints for each.
-func dumps(t *testing.T, paths []string) []string {
+func dumps(t testing.TB, paths []string) []string {
 	t.Helper()
 	if len(paths) == 0 {
 		return nil
