@@ -112,6 +112,21 @@ func (f *fakeBackend) Models(context.Context) []server.ModelEntry {
 	return []server.ModelEntry{{Name: "midsag-demo", Version: "1", SHA256: "ab12", Default: true, Labels: []string{"no_compression", "compression"}}}
 }
 
+// setScoreErr makes Score return err from now on.
+func (f *fakeBackend) setScoreErr(err error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	f.scoreErr = err
+}
+
+// calls returns copies of what was recorded; the server's goroutines
+// write it, and curl's replies give the race detector no ordering.
+func (f *fakeBackend) calls() (ingested []server.Stored, origins []server.Origin, scores []server.ScoreRequest) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return append([]server.Stored(nil), f.ingested...), append([]server.Origin(nil), f.origins...), append([]server.ScoreRequest(nil), f.scores...)
+}
+
 func (f *fakeBackend) counts() (ingested, scores int) {
 	f.mu.Lock()
 	defer f.mu.Unlock()
@@ -193,3 +208,7 @@ func relatedBody(t *testing.T, parts [][]byte, types []string) ([]byte, string) 
 	}
 	return buf.Bytes(), mw.Boundary()
 }
+
+func scoresOf(f *fakeBackend) []server.ScoreRequest { _, _, s := f.calls(); return s }
+func ingestedOf(f *fakeBackend) []server.Stored     { s, _, _ := f.calls(); return s }
+func originsOf(f *fakeBackend) []server.Origin      { _, o, _ := f.calls(); return o }

@@ -134,12 +134,12 @@ func TestCurlScoreZip(t *testing.T) {
 	if ingested != len(files) || scores != 1 {
 		t.Fatalf("ingested %d of %d files, %d score calls", ingested, len(files), scores)
 	}
-	req := fake.scores[0]
+	req := scoresOf(fake)[0]
 	if len(req.SOPInstanceUIDs) != len(files) || req.Model != "midsag-demo" || !req.Explain || req.Async {
 		t.Errorf("score request %+v", req)
 	}
-	if fake.origins[0].Listener != "rest" {
-		t.Errorf("origin %+v", fake.origins[0])
+	if originsOf(fake)[0].Listener != "rest" {
+		t.Errorf("origin %+v", originsOf(fake)[0])
 	}
 
 	// The same zip as application/octet-stream is recognised by its
@@ -171,7 +171,7 @@ func TestCurlScoreSingleAndMultipartRelated(t *testing.T) {
 	if r.code != http.StatusOK {
 		t.Fatalf("multipart/related: status %d, body %s", r.code, r.body)
 	}
-	if n := len(fake.scores[1].SOPInstanceUIDs); n != 3 {
+	if n := len(scoresOf(fake)[1].SOPInstanceUIDs); n != 3 {
 		t.Errorf("multipart/related scored %d instances, want 3", n)
 	}
 
@@ -240,7 +240,7 @@ func TestCurlScoreAsync(t *testing.T) {
 	if r.code != http.StatusOK || !strings.Contains(string(r.body), `"status":"pending"`) {
 		t.Errorf("GET Location: %d %s", r.code, r.body)
 	}
-	if !fake.scores[0].Async {
+	if !scoresOf(fake)[0].Async {
 		t.Error("Score was not asked for async")
 	}
 }
@@ -248,7 +248,7 @@ func TestCurlScoreAsync(t *testing.T) {
 func TestCurlScoreRefusals(t *testing.T) {
 	files := phantomStudy(t)
 	fake := newFake()
-	fake.scoreErr = midsag.Rejectf(midsag.ReasonOverloaded, "the scoring queue is full")
+	fake.setScoreErr(midsag.Rejectf(midsag.ReasonOverloaded, "the scoring queue is full"))
 	srv := newHTTP(t, Config{Backend: fake}, nil)
 	one := writeTemp(t, "one.dcm", files[0].Data)
 
@@ -258,7 +258,7 @@ func TestCurlScoreRefusals(t *testing.T) {
 		t.Error("429 without Retry-After (RFC 6585 4)")
 	}
 
-	fake.scoreErr = midsag.Rejectf(midsag.ReasonNoSagittalT2, "no series is sagittal T2")
+	fake.setScoreErr(midsag.Rejectf(midsag.ReasonNoSagittalT2, "no series is sagittal T2"))
 	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score")
 	wantRefusal(t, r, http.StatusUnprocessableEntity, midsag.ReasonNoSagittalT2)
 
