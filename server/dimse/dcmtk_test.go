@@ -2,10 +2,13 @@ package dimse
 
 import (
 	"bytes"
+	"io"
+	"net"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
@@ -193,5 +196,45 @@ func TestEchoscuRejected(t *testing.T) {
 	_, _, port := startSCP(t, Config{AllowedCallingAEs: []string{"PACS"}}, (&received{}).handler(StatusSuccess))
 	if out, err := dcmtk(t, "echoscu", "-aet", "PACS", "-aec", "MIDSAG", "127.0.0.1", port); err != nil {
 		t.Fatalf("echoscu from an allowed AE: %v\n%s", err, out)
+	}
+}
+
+// TestEchoscuLocalLimit: with MaxAssociations 1 and one association
+// held open, DCMTK echoscu must be rejected transiently for the local
+// limit; after the first is released, echoscu gets in.
+func TestEchoscuLocalLimit(t *testing.T) {
+	s, addr, port := startSCP(t, Config{MaxAssociations: 1}, (&received{}).handler(StatusSuccess))
+	c, err := net.Dial("tcp", addr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer c.Close()
+	if _, err := c.Write(echoRQ()); err != nil {
+		t.Fatal(err)
+	}
+	var h [1]byte
+	if _, err := io.ReadFull(c, h[:]); err != nil || h[0] != pduAssociateAC {
+		t.Fatalf("first association: % x, %v", h, err)
+	}
+	out, err := dcmtk(t, "echoscu", "-aet", "X", "-aec", "MIDSAG", "127.0.0.1", port)
+	if err == nil {
+		t.Fatalf("echoscu succeeded beyond the limit:\n%s", out)
+	}
+	// DCMTK 3.6.7 prints the PS3.8 reason text (observed).
+	if !strings.Contains(string(out), "Rejected Transient") || !strings.Contains(string(out), "Local Limit Exceeded") {
+		t.Errorf("echoscu output lacks the transient local-limit rejection:\n%s", out)
+	}
+	if st := s.Stats(); st.Active != 1 || st.Rejected != 1 {
+		t.Errorf("stats %+v", st)
+	}
+	c.Close()
+	for i := 0; s.Stats().Active != 0; i++ {
+		if i == 200 {
+			t.Fatal("first association still active 2 s after close")
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+	if out, err := dcmtk(t, "echoscu", "-aet", "X", "-aec", "MIDSAG", "127.0.0.1", port); err != nil {
+		t.Fatalf("echoscu after the slot freed: %v\n%s", err, out)
 	}
 }

@@ -1,0 +1,93 @@
+package dimse
+
+import (
+	"context"
+	"io"
+	"log/slog"
+	"net"
+	"testing"
+	"time"
+)
+
+// TestServeGracefulStop: cancelling Serve's context stops accepting but
+// lets a running C-STORE finish and answer success; a handler that
+// overruns DrainTimeout sees its context cancelled and Serve returns.
+func TestServeGracefulStop(t *testing.T) {
+	entered := make(chan struct{}, 1)
+	h := func(ctx context.Context, _ Association, _ []byte) uint16 {
+		entered <- struct{}{}
+		select {
+		case <-time.After(300 * time.Millisecond):
+			return StatusSuccess
+		case <-ctx.Done():
+			return StatusOutOfResources
+		}
+	}
+	for _, tc := range []struct {
+		name  string
+		drain time.Duration
+		done  bool
+	}{
+		{"finishes within drain", 5 * time.Second, true},
+		{"cut at drain bound", 50 * time.Millisecond, false},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			s, err := NewServer(Config{AETitle: "MIDSAG", DrainTimeout: tc.drain, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))}, h)
+			if err != nil {
+				t.Fatal(err)
+			}
+			l, err := net.Listen("tcp", "127.0.0.1:0")
+			if err != nil {
+				t.Fatal(err)
+			}
+			ctx, cancel := context.WithCancel(context.Background())
+			served := make(chan error, 1)
+			go func() { served <- s.Serve(ctx, l) }()
+			type result struct {
+				st  []uint16
+				err error
+			}
+			stored := make(chan result, 1)
+			go func() {
+				c := &Client{CallingAE: "T", CalledAE: "MIDSAG", Timeout: 5 * time.Second}
+				f := Part10(MRImageStorage, "1.2.3", ImplicitVRLittleEndian, "", []byte{8, 0, 0x18, 0, 0, 0, 0, 0})
+				st, err := c.Store(context.Background(), l.Addr().String(), [][]byte{f})
+				stored <- result{st, err}
+			}()
+			<-entered
+			cancel()
+			select {
+			case err := <-served:
+				if err != nil {
+					t.Errorf("Serve: %v", err)
+				}
+			case <-time.After(5 * time.Second):
+				t.Fatal("Serve did not return")
+			}
+			r := <-stored
+			if tc.done {
+				if r.err != nil || len(r.st) != 1 || r.st[0] != StatusSuccess {
+					t.Errorf("Store during drain: %04x, %v", r.st, r.err)
+				}
+			} else if r.err == nil {
+				t.Errorf("Store cut at the drain bound succeeded: %04x", r.st)
+			}
+			if _, err := net.DialTimeout("tcp", l.Addr().String(), time.Second); err == nil {
+				t.Error("listener still accepts after Serve returned")
+			}
+		})
+	}
+}
+
+// TestNewServerConfig: invalid configurations are refused up front.
+func TestNewServerConfig(t *testing.T) {
+	ok := func(context.Context, Association, []byte) uint16 { return StatusSuccess }
+	for _, cfg := range []Config{{}, {AETitle: "SEVENTEEN_CHARS_X"}, {AETitle: "A", MaxPDULength: 100}} {
+		if _, err := NewServer(cfg, ok); err == nil {
+			t.Errorf("NewServer(%+v) accepted", cfg)
+		}
+	}
+	if _, err := NewServer(Config{AETitle: "A"}, nil); err == nil {
+		t.Error("NewServer accepted a nil handler")
+	}
+}
