@@ -1,0 +1,406 @@
+package server
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"sync"
+	"time"
+
+	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/models"
+	"github.com/midsag/midsag/preprocess"
+	"github.com/midsag/midsag/server/store"
+)
+
+// Config configures a Core.
+type Config struct {
+	Store    *store.Store
+	Registry *models.Registry
+	Pre      *preprocess.Preprocessor
+	// Settle is how long a study must receive nothing before it is scored.
+	Settle time.Duration
+	// Workers is the number of studies scored at once (default 1: each
+	// model run already uses every core).
+	Workers int
+	// QueueSize bounds the jobs waiting for a worker (default 64); beyond
+	// it direct requests are refused as overloaded.
+	QueueSize int
+	// MaxInstancesPerRequest bounds one direct request (default 5000).
+	MaxInstancesPerRequest int
+	Logger                 *slog.Logger
+	Metrics                *Metrics
+}
+
+// Core implements Backend: it stores what listeners receive, schedules
+// scoring and runs every job through midsag.Pipeline.
+type Core struct {
+	cfg   Config
+	log   *slog.Logger
+	slots chan struct{}
+	queue chan string
+
+	mu      sync.Mutex
+	waiters map[string][]chan struct{}
+	queued  map[string]bool
+}
+
+var _ Backend = (*Core)(nil)
+
+// New returns a Core; call Run to start its workers and scheduler.
+func New(cfg Config) *Core {
+	if cfg.Workers <= 0 {
+		cfg.Workers = 1
+	}
+	if cfg.QueueSize <= 0 {
+		cfg.QueueSize = 64
+	}
+	if cfg.MaxInstancesPerRequest <= 0 {
+		cfg.MaxInstancesPerRequest = 5000
+	}
+	if cfg.Logger == nil {
+		cfg.Logger = slog.New(slog.DiscardHandler)
+	}
+	return &Core{
+		cfg:     cfg,
+		log:     cfg.Logger,
+		slots:   make(chan struct{}, cfg.QueueSize),
+		queue:   make(chan string, cfg.QueueSize),
+		waiters: map[string][]chan struct{}{},
+		queued:  map[string]bool{},
+	}
+}
+
+// QueueDepth returns the number of jobs waiting or running.
+func (c *Core) QueueDepth() int { return len(c.slots) }
+
+// Ingest parses the instance's header and stores it durably.
+func (c *Core) Ingest(ctx context.Context, origin Origin, data []byte) (Stored, error) {
+	inst, err := c.cfg.Pre.Read(origin.Listener, bytes.NewReader(data))
+	if err != nil {
+		return Stored{}, err
+	}
+	if inst.StudyInstanceUID == "" || inst.SeriesInstanceUID == "" {
+		return Stored{}, midsag.Rejectf(midsag.ReasonNotDICOM, "instance has no Study or Series Instance UID")
+	}
+	rec, dup, err := c.cfg.Store.Put(ctx, store.Instance{
+		StudyInstanceUID:  inst.StudyInstanceUID,
+		SeriesInstanceUID: inst.SeriesInstanceUID,
+		SOPInstanceUID:    inst.SOPInstanceUID,
+		SOPClassUID:       inst.SOPClassUID,
+		TransferSyntaxUID: inst.TransferSyntaxUID,
+		Origin:            origin.Listener,
+		CallingAE:         origin.CallingAE,
+		Remote:            origin.Remote,
+	}, data)
+	if errors.Is(err, store.ErrStudyFull) {
+		return Stored{}, midsag.Reject(midsag.ReasonTooLarge, "the study has reached the instance limit", err)
+	}
+	if err != nil {
+		return Stored{}, fmt.Errorf("store instance: %w", err)
+	}
+	c.cfg.Metrics.instanceStored(origin.Listener)
+	return Stored{
+		StudyInstanceUID:  rec.StudyInstanceUID,
+		SeriesInstanceUID: rec.SeriesInstanceUID,
+		SOPInstanceUID:    rec.SOPInstanceUID,
+		SOPClassUID:       rec.SOPClassUID,
+		Duplicate:         dup,
+	}, nil
+}
+
+// Score creates a job for the request's instances and, unless Async,
+// waits for its result.
+func (c *Core) Score(ctx context.Context, req ScoreRequest) (Record, error) {
+	if len(req.SOPInstanceUIDs) == 0 {
+		return Record{}, midsag.Rejectf(midsag.ReasonNoInput, "the request holds no DICOM instances")
+	}
+	if len(req.SOPInstanceUIDs) > c.cfg.MaxInstancesPerRequest {
+		return Record{}, midsag.Rejectf(midsag.ReasonTooLarge, "%d instances in one request, above the limit of %d",
+			len(req.SOPInstanceUIDs), c.cfg.MaxInstancesPerRequest)
+	}
+	m, release, err := c.cfg.Registry.Acquire(req.Model, req.ModelVersion)
+	if err != nil {
+		return Record{}, err
+	}
+	info := m.Info()
+	release()
+	insts, err := c.cfg.Store.InstancesBySOP(ctx, req.SOPInstanceUIDs)
+	if err != nil {
+		return Record{}, fmt.Errorf("look up instances: %w", err)
+	}
+	if len(insts) == 0 {
+		return Record{}, midsag.Rejectf(midsag.ReasonNoInput, "none of the request's instances is stored")
+	}
+	var covered int64
+	studies := map[string]bool{}
+	for _, in := range insts {
+		covered = max(covered, in.Seq)
+		studies[in.StudyInstanceUID] = true
+	}
+	if len(studies) > 1 {
+		return Record{}, midsag.Rejectf(midsag.ReasonMultipleStudies, "the request holds %d studies; send one study at a time", len(studies))
+	}
+	// A request holding every stored instance of its study is a
+	// whole-study job, so the settle scheduler does not score it again.
+	scope := req.SOPInstanceUIDs
+	all, err := c.cfg.Store.Instances(ctx, insts[0].StudyInstanceUID, covered)
+	if err != nil {
+		return Record{}, fmt.Errorf("look up study: %w", err)
+	}
+	if len(all) == len(insts) {
+		scope = nil
+	}
+	select {
+	case c.slots <- struct{}{}:
+	default:
+		return Record{}, midsag.Rejectf(midsag.ReasonOverloaded, "%d jobs are already queued; retry later", cap(c.slots))
+	}
+	rec, err := c.cfg.Store.CreateRecord(ctx, Record{
+		StudyInstanceUID: insts[0].StudyInstanceUID,
+		Status:           StatusPending,
+		ModelName:        req.Model,
+		ModelVersion:     req.ModelVersion,
+		Explain:          req.Explain,
+		SOPInstanceUIDs:  scope,
+		CoveredSeq:       covered,
+	})
+	if err != nil {
+		<-c.slots
+		return Record{}, fmt.Errorf("create record: %w", err)
+	}
+	if rec.ModelName == "" {
+		rec.ModelName, rec.ModelVersion = info.Name, info.Version
+	}
+	done := c.watch(rec.ID)
+	c.enqueue(rec.ID)
+	if req.Async {
+		return rec, nil
+	}
+	select {
+	case <-done:
+	case <-ctx.Done():
+		return rec, ctx.Err()
+	}
+	return c.cfg.Store.Record(context.WithoutCancel(ctx), rec.ID)
+}
+
+// Result returns one record.
+func (c *Core) Result(ctx context.Context, id string) (Record, error) {
+	return c.cfg.Store.Record(ctx, id)
+}
+
+// Results lists records.
+func (c *Core) Results(ctx context.Context, q Query) ([]Record, string, error) {
+	return c.cfg.Store.ListRecords(ctx, q)
+}
+
+// Models lists the registry's models.
+func (c *Core) Models(ctx context.Context) []ModelEntry {
+	var out []ModelEntry
+	for _, e := range c.cfg.Registry.List() {
+		me := ModelEntry{Name: e.Info.Name, Version: e.Info.Version, SHA256: e.Info.SHA256, Default: e.Default, Source: "bundled"}
+		if e.Path != "" {
+			me.Source = e.Path
+		}
+		if e.Manifest != nil {
+			me.Labels, me.IntendedUse = e.Manifest.Labels, e.Manifest.IntendedUse
+		}
+		out = append(out, me)
+	}
+	return out
+}
+
+// watch registers interest in a job's completion.
+func (c *Core) watch(id string) <-chan struct{} {
+	ch := make(chan struct{})
+	c.mu.Lock()
+	c.waiters[id] = append(c.waiters[id], ch)
+	c.mu.Unlock()
+	return ch
+}
+
+// enqueue hands a job whose slot is already reserved to the workers.
+func (c *Core) enqueue(id string) {
+	c.mu.Lock()
+	c.queued[id] = true
+	c.mu.Unlock()
+	c.queue <- id
+}
+
+func (c *Core) finish(id string) {
+	c.mu.Lock()
+	ws := c.waiters[id]
+	delete(c.waiters, id)
+	delete(c.queued, id)
+	c.mu.Unlock()
+	for _, ch := range ws {
+		close(ch)
+	}
+	<-c.slots
+}
+
+// Run re-queues jobs left unfinished by a previous run, then runs the
+// workers and the settle scheduler until ctx is cancelled. In-flight jobs
+// are given grace to finish; what does not finish stays in the store and
+// is picked up by the next Run.
+func (c *Core) Run(ctx context.Context, grace time.Duration) error {
+	unfinished, err := c.cfg.Store.Unfinished(ctx)
+	if err != nil {
+		return fmt.Errorf("find unfinished jobs: %w", err)
+	}
+	workCtx, cancelWork := context.WithCancel(context.WithoutCancel(ctx))
+	defer cancelWork()
+	var wg sync.WaitGroup
+	for i := 0; i < c.cfg.Workers; i++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				select {
+				case <-ctx.Done():
+					return
+				case id := <-c.queue:
+					c.runJob(workCtx, id)
+				}
+			}
+		}()
+	}
+	// Re-queue interrupted jobs in the background: they may outnumber the
+	// queue, and the workers are already draining it.
+	go func() {
+		for _, r := range unfinished {
+			select {
+			case c.slots <- struct{}{}:
+				c.log.Info("resuming job", "result_id", r.ID, "study_instance_uid", r.StudyInstanceUID)
+				c.enqueue(r.ID)
+			case <-ctx.Done():
+				return
+			}
+		}
+	}()
+	c.schedule(ctx)
+	done := make(chan struct{})
+	go func() { wg.Wait(); close(done) }()
+	select {
+	case <-done:
+	case <-time.After(grace):
+		cancelWork()
+		<-done
+	}
+	return nil
+}
+
+// schedule creates whole-study jobs for studies that have been quiet for
+// the settle time, until ctx is cancelled.
+func (c *Core) schedule(ctx context.Context) {
+	tick := min(max(c.cfg.Settle/4, 50*time.Millisecond), time.Second)
+	t := time.NewTicker(tick)
+	defer t.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+		due, err := c.cfg.Store.DueStudies(ctx, time.Now().Add(-c.cfg.Settle))
+		if err != nil {
+			if ctx.Err() == nil {
+				c.log.Error("find due studies", "err", err)
+			}
+			continue
+		}
+	studies:
+		for _, st := range due {
+			select {
+			case c.slots <- struct{}{}:
+			default:
+				// Queue full: the study stays due and is taken next tick.
+				break studies
+			}
+			rec, err := c.cfg.Store.CreateRecord(ctx, Record{StudyInstanceUID: st.StudyInstanceUID, Status: StatusPending, CoveredSeq: st.LastSeq})
+			if err != nil {
+				<-c.slots
+				c.log.Error("create job", "study_instance_uid", st.StudyInstanceUID, "err", err)
+				continue
+			}
+			c.log.Info("study settled; scoring", "study_instance_uid", st.StudyInstanceUID, "result_id", rec.ID, "version", rec.Version)
+			c.enqueue(rec.ID)
+		}
+	}
+}
+
+// runJob scores one record's instances through the Pipeline and stores
+// the outcome.
+func (c *Core) runJob(ctx context.Context, id string) {
+	defer c.finish(id)
+	rec, err := c.cfg.Store.Record(ctx, id)
+	if err != nil {
+		c.log.Error("load job", "result_id", id, "err", err)
+		return
+	}
+	rec.Status = StatusRunning
+	if err := c.cfg.Store.UpdateRecord(ctx, rec); err != nil {
+		c.log.Error("mark job running", "result_id", id, "err", err)
+		return
+	}
+	start := time.Now()
+	res, err := c.score(ctx, rec)
+	rec.FinishedAt = time.Now().UTC()
+	switch e := midsag.RefusalOf(err); {
+	case err == nil:
+		rec.Status = StatusDone
+		rec.ModelName, rec.ModelVersion = res.Model.Name, res.Model.Version
+		rec.ResultJSON, err = json.Marshal(res)
+		if err != nil {
+			rec.Status, rec.Message = StatusFailed, "encode result: "+err.Error()
+		}
+		c.cfg.Metrics.observeResult(res)
+	case e != nil:
+		rec.Status, rec.Reason, rec.Message = StatusRejected, string(e.Reason), err.Error()
+	default:
+		if ctx.Err() != nil {
+			// Shutting down: leave the job for the next run.
+			c.log.Warn("job interrupted by shutdown", "result_id", id)
+			return
+		}
+		rec.Status, rec.Message = StatusFailed, err.Error()
+	}
+	if err := c.cfg.Store.UpdateRecord(context.WithoutCancel(ctx), rec); err != nil {
+		c.log.Error("save result", "result_id", id, "err", err)
+		return
+	}
+	c.cfg.Metrics.jobDone(rec.Status, time.Since(start))
+	c.log.Info("job finished", "result_id", id, "study_instance_uid", rec.StudyInstanceUID, "version", rec.Version,
+		"status", rec.Status, "reason", rec.Reason, "ms", time.Since(start).Milliseconds())
+}
+
+func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
+	var insts []store.Instance
+	var err error
+	if len(rec.SOPInstanceUIDs) > 0 {
+		insts, err = c.cfg.Store.InstancesBySOP(ctx, rec.SOPInstanceUIDs)
+	} else {
+		insts, err = c.cfg.Store.Instances(ctx, rec.StudyInstanceUID, rec.CoveredSeq)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("list instances: %w", err)
+	}
+	sources := make([]midsag.Source, len(insts))
+	for i, in := range insts {
+		in := in
+		sources[i] = midsag.Source{Name: in.SOPInstanceUID, Open: func() (io.ReadCloser, error) { return c.cfg.Store.Open(in) }}
+	}
+	name, version := rec.ModelName, rec.ModelVersion
+	m, release, err := c.cfg.Registry.Acquire(name, version)
+	if err != nil {
+		return nil, err
+	}
+	defer release()
+	p := &midsag.Pipeline{Pre: c.cfg.Pre, Model: m, NewID: func() string { return rec.ID }}
+	return p.Run(ctx, sources)
+}
