@@ -58,3 +58,9 @@ func rejectionCode(err error) int {
 	}
 	return 0
 }
+
+// isRefusal reports whether err is an input refusal with a reason code.
+func isRefusal(err error) bool {
+	_, ok := midsag.ReasonOf(err)
+	return ok
+}

@@ -1,0 +1,309 @@
+package main
+
+import (
+	"context"
+	"crypto/tls"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"os"
+	"os/signal"
+	"strings"
+	"sync"
+	"syscall"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/credentials"
+
+	"github.com/midsag/midsag/models"
+	"github.com/midsag/midsag/preprocess"
+	"github.com/midsag/midsag/server"
+	"github.com/midsag/midsag/server/dimse"
+	"github.com/midsag/midsag/server/grpcapi"
+	"github.com/midsag/midsag/server/store"
+)
+
+func init() {
+	register("serve", "run the service: REST, STOW-RS, gRPC and DICOM listeners over a durable store", runServe)
+}
+
+// serveFlags are the flags of midsag serve.
+type serveFlags struct {
+	modelFlags
+	modelsDir    string
+	httpAddr     string
+	grpcAddr     string
+	dicomAddr    string
+	aeTitle      string
+	allowAE      string
+	dataDir      string
+	settle       time.Duration
+	workers      int
+	queue        int
+	maxBody      int64
+	maxInstances int
+	maxAssoc     int
+	idle         time.Duration
+	tokenFile    string
+	tlsCert      string
+	tlsKey       string
+	grace        time.Duration
+}
+
+func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("serve", "", "Runs midsag as a service. Every instance received is stored durably under\n"+
+		"--data-dir before it is acknowledged; a study is scored once nothing has arrived for\n"+
+		"--settle, or at once when posted to /v1/studies:score or the gRPC ScoreStudy call.", stderr)
+	var f serveFlags
+	f.modelFlags.register(fs)
+	fs.StringVar(&f.modelsDir, "models-dir", "", "`folder` of extra models (NAME.onnx with manifest), reloaded on change and on SIGHUP")
+	fs.StringVar(&f.httpAddr, "http-addr", ":8080", "REST, STOW-RS, health and metrics `address` (empty disables)")
+	fs.StringVar(&f.grpcAddr, "grpc-addr", ":9090", "gRPC `address` (empty disables)")
+	fs.StringVar(&f.dicomAddr, "dicom-addr", ":11112", "DICOM listener `address` (empty disables)")
+	fs.StringVar(&f.aeTitle, "ae-title", "MIDSAG", "our DICOM AE title")
+	fs.StringVar(&f.allowAE, "allow-ae", "", "comma-separated calling AE titles allowed to associate (empty allows any)")
+	fs.StringVar(&f.dataDir, "data-dir", "./midsag-data", "`folder` of the spool and the results database")
+	fs.DurationVar(&f.settle, "settle", 30*time.Second, "score a study once nothing has arrived for this long")
+	fs.IntVar(&f.workers, "workers", 1, "studies scored at once")
+	fs.IntVar(&f.queue, "queue", 64, "scoring jobs allowed to wait; beyond it requests get 429 / RESOURCE_EXHAUSTED")
+	fs.Int64Var(&f.maxBody, "max-body", 1<<30, "largest request body in `bytes`")
+	fs.IntVar(&f.maxInstances, "max-instances", 5000, "most instances in one study or request")
+	fs.IntVar(&f.maxAssoc, "max-associations", 16, "most DICOM associations at once")
+	fs.DurationVar(&f.idle, "idle-timeout", 60*time.Second, "close a DICOM association idle for this long")
+	fs.StringVar(&f.tokenFile, "token-file", "", "`file` of bearer tokens, one per line; when set, REST and gRPC require one")
+	fs.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate `file` for HTTP and gRPC (with --tls-key)")
+	fs.StringVar(&f.tlsKey, "tls-key", "", "TLS key `file`")
+	fs.DurationVar(&f.grace, "shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish; unfinished ones resume at the next start")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() != 0 {
+		return usagef("serve takes no arguments")
+	}
+	if (f.tlsCert == "") != (f.tlsKey == "") {
+		return usagef("--tls-cert and --tls-key go together")
+	}
+	log := slog.New(slog.NewJSONHandler(stderr, nil))
+	return serve(ctx, &f, log)
+}
+
+func readTokens(path string) ([]string, error) {
+	if path == "" {
+		return nil, nil
+	}
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("token file: %w", err)
+	}
+	var out []string
+	for _, line := range strings.Split(string(b), "\n") {
+		if t := strings.TrimSpace(line); t != "" && !strings.HasPrefix(t, "#") {
+			out = append(out, t)
+		}
+	}
+	if len(out) == 0 {
+		return nil, fmt.Errorf("token file %s holds no token", path)
+	}
+	return out, nil
+}
+
+func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
+	tokens, err := readTokens(f.tokenFile)
+	if err != nil {
+		return err
+	}
+	def, err := f.load()
+	if err != nil {
+		return err
+	}
+	reg, err := models.NewRegistry(def, f.modelsDir, models.Options{IntraOpThreads: f.threads}, log)
+	if err != nil {
+		def.Close()
+		return err
+	}
+	defer reg.Close()
+	st, err := store.Open(f.dataDir, store.Options{MaxInstancesPerStudy: f.maxInstances})
+	if err != nil {
+		return fmt.Errorf("open store: %w", err)
+	}
+	defer st.Close()
+
+	var dsrv *dimse.Server
+	assocs := func() float64 {
+		if dsrv == nil {
+			return 0
+		}
+		return float64(dsrv.Stats().Active)
+	}
+	var core *server.Core
+	metrics := server.NewMetrics(func() float64 { return float64(core.QueueDepth()) }, assocs)
+	core = server.New(server.Config{Store: st, Registry: reg, Pre: preprocess.New(preprocess.Options{}),
+		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances,
+		Logger: log, Metrics: metrics})
+
+	runCtx, stop := context.WithCancel(ctx)
+	defer stop()
+	var wg sync.WaitGroup
+	errs := make(chan error, 4)
+	start := func(name string, fn func() error) {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			if err := fn(); err != nil && !errors.Is(err, http.ErrServerClosed) && !errors.Is(err, grpc.ErrServerStopped) {
+				errs <- fmt.Errorf("%s: %w", name, err)
+			}
+		}()
+	}
+
+	var tlsCfg *tls.Config
+	if f.tlsCert != "" {
+		cert, err := tls.LoadX509KeyPair(f.tlsCert, f.tlsKey)
+		if err != nil {
+			return fmt.Errorf("load TLS certificate: %w", err)
+		}
+		tlsCfg = &tls.Config{Certificates: []tls.Certificate{cert}, MinVersion: tls.VersionTLS12}
+	}
+	apiCfg := grpcapi.Config{Backend: core, MaxBodyBytes: f.maxBody, Tokens: tokens, Logger: log, Observe: metrics.ObserveRequest}
+
+	if f.grpcAddr != "" {
+		var opts []grpc.ServerOption
+		if tlsCfg != nil {
+			opts = append(opts, grpc.Creds(credentials.NewTLS(tlsCfg)))
+		}
+		gs, err := grpcapi.NewGRPCServer(apiCfg, opts...)
+		if err != nil {
+			return err
+		}
+		l, err := net.Listen("tcp", f.grpcAddr)
+		if err != nil {
+			return fmt.Errorf("gRPC listener: %w", err)
+		}
+		log.Info("gRPC listening", "addr", l.Addr().String())
+		start("gRPC", func() error { return gs.Serve(l) })
+		defer gs.GracefulStop()
+	}
+	if f.httpAddr != "" {
+		extra := map[string]http.Handler{
+			"/healthz": http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { io.WriteString(w, "ok\n") }),
+			"/readyz":  readyHandler(reg, st),
+			"/metrics": promhttp.HandlerFor(metrics.Registry, promhttp.HandlerOpts{}),
+		}
+		h, err := grpcapi.NewHTTPHandler(runCtx, apiCfg, extra)
+		if err != nil {
+			return err
+		}
+		hs := &http.Server{Addr: f.httpAddr, Handler: h, TLSConfig: tlsCfg, ReadHeaderTimeout: 30 * time.Second}
+		l, err := net.Listen("tcp", f.httpAddr)
+		if err != nil {
+			return fmt.Errorf("HTTP listener: %w", err)
+		}
+		log.Info("HTTP listening", "addr", l.Addr().String(), "tls", tlsCfg != nil)
+		start("HTTP", func() error {
+			if tlsCfg != nil {
+				return hs.ServeTLS(l, "", "")
+			}
+			return hs.Serve(l)
+		})
+		defer func() {
+			sctx, cancel := context.WithTimeout(context.Background(), f.grace)
+			defer cancel()
+			hs.Shutdown(sctx)
+		}()
+	}
+	if f.dicomAddr != "" {
+		var allow []string
+		for _, a := range strings.Split(f.allowAE, ",") {
+			if a = strings.TrimSpace(a); a != "" {
+				allow = append(allow, a)
+			}
+		}
+		dsrv, err = dimse.NewServer(dimse.Config{AETitle: f.aeTitle, AllowedCallingAEs: allow, MaxAssociations: f.maxAssoc,
+			IdleTimeout: f.idle, MaxDatasetBytes: f.maxBody, Logger: log}, storeHandler(core))
+		if err != nil {
+			return err
+		}
+		l, err := net.Listen("tcp", f.dicomAddr)
+		if err != nil {
+			return fmt.Errorf("DICOM listener: %w", err)
+		}
+		log.Info("DICOM listening", "addr", l.Addr().String(), "ae_title", f.aeTitle)
+		start("DICOM", func() error { return dsrv.Serve(runCtx, l) })
+	}
+
+	hup := make(chan os.Signal, 1)
+	signal.Notify(hup, syscall.SIGHUP)
+	defer signal.Stop(hup)
+	watchStop := make(chan struct{})
+	defer close(watchStop)
+	go reg.Watch(watchStop, 2*time.Second)
+	go func() {
+		for {
+			select {
+			case <-hup:
+				log.Info("SIGHUP: reloading models")
+				reg.Reload()
+			case <-watchStop:
+				return
+			}
+		}
+	}()
+
+	coreDone := make(chan error, 1)
+	go func() { coreDone <- core.Run(runCtx, f.grace) }()
+	log.Info("midsag serving", "data_dir", f.dataDir, "settle", f.settle.String())
+	select {
+	case <-ctx.Done():
+		log.Info("shutting down")
+	case err = <-errs:
+		log.Error("listener failed; shutting down", "err", err)
+	}
+	stop()
+	cerr := <-coreDone
+	wg.Wait()
+	if err != nil {
+		return err
+	}
+	return cerr
+}
+
+// storeHandler answers a C-STORE with success only once the instance is
+// durable; a refusal maps to "cannot understand" (PS3.4 B.2.3, from memory)
+// and a storage failure to "out of resources".
+func storeHandler(core *server.Core) dimse.StoreHandler {
+	return func(ctx context.Context, a dimse.Association, part10 []byte) uint16 {
+		_, err := core.Ingest(ctx, server.Origin{Listener: "dicom", CallingAE: a.CallingAE, Remote: a.Remote}, part10)
+		switch {
+		case err == nil:
+			return 0x0000
+		case isRefusal(err):
+			return 0xC000
+		default:
+			return 0xA700
+		}
+	}
+}
+
+// readyHandler reports ready when the default model is loaded and the
+// store is writable.
+func readyHandler(reg *models.Registry, st *store.Store) http.Handler {
+	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		if _, release, err := reg.Acquire("", ""); err != nil {
+			http.Error(w, "model not loaded: "+err.Error(), http.StatusServiceUnavailable)
+			return
+		} else {
+			release()
+		}
+		ctx, cancel := context.WithTimeout(r.Context(), 5*time.Second)
+		defer cancel()
+		if err := st.Ping(ctx); err != nil {
+			http.Error(w, "store not writable: "+err.Error(), http.StatusServiceUnavailable)
+			return
+		}
+		io.WriteString(w, "ready\n")
+	})
+}
