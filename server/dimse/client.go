@@ -32,7 +32,6 @@ type Client struct {
 
 // scu is one association opened by a Client.
 type scu struct {
-	c        *Client
 	u        *ulConn
 	r        *msgReader
 	peerMax  uint32
@@ -188,7 +187,7 @@ func (c *Client) open(ctx context.Context, addr string, pcs []presContext) (*scu
 		u.writeAbort(abortSourceUser, abortInvalidParam)
 		return nil, fmt.Errorf("parse A-ASSOCIATE-AC: %w", err)
 	}
-	a := &scu{c: c, u: u, peerMax: ac.maxLength, accepted: map[byte]presContext{}, timeout: timeout, stop: stop}
+	a := &scu{u: u, peerMax: ac.maxLength, accepted: map[byte]presContext{}, timeout: timeout, stop: stop}
 	proposed := map[byte]presContext{}
 	for _, pc := range pcs {
 		proposed[pc.id] = pc

@@ -5,7 +5,7 @@ import (
 	"fmt"
 )
 
-// Command Field values (PS3.7 E.1, Table E.1-1 and the service chapters).
+// Command Field values (PS3.7 Annex E and the service chapters).
 const (
 	cmdCStoreRQ  = 0x0001
 	cmdCStoreRSP = 0x8001
@@ -14,7 +14,7 @@ const (
 	cmdCCancelRQ = 0x0FFF
 )
 
-// requestsWithResponse are the DIMSE requests of PS3.7 Table E.1-1 that
+// requestsWithResponse are the DIMSE requests of PS3.7 Annex E that
 // have a response; we answer those we do not serve with 0x0211.
 var requestsWithResponse = map[uint16]bool{
 	0x0010: true, // C-GET-RQ
@@ -28,16 +28,16 @@ var requestsWithResponse = map[uint16]bool{
 	0x0150: true, // N-DELETE-RQ
 }
 
-// DIMSE status codes used here (PS3.7 Annex C and C.4.2, Table 9.3-2 of
-// PS3.4 B.2.3 for storage).
+// DIMSE status codes used here (PS3.7 Annex C; storage statuses in
+// PS3.4 B.2.3).
 const (
 	// StatusSuccess is 0000H, Success.
 	StatusSuccess uint16 = 0x0000
 	// StatusSOPClassNotSupported is 0122H, Refused: SOP Class not
-	// supported (PS3.7 C.5.18); the Client also reports it for files whose
+	// supported (PS3.7 Annex C); the Client also reports it for files whose
 	// presentation context the peer did not accept.
 	StatusSOPClassNotSupported uint16 = 0x0122
-	// StatusUnrecognizedOperation is 0211H (PS3.7 C.5.24).
+	// StatusUnrecognizedOperation is 0211H (PS3.7 Annex C).
 	StatusUnrecognizedOperation uint16 = 0x0211
 	// StatusOutOfResources is A700H, Refused: Out of Resources (PS3.4
 	// B.2.3).

@@ -15,6 +15,11 @@
 //	c := dimse.Client{CallingAE: "MIDSAG", CalledAE: "PACS"}
 //	statuses, err := c.Store(ctx, "pacs:104", files)
 //
+// Sections of PS3.4, PS3.5, PS3.7, PS3.8 and PS3.10 cited beside the
+// code, and the field layouts and codes they name, were written from
+// memory without the standard at hand; the tests check them against
+// DCMTK's echoscu, storescu, storescp and dcmdump.
+//
 // Only what the wire carries is handled here: datasets are not parsed
 // beyond the File Meta Information, and no transfer syntax is converted.
 package dimse

@@ -11,7 +11,7 @@ import (
 	"time"
 )
 
-// PDU types (PS3.8 9.3.1, Table 9-11).
+// PDU types (PS3.8 9.3.1).
 const (
 	pduAssociateRQ = 0x01
 	pduAssociateAC = 0x02
@@ -33,20 +33,17 @@ const (
 	itemMaxLength     = 0x51
 	itemImplClass     = 0x52
 	itemAsyncWindow   = 0x53
-	itemRoleSelection = 0x54
 	itemImplVersion   = 0x55
 )
 
-// Presentation context results (PS3.8 9.3.3.2, Table 9-18).
+// Presentation context results (PS3.8 9.3.3.2).
 const (
 	pcAccepted             = 0
-	pcUserRejection        = 1
-	pcNoReason             = 2
 	pcAbstractNotSupported = 3
 	pcTransferNotSupported = 4
 )
 
-// A-ASSOCIATE-RJ fields (PS3.8 9.3.4, Table 9-21).
+// A-ASSOCIATE-RJ fields (PS3.8 9.3.4).
 const (
 	rjPermanent = 1
 	rjTransient = 2
@@ -54,7 +51,6 @@ const (
 	rjSourceUser     = 1 // DICOM UL service-user
 	rjSourceACSE     = 2 // DICOM UL service-provider (ACSE related function)
 	rjSourcePresent  = 3 // DICOM UL service-provider (Presentation related function)
-	rjNoReason       = 1 // source 1
 	rjAppContext     = 2 // source 1: application-context-name-not-supported
 	rjCallingAE      = 3 // source 1: calling-AE-title-not-recognized
 	rjCalledAE       = 7 // source 1: called-AE-title-not-recognized
@@ -63,7 +59,7 @@ const (
 	rjTempCongestion = 1 // source 3: temporary-congestion
 )
 
-// A-ABORT fields (PS3.8 9.3.8, Table 9-26).
+// A-ABORT fields (PS3.8 9.3.8).
 const (
 	abortSourceUser     = 0 // DICOM UL service-user (initiated abort)
 	abortSourceProvider = 2 // DICOM UL service-provider (initiated abort)
@@ -135,7 +131,8 @@ type ulConn struct {
 	c   net.Conn
 	r   *bufio.Reader
 	buf []byte
-	// hdr and pdv avoid an allocation per written PDU.
+	// hdr holds a P-DATA-TF header and PDV header so writePDV does not
+	// allocate.
 	hdr [pduHeaderLen + 6]byte
 }
 
@@ -269,7 +266,7 @@ func padAE(s string) []byte {
 // parseAssoc parses the variable field of A-ASSOCIATE-RQ (rq) or AC.
 func parseAssoc(b []byte, rq bool) (*assocPDU, error) {
 	// Fixed part: protocol version 2, reserved 2, called AE 16, calling
-	// AE 16, reserved 32 (PS3.8 Table 9-11 and 9-17).
+	// AE 16, reserved 32 (PS3.8 9.3.2, 9.3.3).
 	if len(b) < 68 {
 		return nil, protoErr(abortInvalidParam, "A-ASSOCIATE length %d below the fixed 68 bytes", len(b))
 	}

@@ -449,7 +449,8 @@ func (a *assoc) run(ctx context.Context) {
 func (a *assoc) sink(pcID byte, cmd *command) ([]byte, int64) {
 	pc, ok := a.contexts[pcID]
 	if !ok || cmd.field != cmdCStoreRQ {
-		return nil, a.s.cfg.MaxDatasetBytes
+		// Datasets of requests we refuse anyway are read and dropped.
+		return nil, 0
 	}
 	return metaHeader(cmd.sopClass, cmd.sopInstance, pc.syntaxes[0], a.info.CallingAE, 64<<10), a.s.cfg.MaxDatasetBytes
 }
