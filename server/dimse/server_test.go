@@ -91,3 +91,37 @@ func TestNewServerConfig(t *testing.T) {
 		t.Error("NewServer accepted a nil handler")
 	}
 }
+
+// TestUnrecognizedOperation: a C-FIND-RQ (0x0020, PS3.7 Annex E, from
+// memory) is answered with its response command 0x8020 and status 0211H
+// (unrecognized operation), and the association goes on to C-ECHO.
+func TestUnrecognizedOperation(t *testing.T) {
+	_, addr, _ := startSCP(t, Config{}, (&received{}).handler(StatusSuccess))
+	conn, err := net.Dial("tcp", addr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	if _, err := conn.Write(echoRQ()); err != nil {
+		t.Fatal(err)
+	}
+	u := newULConn(conn)
+	deadline := time.Now().Add(5 * time.Second)
+	if typ, _, err := u.readPDU(deadline, minAssocPDU, minAssocPDU); err != nil || typ != pduAssociateAC {
+		t.Fatalf("A-ASSOCIATE-AC: type %d, %v", typ, err)
+	}
+	r := &msgReader{u: u, maxPData: minAssocPDU, idle: 5 * time.Second, sink: func(byte, *command) ([]byte, int64) { return nil, 0 }}
+	for _, tc := range []struct{ rq, rsp, status uint16 }{{0x0020, 0x8020, 0x0211}, {cmdCEchoRQ, cmdCEchoRSP, 0}} {
+		cmd := &command{field: tc.rq, sopClass: verificationSOPClass, messageID: 7, dataSetType: noDataSet}
+		if err := u.writeMessage(time.Second, 16384, 1, cmd, nil); err != nil {
+			t.Fatal(err)
+		}
+		m, typ, _, err := r.next()
+		if err != nil || m == nil {
+			t.Fatalf("response to 0x%04x: PDU %d, %v", tc.rq, typ, err)
+		}
+		if m.cmd.field != tc.rsp || m.cmd.status != tc.status || m.cmd.respondingTo != 7 {
+			t.Errorf("response to 0x%04x: field 0x%04x status 0x%04x to %d", tc.rq, m.cmd.field, m.cmd.status, m.cmd.respondingTo)
+		}
+	}
+}
