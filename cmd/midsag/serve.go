@@ -148,6 +148,8 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 
 	runCtx, stop := context.WithCancel(ctx)
 	defer stop()
+	// shutdowns stop the listeners; they run before waiting for them.
+	var shutdowns []func()
 	var wg sync.WaitGroup
 	errs := make(chan error, 4)
 	start := func(name string, fn func() error) {
@@ -185,7 +187,15 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 		}
 		log.Info("gRPC listening", "addr", l.Addr().String())
 		start("gRPC", func() error { return gs.Serve(l) })
-		defer gs.GracefulStop()
+		shutdowns = append(shutdowns, func() {
+			stopped := make(chan struct{})
+			go func() { gs.GracefulStop(); close(stopped) }()
+			select {
+			case <-stopped:
+			case <-time.After(f.grace):
+				gs.Stop()
+			}
+		})
 	}
 	if f.httpAddr != "" {
 		extra := map[string]http.Handler{
@@ -209,11 +219,13 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 			}
 			return hs.Serve(l)
 		})
-		defer func() {
+		shutdowns = append(shutdowns, func() {
 			sctx, cancel := context.WithTimeout(context.Background(), f.grace)
 			defer cancel()
-			hs.Shutdown(sctx)
-		}()
+			if err := hs.Shutdown(sctx); err != nil {
+				hs.Close()
+			}
+		})
 	}
 	if f.dicomAddr != "" {
 		var allow []string
@@ -262,9 +274,15 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 	case err = <-errs:
 		log.Error("listener failed; shutting down", "err", err)
 	}
+	// Listeners first, so nothing new arrives; then the core, whose
+	// running jobs get the grace period.
+	for _, shutdown := range shutdowns {
+		shutdown()
+	}
 	stop()
 	cerr := <-coreDone
 	wg.Wait()
+	log.Info("stopped")
 	if err != nil {
 		return err
 	}
