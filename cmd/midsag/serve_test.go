@@ -1,0 +1,398 @@
+package main
+
+import (
+	"archive/zip"
+	"bufio"
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/credentials/insecure"
+
+	"github.com/midsag/midsag"
+	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
+	"github.com/midsag/midsag/internal/testtool"
+	"github.com/midsag/midsag/phantom"
+	"github.com/midsag/midsag/preprocess"
+	"github.com/midsag/midsag/server/store"
+)
+
+// TestMain lets the test binary stand in for the midsag binary: with
+// MIDSAG_TEST_AS_MAIN=1 it runs the CLI on its arguments after "--", so
+// end-to-end tests start real server processes they can SIGKILL.
+func TestMain(m *testing.M) {
+	if os.Getenv("MIDSAG_TEST_AS_MAIN") == "1" {
+		args := os.Args[1:]
+		for i, a := range args {
+			if a == "--" {
+				args = args[i+1:]
+				break
+			}
+		}
+		main2(args)
+		return
+	}
+	os.Exit(m.Run())
+}
+
+// main2 is main with explicit arguments.
+func main2(args []string) {
+	os.Args = append([]string{"midsag"}, args...)
+	main()
+}
+
+// service is a midsag serve child process on loopback ports.
+type service struct {
+	t                       *testing.T
+	cmd                     *exec.Cmd
+	http, grpc, dicom, data string
+	log                     *bytes.Buffer
+	exited                  chan struct{}
+}
+
+func freePort(t *testing.T) string {
+	t.Helper()
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer l.Close()
+	return l.Addr().String()
+}
+
+// startService starts midsag serve over data (a folder that may hold a
+// previous run's store) and waits until /readyz answers.
+func startService(t *testing.T, data string, extra ...string) *service {
+	t.Helper()
+	requireORT(t)
+	s := &service{t: t, http: freePort(t), grpc: freePort(t), dicom: freePort(t), data: data, log: &bytes.Buffer{}, exited: make(chan struct{})}
+	args := append([]string{"-test.run=^$", "--", "serve", "--data-dir", data, "--http-addr", s.http,
+		"--grpc-addr", s.grpc, "--dicom-addr", s.dicom, "--settle", "500ms", "--shutdown-grace", "5s"}, extra...)
+	s.cmd = exec.Command(os.Args[0], args...)
+	s.cmd.Env = append(os.Environ(), "MIDSAG_TEST_AS_MAIN=1")
+	s.cmd.Stderr = s.log
+	s.cmd.Stdout = s.log
+	if err := s.cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	go func() { s.cmd.Wait(); close(s.exited) }()
+	t.Cleanup(func() { s.kill() })
+	deadline := time.Now().Add(20 * time.Second)
+	for time.Now().Before(deadline) {
+		resp, err := http.Get("http://" + s.http + "/readyz")
+		if err == nil {
+			resp.Body.Close()
+			if resp.StatusCode == 200 {
+				return s
+			}
+		}
+		select {
+		case <-s.exited:
+			t.Fatalf("service exited: %s", s.log.String())
+		case <-time.After(100 * time.Millisecond):
+		}
+	}
+	t.Fatalf("service not ready: %s", s.log.String())
+	return nil
+}
+
+func (s *service) kill() {
+	if s.cmd.Process != nil {
+		s.cmd.Process.Signal(syscall.SIGKILL)
+		<-s.exited
+	}
+}
+
+// terminate sends SIGTERM and waits for a clean exit.
+func (s *service) terminate() {
+	s.cmd.Process.Signal(syscall.SIGTERM)
+	select {
+	case <-s.exited:
+	case <-time.After(20 * time.Second):
+		s.t.Fatalf("service did not stop on SIGTERM: %s", s.log.String())
+	}
+}
+
+// results lists the records of a study through REST.
+func (s *service) results(study string) []map[string]any {
+	resp, err := http.Get("http://" + s.http + "/v1/results?study_instance_uid=" + study)
+	if err != nil {
+		s.t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	var out struct {
+		Results []map[string]any `json:"results"`
+	}
+	json.NewDecoder(resp.Body).Decode(&out)
+	return out.Results
+}
+
+// waitResult waits through REST for a finished result of the study
+// (done, or rejected with a reason code when what arrived cannot be
+// scored).
+func (s *service) waitResult(study string) map[string]any {
+	s.t.Helper()
+	deadline := time.Now().Add(30 * time.Second)
+	for time.Now().Before(deadline) {
+		for _, r := range s.results(study) {
+			if r["status"] == "done" || r["status"] == "rejected" {
+				return r
+			}
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+	s.t.Fatalf("no result for study %s: %s", study, s.log.String())
+	return nil
+}
+
+func tcpNoDelay() []string { return append(os.Environ(), "TCP_NODELAY=1") }
+
+// TestServeStorescuEchoAndREST sends a phantom study with DCMTK's storescu
+// (the reference DICOM peer) and reads its result through REST; echoscu
+// verifies; the result is the phantom's truth (the true midline slice).
+func TestServeStorescuEchoAndREST(t *testing.T) {
+	s := startService(t, t.TempDir())
+	dir := t.TempDir()
+	// storescu proposes one compressed syntax per run; server/dimse tests
+	// cover every syntax, this one covers the path to a result.
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 61, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	host, port, _ := net.SplitHostPort(s.dicom)
+	echo := exec.Command(testtool.Command(t, "echoscu"), "-aec", "MIDSAG", host, port)
+	echo.Env = tcpNoDelay()
+	if out, err := echo.CombinedOutput(); err != nil {
+		t.Fatalf("echoscu: %v %s", err, out)
+	}
+	st := exec.Command(testtool.Command(t, "storescu"), "-aec", "MIDSAG", "+sd", "+r", host, port, filepath.Join(dir, truths[0].Study))
+	st.Env = tcpNoDelay()
+	if out, err := st.CombinedOutput(); err != nil {
+		t.Fatalf("storescu: %v %s", err, out)
+	}
+	r := s.waitResult(truths[0].StudyInstanceUID)
+	if r["status"] != "done" || r["center_sop_instance_uid"] != truths[0].CenterSOPInstanceUID || r["notice"] != midsag.Notice {
+		t.Errorf("result centre %v, truth %s", r["center_sop_instance_uid"], truths[0].CenterSOPInstanceUID)
+	}
+	s.terminate()
+}
+
+func zipStudy(t *testing.T, dir string) []byte {
+	t.Helper()
+	var b bytes.Buffer
+	zw := zip.NewWriter(&b)
+	entries, _ := os.ReadDir(dir)
+	for _, e := range entries {
+		data, _ := os.ReadFile(filepath.Join(dir, e.Name()))
+		w, _ := zw.Create(e.Name())
+		w.Write(data)
+	}
+	zw.Close()
+	return b.Bytes()
+}
+
+// TestServeCurlAndGRPCAgree posts a zip with curl and streams the same
+// study with the grpc-go client: both give the same centre slice and
+// probability. A gzip body gets 415 and an oversized body 413, each with
+// its reason code.
+func TestServeCurlAndGRPCAgree(t *testing.T) {
+	s := startService(t, t.TempDir(), "--max-body", "8000000")
+	curl := testtool.Command(t, "curl")
+	dir := t.TempDir()
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 62, NoDecoys: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	studyDir := filepath.Join(dir, truths[0].Study)
+	zipPath := filepath.Join(t.TempDir(), "study.zip")
+	os.WriteFile(zipPath, zipStudy(t, studyDir), 0o644)
+	out, err := exec.Command(curl, "-sS", "-w", "\n%{http_code}", "--data-binary", "@"+zipPath, "-H", "Content-Type: application/zip",
+		"http://"+s.http+"/v1/studies:score").Output()
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, code := splitCode(string(out))
+	if code != "200" {
+		t.Fatalf("curl zip: %s %s", code, body)
+	}
+	var rest map[string]any
+	json.Unmarshal([]byte(body), &rest)
+	if rest["center_sop_instance_uid"] != truths[0].CenterSOPInstanceUID {
+		t.Errorf("REST centre %v, truth %s", rest["center_sop_instance_uid"], truths[0].CenterSOPInstanceUID)
+	}
+
+	conn, err := grpc.NewClient(s.grpc, grpc.WithTransportCredentials(insecure.NewCredentials()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	stream, err := midsagv1.NewStudyScoringClient(conn).ScoreStudy(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	stream.Send(&midsagv1.ScoreStudyRequest{Part: &midsagv1.ScoreStudyRequest_Options{Options: &midsagv1.ScoreOptions{}}})
+	files, _ := os.ReadDir(studyDir)
+	for _, f := range files {
+		data, _ := os.ReadFile(filepath.Join(studyDir, f.Name()))
+		for off := 0; off < len(data); off += 64 << 10 {
+			end := min(off+64<<10, len(data))
+			stream.Send(&midsagv1.ScoreStudyRequest{Part: &midsagv1.ScoreStudyRequest_Chunk{Chunk: &midsagv1.InstanceChunk{Data: data[off:end], EndOfInstance: end == len(data)}}})
+		}
+	}
+	resp, err := stream.CloseAndRecv()
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := resp.GetResult()
+	if g.GetCenterSopInstanceUid() != rest["center_sop_instance_uid"] || fmt.Sprint(g.GetCalibratedProbability()) != fmt.Sprint(rest["calibrated_probability"]) {
+		t.Errorf("gRPC centre %s p %v, REST centre %v p %v", g.GetCenterSopInstanceUid(), g.GetCalibratedProbability(), rest["center_sop_instance_uid"], rest["calibrated_probability"])
+	}
+
+	gz := filepath.Join(t.TempDir(), "study.zip.gz")
+	exec.Command("sh", "-c", "gzip -c "+zipPath+" > "+gz).Run()
+	big := filepath.Join(t.TempDir(), "big.bin")
+	os.WriteFile(big, bytes.Repeat([]byte{1}, 9000000), 0o644)
+	for _, c := range []struct{ file, code, reason string }{{gz, "415", "not_dicom"}, {big, "413", "too_large"}} {
+		out, _ := exec.Command(curl, "-sS", "-w", "\n%{http_code}", "--data-binary", "@"+c.file, "http://"+s.http+"/v1/studies:score").Output()
+		body, code := splitCode(string(out))
+		if code != c.code || !strings.Contains(body, c.reason) {
+			t.Errorf("%s: %s %s, want %s %s", filepath.Base(c.file), code, body, c.code, c.reason)
+		}
+	}
+}
+
+func splitCode(out string) (string, string) {
+	i := strings.LastIndex(out, "\n")
+	return out[:i], strings.TrimSpace(out[i+1:])
+}
+
+// TestServeKillDuringStorescu kills the service with SIGKILL while
+// storescu is sending, restarts it over the same data folder, and checks
+// that every instance storescu saw acknowledged with status Success
+// (0000) is stored and its study scored.
+func TestServeKillDuringStorescu(t *testing.T) {
+	data := t.TempDir()
+	s := startService(t, data)
+	dir := t.TempDir()
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 4, Seed: 63, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	host, port, _ := net.SplitHostPort(s.dicom)
+	st := exec.Command(testtool.Command(t, "storescu"), "-v", "-aec", "MIDSAG", "+sd", "+r", host, port, dir)
+	st.Env = tcpNoDelay()
+	pipe, _ := st.StdoutPipe()
+	st.Stderr = st.Stdout
+	if err := st.Start(); err != nil {
+		t.Fatal(err)
+	}
+	// storescu -v logs "Sending file: PATH" then "Received Store Response
+	// (Success)" for each file.
+	var acked []string
+	var current string
+	sc := bufio.NewScanner(pipe)
+	killed := false
+	for sc.Scan() {
+		line := sc.Text()
+		if i := strings.Index(line, "Sending file: "); i >= 0 {
+			current = strings.TrimSpace(line[i+len("Sending file: "):])
+		}
+		if strings.Contains(line, "Received Store Response (Success)") && current != "" {
+			acked = append(acked, current)
+			if len(acked) == 60 && !killed {
+				s.kill()
+				killed = true
+			}
+		}
+	}
+	st.Wait()
+	if !killed {
+		t.Fatalf("storescu finished before the kill (%d acknowledged)", len(acked))
+	}
+	s2 := startService(t, data)
+	studies := map[string]bool{}
+	for _, p := range acked {
+		b, err := os.ReadFile(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		inst, err := readHeader(b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		studies[inst.StudyInstanceUID] = true
+	}
+	// Every study with an acknowledged instance is scored after restart,
+	// and every acknowledged instance of it is on record.
+	for study := range studies {
+		s2.waitResult(study)
+	}
+	s2.terminate()
+	stored := storedSOPs(t, data)
+	for _, p := range acked {
+		b, _ := os.ReadFile(p)
+		inst, _ := readHeader(b)
+		if !stored[inst.SOPInstanceUID] {
+			t.Errorf("acknowledged instance %s lost", filepath.Base(p))
+		}
+	}
+	t.Logf("%d instances acknowledged before SIGKILL, %d studies, all present after restart; %d studies generated", len(acked), len(studies), len(truths))
+}
+
+func readHeader(b []byte) (*midsag.Instance, error) {
+	return preprocess.New(preprocess.Options{}).Read("file", bytes.NewReader(b))
+}
+
+// storedSOPs opens the stopped service's store and returns the SOP
+// Instance UIDs whose spool files read back as DICOM.
+func storedSOPs(t *testing.T, data string) map[string]bool {
+	t.Helper()
+	st, err := store.Open(data, store.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	recs, _, err := st.ListRecords(context.Background(), store.Query{PageSize: 500})
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := map[string]bool{}
+	seen := map[string]bool{}
+	for _, r := range recs {
+		if seen[r.StudyInstanceUID] {
+			continue
+		}
+		seen[r.StudyInstanceUID] = true
+		insts, err := st.Instances(context.Background(), r.StudyInstanceUID, 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, in := range insts {
+			rc, err := st.Open(in)
+			if err != nil {
+				t.Errorf("instance %s: %v", in.SOPInstanceUID, err)
+				continue
+			}
+			b, _ := io.ReadAll(rc)
+			rc.Close()
+			if _, err := readHeader(b); err != nil {
+				t.Errorf("stored instance %s does not read back: %v", in.SOPInstanceUID, err)
+				continue
+			}
+			out[in.SOPInstanceUID] = true
+		}
+	}
+	return out
+}
