@@ -145,12 +145,15 @@ func (p *Pipeline) Score(ctx context.Context, instances []*Instance) (*Result, e
 	if len(raw) != 1 {
 		return nil, fmt.Errorf("predict: model returned %d outputs for one input", len(raw))
 	}
+	predictMS := ms(time.Since(t0))
+	t1 := time.Now()
 	sc := p.Model.Interpret(raw[0])
 	timings := map[string]float64{}
 	for k, v := range prep.TimingsMS {
 		timings[k] = v
 	}
-	timings["predict"] = ms(time.Since(t0))
+	timings["predict"] = predictMS
+	timings["calibrate"] = ms(time.Since(t1))
 	timings["total"] = ms(now().Sub(start))
 
 	flags := append([]string{}, prep.QualityFlags...)
