@@ -19,7 +19,7 @@ import (
 
 // requireORT skips (or, with MIDSAG_REQUIRE_TOOLS=1, fails) a test when the
 // ONNX Runtime library is not installed (make ort).
-func requireORT(t *testing.T) {
+func requireORT(t testing.TB) {
 	t.Helper()
 	if _, err := models.FindLibrary(""); err != nil {
 		if testtool.Required() {

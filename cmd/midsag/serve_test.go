@@ -55,14 +55,14 @@ func main2(args []string) {
 
 // service is a midsag serve child process on loopback ports.
 type service struct {
-	t                       *testing.T
+	t                       testing.TB
 	cmd                     *exec.Cmd
 	http, grpc, dicom, data string
 	log                     *bytes.Buffer
 	exited                  chan struct{}
 }
 
-func freePort(t *testing.T) string {
+func freePort(t testing.TB) string {
 	t.Helper()
 	l, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
@@ -74,7 +74,7 @@ func freePort(t *testing.T) string {
 
 // startService starts midsag serve over data (a folder that may hold a
 // previous run's store) and waits until /readyz answers.
-func startService(t *testing.T, data string, extra ...string) *service {
+func startService(t testing.TB, data string, extra ...string) *service {
 	t.Helper()
 	requireORT(t)
 	s := &service{t: t, http: freePort(t), grpc: freePort(t), dicom: freePort(t), data: data, log: &bytes.Buffer{}, exited: make(chan struct{})}
