@@ -35,8 +35,13 @@ test: ort
 test-long: ort
 	MIDSAG_LONG=1 $(GO) test -count=1 -timeout 60m ./...
 
+# bench runs the benchmark scripts, each of which prints a ratio against a
+# baseline measured in the same run.
 bench: ort
-	$(GO) test -run '^$$' -bench . -benchmem ./preprocess/... ./models/...
+	bash bench/study.sh
+	bash bench/storescu.sh
+	bash bench/storescu-service.sh
+	$(GO) test -run '^$$' -bench 'RESTScore|PipelineBaseline' -benchtime 20x ./server/
 
 # gen-api regenerates api/midsag/v1 (Go, gateway, OpenAPI) from the .proto
 # and its HTTP rules with pinned protoc plugins; the output is committed.
