@@ -79,6 +79,12 @@ func Open(dir string, opts Options) (*Store, error) {
 	if opts.MaxInstancesPerStudy <= 0 {
 		opts.MaxInstancesPerStudy = defaultMaxInstances
 	}
+	// An absolute path keeps the SQLite file: URI valid for relative
+	// folders such as the default ./midsag-data.
+	dir, err := filepath.Abs(dir)
+	if err != nil {
+		return nil, fmt.Errorf("store: %w", err)
+	}
 	spool := filepath.Join(dir, "spool")
 	if err := os.MkdirAll(spool, 0o750); err != nil {
 		return nil, fmt.Errorf("store: create spool: %w", err)
