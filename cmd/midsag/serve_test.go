@@ -5,9 +5,17 @@ import (
 	"bufio"
 	"bytes"
 	"context"
+	"crypto/ecdsa"
+	"crypto/elliptic"
+	"crypto/rand"
+	"crypto/tls"
+	"crypto/x509"
+	"crypto/x509/pkix"
 	"encoding/json"
+	"encoding/pem"
 	"fmt"
 	"io"
+	"math/big"
 	"net"
 	"net/http"
 	"os"
@@ -19,7 +27,11 @@ import (
 	"time"
 
 	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/credentials"
 	"google.golang.org/grpc/credentials/insecure"
+	"google.golang.org/grpc/metadata"
+	"google.golang.org/grpc/status"
 
 	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
@@ -76,6 +88,19 @@ func freePort(t testing.TB) string {
 // previous run's store) and waits until /readyz answers.
 func startService(t testing.TB, data string, extra ...string) *service {
 	t.Helper()
+	return startServiceWith(t, http.DefaultClient, "http", data, extra...)
+}
+
+// startServiceTLS starts the service with TLS flags among extra; readiness
+// is polled over HTTPS without checking the test's self-signed certificate.
+func startServiceTLS(t testing.TB, data string, extra ...string) *service {
+	t.Helper()
+	insecureClient := &http.Client{Transport: &http.Transport{TLSClientConfig: &tls.Config{InsecureSkipVerify: true}}}
+	return startServiceWith(t, insecureClient, "https", data, extra...)
+}
+
+func startServiceWith(t testing.TB, client *http.Client, scheme, data string, extra ...string) *service {
+	t.Helper()
 	requireORT(t)
 	s := &service{t: t, http: freePort(t), grpc: freePort(t), dicom: freePort(t), data: data, log: &bytes.Buffer{}, exited: make(chan struct{})}
 	args := append([]string{"-test.run=^$", "--", "serve", "--data-dir", data, "--http-addr", s.http,
@@ -91,7 +116,7 @@ func startService(t testing.TB, data string, extra ...string) *service {
 	t.Cleanup(func() { s.kill() })
 	deadline := time.Now().Add(20 * time.Second)
 	for time.Now().Before(deadline) {
-		resp, err := http.Get("http://" + s.http + "/readyz")
+		resp, err := client.Get(scheme + "://" + s.http + "/readyz")
 		if err == nil {
 			resp.Body.Close()
 			if resp.StatusCode == 200 {
@@ -183,6 +208,11 @@ func TestServeStorescuEchoAndREST(t *testing.T) {
 		t.Fatalf("storescu: %v %s", err, out)
 	}
 	r := s.waitResult(truths[0].StudyInstanceUID)
+	// The phantom writes Patient's Name PHANTOM^0001 and Patient ID
+	// NSIL61-0001 (phantom/write.go); neither may reach the logs.
+	if logs := s.log.String(); strings.Contains(logs, "PHANTOM^") || strings.Contains(logs, "NSIL61-") {
+		t.Errorf("service log holds patient name or ID:\n%s", logs)
+	}
 	if r["status"] != "done" || r["center_sop_instance_uid"] != truths[0].CenterSOPInstanceUID || r["notice"] != midsag.Notice {
 		t.Errorf("result centre %v, truth %s", r["center_sop_instance_uid"], truths[0].CenterSOPInstanceUID)
 	}
@@ -395,4 +425,73 @@ func storedSOPs(t *testing.T, data string) map[string]bool {
 		}
 	}
 	return out
+}
+
+// TestServeTLSAndTokens starts the service with a self-signed certificate
+// and a token file: curl over HTTPS needs the token for /v1/models but not
+// for /healthz, and the grpc-go client needs TLS and the token.
+func TestServeTLSAndTokens(t *testing.T) {
+	dir := t.TempDir()
+	certPEM, keyPEM := selfSigned(t)
+	cert, key, tokens := filepath.Join(dir, "cert.pem"), filepath.Join(dir, "key.pem"), filepath.Join(dir, "tokens")
+	os.WriteFile(cert, certPEM, 0o600)
+	os.WriteFile(key, keyPEM, 0o600)
+	os.WriteFile(tokens, []byte("# research group token\nsecret-token-1\n"), 0o600)
+	s := startServiceTLS(t, dir, "--tls-cert", cert, "--tls-key", key, "--token-file", tokens)
+	curl := testtool.Command(t, "curl")
+	get := func(path string, hdr ...string) string {
+		args := append([]string{"-sS", "-o", "/dev/null", "-w", "%{http_code}", "--cacert", cert}, hdr...)
+		out, err := exec.Command(curl, append(args, "https://localhost:"+portOf(s.http)+path)...).Output()
+		if err != nil {
+			t.Fatalf("curl %s: %v", path, err)
+		}
+		return string(out)
+	}
+	if c := get("/healthz"); c != "200" {
+		t.Errorf("/healthz over TLS: %s", c)
+	}
+	if c := get("/v1/models"); c != "401" {
+		t.Errorf("/v1/models without token: %s, want 401", c)
+	}
+	if c := get("/v1/models", "-H", "Authorization: Bearer secret-token-1"); c != "200" {
+		t.Errorf("/v1/models with token: %s", c)
+	}
+	pool := x509.NewCertPool()
+	pool.AppendCertsFromPEM(certPEM)
+	conn, err := grpc.NewClient("localhost:"+portOf(s.grpc), grpc.WithTransportCredentials(credentials.NewTLS(&tls.Config{RootCAs: pool})))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	client := midsagv1.NewStudyScoringClient(conn)
+	if _, err := client.ListModels(context.Background(), &midsagv1.ListModelsRequest{}); status.Code(err) != codes.Unauthenticated {
+		t.Errorf("gRPC without token: %v", err)
+	}
+	ctx := metadata.AppendToOutgoingContext(context.Background(), "authorization", "Bearer secret-token-1")
+	if _, err := client.ListModels(ctx, &midsagv1.ListModelsRequest{}); err != nil {
+		t.Errorf("gRPC with token over TLS: %v", err)
+	}
+}
+
+func portOf(addr string) string {
+	_, p, _ := net.SplitHostPort(addr)
+	return p
+}
+
+// selfSigned makes a certificate for localhost with Go's crypto/x509.
+func selfSigned(t *testing.T) ([]byte, []byte) {
+	t.Helper()
+	key, err := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tmpl := &x509.Certificate{SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: "localhost"},
+		DNSNames: []string{"localhost"}, NotBefore: time.Now().Add(-time.Hour), NotAfter: time.Now().Add(time.Hour),
+		KeyUsage: x509.KeyUsageDigitalSignature, ExtKeyUsage: []x509.ExtKeyUsage{x509.ExtKeyUsageServerAuth}}
+	der, err := x509.CreateCertificate(rand.Reader, tmpl, tmpl, &key.PublicKey, key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	kb, _ := x509.MarshalECPrivateKey(key)
+	return pem.EncodeToMemory(&pem.Block{Type: "CERTIFICATE", Bytes: der}), pem.EncodeToMemory(&pem.Block{Type: "EC PRIVATE KEY", Bytes: kb})
 }
