@@ -495,3 +495,42 @@ func selfSigned(t *testing.T) ([]byte, []byte) {
 	kb, _ := x509.MarshalECPrivateKey(key)
 	return pem.EncodeToMemory(&pem.Block{Type: "CERTIFICATE", Bytes: der}), pem.EncodeToMemory(&pem.Block{Type: "EC PRIVATE KEY", Bytes: kb})
 }
+
+// TestServeModelsDirReload lists the models folder's model through REST,
+// then adds another file and sends SIGHUP: the new model is listed without
+// a restart. The test models come from models/testdata (made by PyTorch).
+func TestServeModelsDirReload(t *testing.T) {
+	modelsDir := t.TempDir()
+	copyFile(t, "../../models/testdata/tiny_logit.onnx", filepath.Join(modelsDir, "a.onnx"))
+	s := startService(t, t.TempDir(), "--models-dir", modelsDir)
+	names := func() string {
+		resp, err := http.Get("http://" + s.http + "/v1/models")
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		var out struct {
+			Models []struct {
+				Name string `json:"name"`
+			} `json:"models"`
+		}
+		json.NewDecoder(resp.Body).Decode(&out)
+		var n []string
+		for _, m := range out.Models {
+			n = append(n, m.Name)
+		}
+		return strings.Join(n, ",")
+	}
+	if got := names(); !strings.Contains(got, "tiny_logit") || !strings.Contains(got, "midsag-demo") {
+		t.Fatalf("models %q", got)
+	}
+	copyFile(t, "../../models/testdata/tiny_two.onnx", filepath.Join(modelsDir, "b.onnx"))
+	s.cmd.Process.Signal(syscall.SIGHUP)
+	deadline := time.Now().Add(10 * time.Second)
+	for !strings.Contains(names(), "tiny_two") {
+		if time.Now().After(deadline) {
+			t.Fatalf("tiny_two not listed after SIGHUP: %s", names())
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+}
