@@ -134,7 +134,9 @@ func TestCoreScoresRequestAndSettledStudy(t *testing.T) {
 }
 
 // TestCoreRefusalsAndOverload: a refused study is stored as rejected with
-// its reason; an unknown model is refused before anything is queued.
+// its reason; an unknown model is refused before anything is queued; with
+// every queue slot taken a request is refused as overloaded and nothing is
+// recorded for it.
 func TestCoreRefusalsAndOverload(t *testing.T) {
 	c, _, stop := newCore(t, t.TempDir(), time.Hour)
 	defer stop()
@@ -154,6 +156,20 @@ func TestCoreRefusalsAndOverload(t *testing.T) {
 	}
 	if _, err := c.Ingest(context.Background(), Origin{Listener: "test"}, []byte("not dicom")); err == nil {
 		t.Error("non-DICOM ingested")
+	}
+	before, _, _ := c.Results(context.Background(), Query{})
+	for i := 0; i < cap(c.slots); i++ {
+		c.slots <- struct{}{}
+	}
+	_, err = c.Score(context.Background(), ScoreRequest{SOPInstanceUIDs: uids})
+	for i := 0; i < cap(c.slots); i++ {
+		<-c.slots
+	}
+	if r, _ := midsag.ReasonOf(err); r != midsag.ReasonOverloaded {
+		t.Errorf("full queue: %v, want overloaded", err)
+	}
+	if after, _, _ := c.Results(context.Background(), Query{}); len(after) != len(before) {
+		t.Errorf("an overloaded request left a record (%d -> %d)", len(before), len(after))
 	}
 }
 
