@@ -64,10 +64,40 @@ type OutputManifest struct {
 // CalibrationSpec selects a calibrator and holds its parameters. New
 // methods add their parameters here as optional fields.
 type CalibrationSpec struct {
-	// Method is "identity" or "temperature".
+	// Method is "identity", "temperature", "platt" or "isotonic".
 	Method string `json:"method"`
 	// Temperature is T of temperature scaling (method "temperature").
 	Temperature float64 `json:"temperature,omitempty"`
+	// Platt holds A and B of Platt scaling (method "platt").
+	Platt *PlattParams `json:"platt,omitempty"`
+	// Isotonic holds the breakpoints of isotonic regression (method "isotonic").
+	Isotonic *IsotonicParams `json:"isotonic,omitempty"`
+	// PriorShift, when set, follows any method with a prior-shift
+	// adjustment from the fitting table's prevalence to a target one.
+	PriorShift *PriorShiftParams `json:"prior_shift,omitempty"`
+}
+
+// PlattParams are the two parameters of Platt scaling,
+// P(y=1|f) = 1/(1+exp(A·f+B)) with f = logit(p) (see Platt).
+type PlattParams struct {
+	A float64 `json:"a"`
+	B float64 `json:"b"`
+}
+
+// IsotonicParams are the breakpoints of a fitted isotonic regression: X
+// strictly increasing on the probability scale, Y non-decreasing in [0,1]
+// (see Isotonic).
+type IsotonicParams struct {
+	X []float64 `json:"x"`
+	Y []float64 `json:"y"`
+}
+
+// PriorShiftParams are the two prevalences of a prior-shift adjustment
+// (see PriorShift): the positive share of the table the calibrator was
+// fitted on, and the share where the model is used.
+type PriorShiftParams struct {
+	TrainPrevalence  float64 `json:"train_prevalence"`
+	TargetPrevalence float64 `json:"target_prevalence"`
 }
 
 // Output kinds.
