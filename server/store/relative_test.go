@@ -2,6 +2,7 @@ package store
 
 import (
 	"context"
+	"errors"
 	"testing"
 )
 
@@ -17,4 +18,24 @@ func TestOpenRelativePath(t *testing.T) {
 	if err := s.Ping(context.Background()); err != nil {
 		t.Fatal(err)
 	}
+}
+
+// TestOpenTwiceLocked: a second Open of the same folder fails while the
+// first store is open and succeeds after it is closed (flock(2)
+// semantics: the lock belongs to the open file description).
+func TestOpenTwiceLocked(t *testing.T) {
+	dir := t.TempDir()
+	s, err := Open(dir, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := Open(dir, Options{}); !errors.Is(err, ErrLocked) {
+		t.Fatalf("second Open: %v, want ErrLocked", err)
+	}
+	s.Close()
+	s2, err := Open(dir, Options{})
+	if err != nil {
+		t.Fatalf("Open after Close: %v", err)
+	}
+	s2.Close()
 }

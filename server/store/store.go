@@ -12,6 +12,7 @@ import (
 	"strings"
 	"sync"
 	"sync/atomic"
+	"syscall"
 	"time"
 
 	_ "modernc.org/sqlite" // registers the "sqlite" driver
@@ -69,6 +70,8 @@ type Store struct {
 	mu     sync.Mutex
 	closed bool
 	puts   sync.WaitGroup
+	// lock holds the folder's flock for the store's lifetime.
+	lock *os.File
 }
 
 // Open opens or creates the store in dir: dir/spool/ for instance files and
@@ -89,6 +92,26 @@ func Open(dir string, opts Options) (*Store, error) {
 	if err := os.MkdirAll(spool, 0o750); err != nil {
 		return nil, fmt.Errorf("store: create spool: %w", err)
 	}
+	// One process per store: a second one would clean the spool under the
+	// first one's feet. flock(2) is released by the kernel when the
+	// holder dies, so a crash never leaves the folder locked.
+	lock, err := os.OpenFile(filepath.Join(dir, "LOCK"), os.O_CREATE|os.O_RDWR, 0o640)
+	if err != nil {
+		return nil, fmt.Errorf("store: open lock file: %w", err)
+	}
+	if err := syscall.Flock(int(lock.Fd()), syscall.LOCK_EX|syscall.LOCK_NB); err != nil {
+		lock.Close()
+		if errors.Is(err, syscall.EWOULDBLOCK) {
+			return nil, fmt.Errorf("store: %s: %w", dir, ErrLocked)
+		}
+		return nil, fmt.Errorf("store: lock %s: %w", dir, err)
+	}
+	opened := false
+	defer func() {
+		if !opened {
+			lock.Close()
+		}
+	}()
 	dbPath := filepath.Join(dir, "midsag.db")
 	// synchronous=FULL: in WAL mode SQLite then syncs the WAL at every
 	// commit, which is what makes a commit survive power loss
@@ -113,7 +136,7 @@ func Open(dir string, opts Options) (*Store, error) {
 		return nil, fmt.Errorf("store: open %s for reading: %w", dbPath, err)
 	}
 	r.SetMaxOpenConns(4)
-	s := &Store{dir: dir, spool: spool, opts: opts, w: w, r: r}
+	s := &Store{dir: dir, spool: spool, opts: opts, w: w, r: r, lock: lock}
 	if err := s.sweep(); err != nil {
 		s.closeDBs()
 		return nil, err
@@ -136,6 +159,7 @@ func Open(dir string, opts Options) (*Store, error) {
 		s.done = make(chan struct{})
 		go s.committer()
 	}
+	opened = true
 	return s, nil
 }
 
@@ -163,7 +187,7 @@ func (s *Store) Close() error {
 }
 
 func (s *Store) closeDBs() error {
-	return errors.Join(s.r.Close(), s.w.Close())
+	return errors.Join(s.r.Close(), s.w.Close(), s.lock.Close())
 }
 
 // migrations are applied in order, each once; schema_version records the

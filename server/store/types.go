@@ -8,6 +8,9 @@ import (
 // ErrNotFound is returned for an unknown record id.
 var ErrNotFound = errors.New("not found")
 
+// ErrLocked is returned by Open when another process holds the folder.
+var ErrLocked = errors.New("another process has this data folder open")
+
 // Record statuses.
 const (
 	StatusPending  = "pending"
