@@ -26,6 +26,9 @@ const (
 	ReasonBadModel             Reason = "bad_model"
 	ReasonUnknownModel         Reason = "unknown_model"
 	ReasonOverloaded           Reason = "overloaded"
+	// ReasonBadTable refuses a CSV table for evaluation or calibration: a
+	// missing column, a value that is not a number, an unknown label.
+	ReasonBadTable Reason = "bad_table"
 )
 
 // Error is an input refusal: a reason code and a sentence for a person.

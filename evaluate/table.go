@@ -1,0 +1,227 @@
+package evaluate
+
+import (
+	"encoding/csv"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"sort"
+	"strconv"
+	"strings"
+
+	"github.com/midsag/midsag"
+)
+
+// Columns names the columns of a table to evaluate.
+type Columns struct {
+	Score    string // the model's score; higher means positive
+	Label    string // the truth, in the table or in the labels file
+	Positive string // the label value of a positive case
+	Compare  string // optional second score for the paired DeLong test
+	Reader   string // optional binary reader calls, 0 or 1
+	ID       string // id column joining the table with a labels file
+}
+
+// Table is the cases read from a CSV table, in file order.
+type Table struct {
+	IDs     []string  // values of Columns.ID; empty without a join
+	Labels  []bool    // true for a positive case
+	Scores  []float64 // Columns.Score
+	Compare []float64 // Columns.Compare, nil without it
+	Reader  []bool    // Columns.Reader (true = called positive), nil without it
+	// NegativeLabel is the one label value other than Columns.Positive.
+	NegativeLabel string
+	// Excluded counts rows left out, by reason: "empty_score",
+	// "empty_compare", "empty_reader", "empty_label", "no_label" (a table
+	// row whose id is missing from the labels file).
+	Excluded map[string]int
+}
+
+// ReadTable reads cases from a CSV table with a header row. With labels
+// non-nil the label column is taken from that second CSV and joined on
+// cols.ID. The rule for imperfect rows: a row with an empty cell in a used
+// column (or, in a join, no row in the labels file) is excluded and counted
+// in Table.Excluded; a cell that is present but not a finite number, a
+// reader call other than 0 or 1, a duplicate id or a third label value is
+// refused with midsag.ReasonBadTable, naming the file and line. Names are
+// only used in messages.
+func ReadTable(table io.Reader, tableName string, labels io.Reader, labelsName string, cols Columns) (*Table, error) {
+	if cols.Score == "" || cols.Label == "" || cols.Positive == "" {
+		return nil, errors.New("read table: the score column, label column and positive label are required")
+	}
+	var truth map[string]string
+	if labels != nil {
+		if cols.ID == "" {
+			return nil, errors.New("read table: a labels file needs an id column to join on")
+		}
+		var err error
+		if truth, err = readLabels(labels, labelsName, cols); err != nil {
+			return nil, err
+		}
+	}
+	rows, header, err := readCSV(table, tableName)
+	if err != nil {
+		return nil, err
+	}
+	need := []string{cols.Score, cols.Compare, cols.Reader}
+	if truth != nil {
+		need = append(need, cols.ID)
+	} else {
+		need = append(need, cols.Label)
+	}
+	at, err := columnIndex(header, tableName, need...)
+	if err != nil {
+		return nil, err
+	}
+	t := &Table{Excluded: map[string]int{}}
+	if cols.Compare != "" {
+		t.Compare = []float64{}
+	}
+	if cols.Reader != "" {
+		t.Reader = []bool{}
+	}
+	seen := map[string]int{}
+	for i, row := range rows {
+		line := i + 2 // 1-based, after the header
+		var id, label string
+		if truth != nil {
+			id = row[at[cols.ID]]
+			if prev, dup := seen[id]; dup {
+				return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: id %q already on line %d", tableName, line, id, prev)
+			}
+			seen[id] = line
+			var ok bool
+			if label, ok = truth[id]; !ok {
+				t.Excluded["no_label"]++
+				continue
+			}
+		} else {
+			label = row[at[cols.Label]]
+		}
+		cell := func(c string) string { return strings.TrimSpace(row[at[c]]) }
+		switch {
+		case strings.TrimSpace(label) == "":
+			t.Excluded["empty_label"]++
+			continue
+		case cell(cols.Score) == "":
+			t.Excluded["empty_score"]++
+			continue
+		case cols.Compare != "" && cell(cols.Compare) == "":
+			t.Excluded["empty_compare"]++
+			continue
+		case cols.Reader != "" && cell(cols.Reader) == "":
+			t.Excluded["empty_reader"]++
+			continue
+		}
+		pos, err := t.label(strings.TrimSpace(label), cols.Positive)
+		if err != nil {
+			return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: %v", tableName, line, err)
+		}
+		s, err := number(cell(cols.Score))
+		if err != nil {
+			return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: column %q: %v", tableName, line, cols.Score, err)
+		}
+		if cols.Compare != "" {
+			c, err := number(cell(cols.Compare))
+			if err != nil {
+				return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: column %q: %v", tableName, line, cols.Compare, err)
+			}
+			t.Compare = append(t.Compare, c)
+		}
+		if cols.Reader != "" {
+			switch r := cell(cols.Reader); r {
+			case "0", "1":
+				t.Reader = append(t.Reader, r == "1")
+			default:
+				return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: reader call %q in column %q is not 0 or 1", tableName, line, r, cols.Reader)
+			}
+		}
+		t.IDs = append(t.IDs, id)
+		t.Labels = append(t.Labels, pos)
+		t.Scores = append(t.Scores, s)
+	}
+	return t, nil
+}
+
+// label maps a label value to positive or negative, allowing exactly one
+// value other than the positive one.
+func (t *Table) label(v, positive string) (bool, error) {
+	if v == positive {
+		return true, nil
+	}
+	if t.NegativeLabel == "" {
+		t.NegativeLabel = v
+	}
+	if v != t.NegativeLabel {
+		return false, fmt.Errorf("label %q is a third value (positive %q, negative %q)", v, positive, t.NegativeLabel)
+	}
+	return false, nil
+}
+
+func number(s string) (float64, error) {
+	v, err := strconv.ParseFloat(s, 64)
+	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+		return 0, fmt.Errorf("%q is not a finite number", s)
+	}
+	return v, nil
+}
+
+// readLabels reads id → label from the labels file.
+func readLabels(r io.Reader, name string, cols Columns) (map[string]string, error) {
+	rows, header, err := readCSV(r, name)
+	if err != nil {
+		return nil, err
+	}
+	at, err := columnIndex(header, name, cols.ID, cols.Label)
+	if err != nil {
+		return nil, err
+	}
+	truth := make(map[string]string, len(rows))
+	for i, row := range rows {
+		id := row[at[cols.ID]]
+		if _, dup := truth[id]; dup {
+			return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: id %q appears twice", name, i+2, id)
+		}
+		truth[id] = row[at[cols.Label]]
+	}
+	return truth, nil
+}
+
+func readCSV(r io.Reader, name string) (rows [][]string, header []string, err error) {
+	cr := csv.NewReader(r)
+	all, err := cr.ReadAll()
+	if err != nil {
+		return nil, nil, midsag.Reject(midsag.ReasonBadTable, "read "+name, err)
+	}
+	if len(all) == 0 {
+		return nil, nil, midsag.Rejectf(midsag.ReasonBadTable, "%s is empty (a header row is needed)", name)
+	}
+	header = all[0]
+	if len(header) > 0 {
+		header[0] = strings.TrimPrefix(header[0], "\ufeff") // spreadsheet exports add a BOM
+	}
+	return all[1:], header, nil
+}
+
+// columnIndex maps each non-empty wanted column to its position in header.
+func columnIndex(header []string, name string, want ...string) (map[string]int, error) {
+	at := map[string]int{}
+	for i, h := range header {
+		at[strings.TrimSpace(h)] = i
+	}
+	out := map[string]int{}
+	for _, w := range want {
+		if w == "" {
+			continue
+		}
+		i, ok := at[w]
+		if !ok {
+			have := append([]string(nil), header...)
+			sort.Strings(have)
+			return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s has no column %q (columns: %s)", name, w, strings.Join(have, ", "))
+		}
+		out[w] = i
+	}
+	return out, nil
+}
