@@ -274,20 +274,24 @@ func FitIsotonic(score []float64, positive []bool) (x, y []float64) {
 		idx[i] = i
 	}
 	sort.Slice(idx, func(i, j int) bool { return score[idx[i]] < score[idx[j]] })
-	// Blocks of the PAV stack: the mean label, weight and highest score.
-	type block struct{ mean, w, last float64 }
-	var blocks []block
-	var ux []float64
+	// Merge equal scores into one weighted point first: PAV never splits a
+	// pool, so a tie met after its neighbours were pooled would be
+	// pooled wrongly with them.
+	var ux, uy, uw []float64
 	for _, i := range idx {
 		v := y01(positive[i])
 		if n := len(ux); n > 0 && ux[n-1] == score[i] {
-			top := &blocks[len(blocks)-1]
-			top.mean += (v - top.mean) / (top.w + 1)
-			top.w++
-		} else {
-			ux = append(ux, score[i])
-			blocks = append(blocks, block{mean: v, w: 1, last: score[i]})
+			uw[n-1]++
+			uy[n-1] += (v - uy[n-1]) / uw[n-1]
+			continue
 		}
+		ux, uy, uw = append(ux, score[i]), append(uy, v), append(uw, 1)
+	}
+	// Blocks of the PAV stack: the mean label, weight and highest score.
+	type block struct{ mean, w, last float64 }
+	var blocks []block
+	for k := range ux {
+		blocks = append(blocks, block{mean: uy[k], w: uw[k], last: ux[k]})
 		// Pool while the last two blocks violate monotonicity.
 		for len(blocks) > 1 && blocks[len(blocks)-2].mean > blocks[len(blocks)-1].mean {
 			b2, b1 := blocks[len(blocks)-1], blocks[len(blocks)-2]
