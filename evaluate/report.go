@@ -1,10 +1,160 @@
 package evaluate
 
+import (
+	"encoding/base64"
+	"fmt"
+	"html"
+	"os"
+	"path/filepath"
+	"strings"
+)
+
 // WriteFunc writes a whole file so that a reader never sees it half
 // written (for example through a temporary file and a rename).
 type WriteFunc func(path string, data []byte) error
 
-// WriteReport writes report.md and report.html for s into dir.
+// WriteReport writes into dir the plots as PNG files, report.md (which
+// links them) and report.html (which embeds them as data URIs, so it can be
+// sent on its own). Every file goes through write; all plots are rendered
+// before the first file is written.
 func WriteReport(dir string, s *Summary, write WriteFunc) error {
-	return nil
+	plots, err := Plots(s)
+	if err != nil {
+		return err
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return fmt.Errorf("report folder: %w", err)
+	}
+	for _, p := range plots {
+		if err := write(filepath.Join(dir, p.Name), p.PNG); err != nil {
+			return err
+		}
+	}
+	if err := write(filepath.Join(dir, "report.md"), []byte(Markdown(s, plots))); err != nil {
+		return err
+	}
+	return write(filepath.Join(dir, "report.html"), []byte(HTML(s, plots)))
+}
+
+// row is one line of the report's results table.
+type row struct{ name, value, note string }
+
+func fmtCI(c Interval) string { return fmt.Sprintf("%.3f to %.3f", c[0], c[1]) }
+
+func fmtProp(p Proportion) string {
+	return fmt.Sprintf("%.3f (%d/%d; 95%% CI %s)", p.Value, p.K, p.N, fmtCI(p.CI95))
+}
+
+func optional(v *float64, format string) string {
+	if v == nil {
+		return "undefined"
+	}
+	return fmt.Sprintf(format, *v)
+}
+
+// rows lists the report's figures in reading order.
+func rows(s *Summary) []row {
+	op := s.OperatingPoint
+	r := []row{
+		{"cases", fmt.Sprintf("%d (%d positive, prevalence %.3f)", s.N, s.NPositive, s.Prevalence),
+			fmt.Sprintf("positive label %q, negative %q", s.PositiveLabel, s.NegativeLabel)},
+	}
+	if len(s.Excluded) > 0 {
+		var ex []string
+		for k, v := range s.Excluded {
+			ex = append(ex, fmt.Sprintf("%s %d", k, v))
+		}
+		r = append(r, row{"excluded rows", strings.Join(ex, ", "), "rows with an empty cell in a used column, or without a label"})
+	}
+	r = append(r, row{"AUC (" + s.Score + ")", fmt.Sprintf("%.3f (95%% CI %s)", s.AUC.Value, fmtCI(s.AUC.CI95)), s.AUC.Method})
+	if c := s.Compare; c != nil {
+		r = append(r,
+			row{"AUC (" + c.Column + ")", fmt.Sprintf("%.3f (95%% CI %s)", c.AUC.Value, fmtCI(c.AUC.CI95)), c.AUC.Method},
+			row{"difference", fmt.Sprintf("%+.3f, z %s, p %s", c.Delta, optional(c.Z, "%.2f"), optional(c.PValue, "%.4g")), c.Method})
+	}
+	r = append(r,
+		row{"threshold", fmt.Sprintf("%.4g", op.Threshold), fmt.Sprintf("rule %s; a case is called positive when its score is at least the threshold", op.Rule)},
+		row{"sensitivity", fmtProp(op.Sensitivity), op.CIMethod},
+		row{"specificity", fmtProp(op.Specificity), op.CIMethod},
+		row{"PPV", fmtProp(op.PPV), "at this cohort's prevalence"},
+		row{"NPV", fmtProp(op.NPV), "at this cohort's prevalence"},
+		row{"accuracy", fmtProp(op.Accuracy), ""},
+		row{"confusion", fmt.Sprintf("TP %d, FP %d, TN %d, FN %d", op.Confusion.TP, op.Confusion.FP, op.Confusion.TN, op.Confusion.FN), ""},
+	)
+	if rd := s.Reader; rd != nil {
+		r = append(r,
+			row{"reader sensitivity", fmtProp(rd.Sensitivity), "reader " + rd.Column},
+			row{"reader specificity", fmtProp(rd.Specificity), "reader " + rd.Column},
+			row{"model vs reader", fmt.Sprintf("model right/reader wrong %d, model wrong/reader right %d, p %.4g", rd.ModelOnly, rd.ReaderOnly, rd.PValue), rd.Method},
+		)
+	}
+	if c := s.Calibration; c != nil {
+		r = append(r,
+			row{"Brier score", fmt.Sprintf("%.4f", c.Brier), "Brier 1950"},
+			row{"ECE", fmt.Sprintf("%.4f", c.ECE), c.ECEMethod},
+			row{"calibration intercept / slope", optional(c.Intercept, "%.3f") + " / " + optional(c.Slope, "%.3f"), c.Method},
+		)
+	}
+	if b := s.Bootstrap; b != nil {
+		r = append(r, row{"bootstrap 95% CIs", fmt.Sprintf("AUC %s; sensitivity %s; specificity %s", fmtCI(b.AUC), fmtCI(b.Sensitivity), fmtCI(b.Specificity)),
+			fmt.Sprintf("%s; %d replicates, seed %d; threshold held fixed", b.Method, b.Replicates, b.Seed)})
+	}
+	return r
+}
+
+// Markdown returns report.md, which links the plots as files beside it.
+func Markdown(s *Summary, plots []Plot) string {
+	var b strings.Builder
+	fmt.Fprintf(&b, "# midsag evaluation\n\n> **%s**\n\n", s.Notice)
+	b.WriteString("| measure | value | how |\n| --- | --- | --- |\n")
+	cell := func(x string) string { return strings.ReplaceAll(x, "|", `\|`) }
+	for _, r := range rows(s) {
+		fmt.Fprintf(&b, "| %s | %s | %s |\n", cell(r.name), cell(r.value), cell(r.note))
+	}
+	if len(s.Warnings) > 0 {
+		b.WriteString("\n## Warnings\n\n")
+		for _, w := range s.Warnings {
+			fmt.Fprintf(&b, "- %s\n", w)
+		}
+	}
+	b.WriteString("\n## Plots\n")
+	for _, p := range plots {
+		fmt.Fprintf(&b, "\n![%s](%s)\n\n%s\n", p.Name, p.Name, p.Caption)
+	}
+	fmt.Fprintf(&b, "\n---\n\n%s\n", s.Notice)
+	return b.String()
+}
+
+// HTML returns report.html with the plots embedded as base64 data URIs.
+func HTML(s *Summary, plots []Plot) string {
+	var b strings.Builder
+	e := html.EscapeString
+	b.WriteString(`<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>midsag evaluation</title>
+<style>
+body{font-family:system-ui,sans-serif;max-width:60em;margin:2em auto;padding:0 1em;color:#222}
+.notice{border:2px solid #d55e00;background:#fff4ec;padding:.6em 1em;font-weight:bold}
+table{border-collapse:collapse;margin:1em 0}td,th{border:1px solid #ccc;padding:.3em .6em;text-align:left;vertical-align:top}
+td.how{color:#555;font-size:.9em}figure{margin:1.5em 0}img{max-width:100%;border:1px solid #eee}
+</style></head><body>
+<h1>midsag evaluation</h1>
+`)
+	fmt.Fprintf(&b, "<p class=\"notice\">%s</p>\n<table><tr><th>measure</th><th>value</th><th>how</th></tr>\n", e(s.Notice))
+	for _, r := range rows(s) {
+		fmt.Fprintf(&b, "<tr><td>%s</td><td>%s</td><td class=\"how\">%s</td></tr>\n", e(r.name), e(r.value), e(r.note))
+	}
+	b.WriteString("</table>\n")
+	if len(s.Warnings) > 0 {
+		b.WriteString("<h2>Warnings</h2><ul>\n")
+		for _, w := range s.Warnings {
+			fmt.Fprintf(&b, "<li>%s</li>\n", e(w))
+		}
+		b.WriteString("</ul>\n")
+	}
+	for _, p := range plots {
+		fmt.Fprintf(&b, "<figure><img alt=\"%s\" src=\"data:image/png;base64,%s\"><figcaption>%s</figcaption></figure>\n",
+			e(p.Name), base64.StdEncoding.EncodeToString(p.PNG), e(p.Caption))
+	}
+	fmt.Fprintf(&b, "<p class=\"notice\">%s</p>\n</body></html>\n", e(s.Notice))
+	return b.String()
 }
