@@ -141,6 +141,11 @@ func CalibratorFromManifest(c CalibrationSpec) (Calibrator, error) {
 	bad := func(format string, args ...any) error {
 		return midsag.Rejectf(midsag.ReasonBadModel, "manifest: calibration."+format, args...)
 	}
+	switch c.Method {
+	case MethodIdentity, MethodTemperature, MethodPlatt, MethodIsotonic:
+	default:
+		return nil, bad("method is %q, want identity, temperature, platt or isotonic", c.Method)
+	}
 	// Parameters of one method next to another method's name mean the
 	// manifest was edited by hand and half-finished; refuse rather than guess.
 	if c.Method != MethodTemperature && c.Temperature != 0 {
@@ -180,8 +185,6 @@ func CalibratorFromManifest(c CalibrationSpec) (Calibrator, error) {
 			return nil, bad("isotonic: %v", err)
 		}
 		cal = Isotonic{X: append([]float64(nil), iso.X...), Y: append([]float64(nil), iso.Y...)}
-	default:
-		return nil, bad("method is %q, want identity, temperature, platt or isotonic", c.Method)
 	}
 	if ps := c.PriorShift; ps != nil {
 		if !(ps.TrainPrevalence > 0 && ps.TrainPrevalence < 1) || !(ps.TargetPrevalence > 0 && ps.TargetPrevalence < 1) {

@@ -8,11 +8,6 @@ import (
 	"github.com/midsag/midsag"
 )
 
-// ReasonBadTable refuses a calibration table: a missing column, a
-// non-numeric or out-of-range score, a label column with one class only.
-// It belongs beside the other codes in the root package's vocabulary.
-const ReasonBadTable midsag.Reason = "bad_table"
-
 // FitTable is a validation table of raw model outputs and labels.
 type FitTable struct {
 	// Scores are the model's raw outputs, one per row.
@@ -61,7 +56,7 @@ func (t *FitTable) Prevalence() float64 {
 }
 
 // Check refuses tables a calibrator cannot be fitted on, with
-// ReasonBadTable.
+// midsag.ReasonBadTable.
 func (t *FitTable) Check() error {
 	if t.Kind != KindLogit && t.Kind != KindProbability {
 		return fmt.Errorf("fit table: score kind is %q, want logit or probability", t.Kind)
@@ -70,19 +65,19 @@ func (t *FitTable) Check() error {
 		return fmt.Errorf("fit table: %d scores but %d labels", len(t.Scores), len(t.Positive))
 	}
 	if len(t.Scores) == 0 {
-		return midsag.Rejectf(ReasonBadTable, "the table has no rows")
+		return midsag.Rejectf(midsag.ReasonBadTable, "the table has no rows")
 	}
 	for i, s := range t.Scores {
 		if !finite(s) {
-			return midsag.Rejectf(ReasonBadTable, "row %d: score %v is not finite", i+1, s)
+			return midsag.Rejectf(midsag.ReasonBadTable, "row %d: score %v is not finite", i+1, s)
 		}
 		// Temperature and Platt scaling fit on logit(p), infinite at 0 and 1.
 		if t.Kind == KindProbability && !(s > 0 && s < 1) {
-			return midsag.Rejectf(ReasonBadTable, "row %d: probability score %v is not strictly between 0 and 1", i+1, s)
+			return midsag.Rejectf(midsag.ReasonBadTable, "row %d: probability score %v is not strictly between 0 and 1", i+1, s)
 		}
 	}
 	if pi := t.Prevalence(); pi == 0 || pi == 1 {
-		return midsag.Rejectf(ReasonBadTable, "all %d rows have the same label; calibration needs both classes", len(t.Positive))
+		return midsag.Rejectf(midsag.ReasonBadTable, "all %d rows have the same label; calibration needs both classes", len(t.Positive))
 	}
 	return nil
 }
@@ -90,7 +85,7 @@ func (t *FitTable) Check() error {
 // Fit fits a calibrator of the given method (MethodTemperature,
 // MethodPlatt or MethodIsotonic) on the table. A targetPrevalence in
 // (0,1) adds a prior shift from the table's prevalence to it; 0 adds none.
-// Table problems carry ReasonBadTable.
+// Table problems carry midsag.ReasonBadTable.
 func Fit(method string, t *FitTable, targetPrevalence float64) (CalibrationSpec, error) {
 	if err := t.Check(); err != nil {
 		return CalibrationSpec{}, err
@@ -131,7 +126,7 @@ func Fit(method string, t *FitTable, targetPrevalence float64) (CalibrationSpec,
 // without intercept and so convex: Newton converges from β = 1 without
 // the local minima a search on T or log T could meet. Scores that do not
 // rise with the positive class (β ≤ 0) or separate the classes perfectly
-// (β → ∞) have no finite positive T and are refused with ReasonBadTable.
+// (β → ∞) have no finite positive T and are refused with midsag.ReasonBadTable.
 func FitTemperature(f []float64, positive []bool) (float64, error) {
 	nll := func(beta float64) float64 {
 		s := 0.0
@@ -155,7 +150,7 @@ func FitTemperature(f []float64, positive []bool) (float64, error) {
 			break
 		}
 		if !(h > 0) {
-			return 0, midsag.Rejectf(ReasonBadTable, "temperature scaling: the NLL is flat in 1/T (every score is 0, or the classes are separated)")
+			return 0, midsag.Rejectf(midsag.ReasonBadTable, "temperature scaling: the NLL is flat in 1/T (every score is 0, or the classes are separated)")
 		}
 		step := -g / h
 		// Backtracking with the Armijo constant 1e-4, as in Lin, Lin and
@@ -172,11 +167,11 @@ func FitTemperature(f []float64, positive []bool) (float64, error) {
 			break
 		}
 		if beta > 1e6 {
-			return 0, midsag.Rejectf(ReasonBadTable, "temperature scaling: the scores separate the classes perfectly, so T goes to 0")
+			return 0, midsag.Rejectf(midsag.ReasonBadTable, "temperature scaling: the scores separate the classes perfectly, so T goes to 0")
 		}
 	}
 	if !(beta > 0) {
-		return 0, midsag.Rejectf(ReasonBadTable, "temperature scaling: the scores fall as the positive class rises (best 1/T = %.4g), so no T > 0 fits", beta)
+		return 0, midsag.Rejectf(midsag.ReasonBadTable, "temperature scaling: the scores fall as the positive class rises (best 1/T = %.4g), so no T > 0 fits", beta)
 	}
 	return 1 / beta, nil
 }

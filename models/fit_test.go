@@ -274,14 +274,14 @@ func TestFitRefusesBadTables(t *testing.T) {
 	} {
 		if _, err := Fit(MethodPlatt, tab, 0); err == nil {
 			t.Errorf("%s: no error", name)
-		} else if r, _ := midsag.ReasonOf(err); r != ReasonBadTable {
-			t.Errorf("%s: reason %q (%v), want %s", name, r, err, ReasonBadTable)
+		} else if r, _ := midsag.ReasonOf(err); r != midsag.ReasonBadTable {
+			t.Errorf("%s: reason %q (%v), want %s", name, r, err, midsag.ReasonBadTable)
 		}
 	}
 	// Scores that fall as the label rises leave no T > 0.
 	_, err := FitTemperature([]float64{2, 1, -1, -2}, []bool{false, false, true, true})
-	if r, _ := midsag.ReasonOf(err); r != ReasonBadTable {
-		t.Errorf("anti-correlated temperature fit: %v, want %s", err, ReasonBadTable)
+	if r, _ := midsag.ReasonOf(err); r != midsag.ReasonBadTable {
+		t.Errorf("anti-correlated temperature fit: %v, want %s", err, midsag.ReasonBadTable)
 	}
 }
 

@@ -185,15 +185,15 @@ func diagnose(spec models.CalibrationSpec, cal models.Calibrator, ft *models.Fit
 
 // readCalibrationTable parses a CSV table with a header row and returns
 // the header, the data rows and the scores and labels. Table problems
-// carry models.ReasonBadTable.
+// carry midsag.ReasonBadTable.
 func readCalibrationTable(data []byte, scoreCol, labelCol, positive, kind string) ([]string, [][]string, *models.FitTable, error) {
 	r := csv.NewReader(bytes.NewReader(data))
 	records, err := r.ReadAll()
 	if err != nil {
-		return nil, nil, nil, midsag.Reject(models.ReasonBadTable, "the table is not valid CSV", err)
+		return nil, nil, nil, midsag.Reject(midsag.ReasonBadTable, "the table is not valid CSV", err)
 	}
 	if len(records) < 2 {
-		return nil, nil, nil, midsag.Rejectf(models.ReasonBadTable, "the table needs a header row and at least one data row")
+		return nil, nil, nil, midsag.Rejectf(midsag.ReasonBadTable, "the table needs a header row and at least one data row")
 	}
 	header := records[0]
 	col := func(name string) (int, error) {
@@ -202,7 +202,7 @@ func readCalibrationTable(data []byte, scoreCol, labelCol, positive, kind string
 				return i, nil
 			}
 		}
-		return -1, midsag.Rejectf(models.ReasonBadTable, "no column %q in the header %q", name, header)
+		return -1, midsag.Rejectf(midsag.ReasonBadTable, "no column %q in the header %q", name, header)
 	}
 	si, err := col(scoreCol)
 	if err != nil {
@@ -219,10 +219,10 @@ func readCalibrationTable(data []byte, scoreCol, labelCol, positive, kind string
 		s := strings.TrimSpace(rec[si])
 		v, err := strconv.ParseFloat(s, 64)
 		if err != nil {
-			return nil, nil, nil, midsag.Rejectf(models.ReasonBadTable, "line %d: score %q in column %q is not a number", line, s, scoreCol)
+			return nil, nil, nil, midsag.Rejectf(midsag.ReasonBadTable, "line %d: score %q in column %q is not a number", line, s, scoreCol)
 		}
 		if kind == models.KindProbability && !(v > 0 && v < 1) {
-			return nil, nil, nil, midsag.Rejectf(models.ReasonBadTable, "line %d: probability score %v is not strictly between 0 and 1 (is the score a logit? see --score-kind)", line, v)
+			return nil, nil, nil, midsag.Rejectf(midsag.ReasonBadTable, "line %d: probability score %v is not strictly between 0 and 1 (is the score a logit? see --score-kind)", line, v)
 		}
 		label := strings.TrimSpace(rec[li])
 		seen[label] = true
@@ -230,10 +230,10 @@ func readCalibrationTable(data []byte, scoreCol, labelCol, positive, kind string
 		ft.Positive = append(ft.Positive, label == positive)
 	}
 	if !seen[positive] {
-		return nil, nil, nil, midsag.Rejectf(models.ReasonBadTable, "the positive label %q never occurs in column %q (values seen: %s)", positive, labelCol, sortedKeys(seen))
+		return nil, nil, nil, midsag.Rejectf(midsag.ReasonBadTable, "the positive label %q never occurs in column %q (values seen: %s)", positive, labelCol, sortedKeys(seen))
 	}
 	if len(seen) == 1 {
-		return nil, nil, nil, midsag.Rejectf(models.ReasonBadTable, "every row of column %q is %q; calibration needs both classes", labelCol, positive)
+		return nil, nil, nil, midsag.Rejectf(midsag.ReasonBadTable, "every row of column %q is %q; calibration needs both classes", labelCol, positive)
 	}
 	if err := ft.Check(); err != nil {
 		return nil, nil, nil, err
@@ -256,7 +256,7 @@ func sortedKeys(set map[string]bool) string {
 func writeCalibratedTable(path string, header []string, rows [][]string, calibrated []float64) error {
 	for _, h := range header {
 		if strings.TrimSpace(h) == "calibrated" {
-			return midsag.Rejectf(models.ReasonBadTable, "the table already has a column \"calibrated\"; --out would hide it")
+			return midsag.Rejectf(midsag.ReasonBadTable, "the table already has a column \"calibrated\"; --out would hide it")
 		}
 	}
 	var b bytes.Buffer
