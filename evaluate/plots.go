@@ -312,9 +312,9 @@ func decisionPlot(s *Summary) (*plot.Plot, error) {
 		p.Legend.Add(l.name, line)
 	}
 	// Treat-all falls without bound as the threshold rises; show the range
-	// where the curves can be compared.
+	// where the curves can be compared, with headroom for the legend.
 	p.X.Min, p.X.Max = 0, 1
-	p.Y.Min, p.Y.Max = -0.05, s.Prevalence+0.05
+	p.Y.Min, p.Y.Max = -0.05, s.Prevalence*1.35+0.05
 	p.Legend.Top = true
 	return p, nil
 }

@@ -1,6 +1,7 @@
 package evaluate
 
 import (
+	"encoding/json"
 	"fmt"
 	"math"
 	"sort"
@@ -12,6 +13,20 @@ type ROCPoint struct {
 	Threshold float64 `json:"threshold"`
 	FPR       float64 `json:"fpr"`
 	TPR       float64 `json:"tpr"`
+}
+
+// MarshalJSON writes the threshold of the first point, +Inf, as null,
+// which JSON can carry.
+func (p ROCPoint) MarshalJSON() ([]byte, error) {
+	var th *float64
+	if !math.IsInf(p.Threshold, 0) {
+		th = &p.Threshold
+	}
+	return json.Marshal(struct {
+		Threshold *float64 `json:"threshold"`
+		FPR       float64  `json:"fpr"`
+		TPR       float64  `json:"tpr"`
+	}{th, p.FPR, p.TPR})
 }
 
 // ROC returns the empirical ROC curve, one point per distinct score from

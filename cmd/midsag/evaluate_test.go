@@ -1,0 +1,132 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/midsag/midsag"
+)
+
+func writeTemp(t *testing.T, dir, name, body string) string {
+	t.Helper()
+	p := filepath.Join(dir, name)
+	if err := os.WriteFile(p, []byte(body), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+// TestEvaluateJoinJSONAndReport runs the verb on a small hand-made scores
+// file joined with a labels file on an id, with one empty score and one id
+// without a label. Expected figures are hand counts (stated beside each
+// check); the outside-reference checks live in evaluate/reference_test.go.
+func TestEvaluateJoinJSONAndReport(t *testing.T) {
+	dir := t.TempDir()
+	scores := "id,score,other,reader\n" +
+		"a,0.9,0.8,1\nb,0.8,0.3,1\nc,0.7,0.75,0\nd,0.35,0.2,0\ne,0.6,0.65,1\nf,0.3,0.1,0\n" +
+		"g,0.2,0.4,0\nh,0.65,0.2,1\ni,0.1,0.3,0\nj,0.4,0.45,1\nk,,0.5,1\nz,0.5,0.5,1\n"
+	labels := "id,truth\na,yes\nb,yes\nc,no\nd,yes\ne,yes\nf,no\ng,no\nh,no\ni,no\nj,yes\nk,yes\n"
+	tp, lp := writeTemp(t, dir, "scores.csv", scores), writeTemp(t, dir, "labels.csv", labels)
+	rep := filepath.Join(dir, "report")
+	var out, errb bytes.Buffer
+	code := run(context.Background(), []string{"evaluate", "--table", tp, "--labels", lp, "--id-col", "id",
+		"--label-col", "truth", "--positive", "yes", "--score-col", "score", "--compare-col", "other",
+		"--reader-col", "reader", "--threshold", "0.5", "--bootstrap", "200", "--seed", "4", "--report", rep, "--json"}, &out, &errb)
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	var got struct {
+		N         int            `json:"n"`
+		NPositive int            `json:"n_positive"`
+		Excluded  map[string]int `json:"excluded"`
+		AUC       struct {
+			Value float64    `json:"value"`
+			CI95  [2]float64 `json:"ci95"`
+		} `json:"auc"`
+		Compare struct {
+			PValue *float64 `json:"p_value"`
+		} `json:"compare"`
+		OperatingPoint struct {
+			Rule      string         `json:"rule"`
+			Confusion map[string]int `json:"confusion"`
+		} `json:"operating_point"`
+		Reader      map[string]any `json:"reader"`
+		Calibration map[string]any `json:"calibration"`
+		Notice      string         `json:"notice"`
+	}
+	if err := json.Unmarshal(out.Bytes(), &got); err != nil {
+		t.Fatalf("%v\n%s", err, out.String())
+	}
+	// 10 cases: k has an empty score, z has no label.
+	if got.N != 10 || got.NPositive != 5 || got.Excluded["empty_score"] != 1 || got.Excluded["no_label"] != 1 {
+		t.Errorf("n %d, positives %d, excluded %v; want 10, 5, 1 empty_score and 1 no_label", got.N, got.NPositive, got.Excluded)
+	}
+	// Hand count of pairs: of 25 positive-negative pairs the positive
+	// scores higher in 19 (a and b beat all five negatives; d, e and j
+	// each beat f, g and i).
+	if got.AUC.Value != 19.0/25 {
+		t.Errorf("AUC %v, want 0.76", got.AUC.Value)
+	}
+	if c := got.OperatingPoint.Confusion; c["tp"] != 3 || c["fp"] != 2 || c["tn"] != 3 || c["fn"] != 2 || got.OperatingPoint.Rule != "fixed" {
+		t.Errorf("operating point %v %v, want tp 3 fp 2 tn 3 fn 2 at rule fixed", got.OperatingPoint.Rule, c)
+	}
+	if got.Compare.PValue == nil || got.Reader == nil || got.Calibration == nil {
+		t.Errorf("missing compare p, reader or calibration: %s", out.String())
+	}
+	if got.Notice != midsag.Notice {
+		t.Errorf("notice %q", got.Notice)
+	}
+	for _, f := range []string{"report.md", "report.html", "roc.png", "calibration.png", "confusion.png", "decision.png"} {
+		b, err := os.ReadFile(filepath.Join(rep, f))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if strings.HasPrefix(f, "report") && !strings.Contains(string(b), "RESEARCH USE ONLY") {
+			t.Errorf("%s lacks the research-use notice", f)
+		}
+	}
+	html, _ := os.ReadFile(filepath.Join(rep, "report.html"))
+	if n := strings.Count(string(html), "data:image/png;base64,"); n != 4 {
+		t.Errorf("report.html embeds %d PNGs, want 4", n)
+	}
+}
+
+// TestEvaluateRefusals checks the stated rules for bad tables: exit 3 with
+// reason bad_table naming the line, and no report written.
+func TestEvaluateRefusals(t *testing.T) {
+	cases := []struct{ name, table, want string }{
+		{"non-numeric score", "y,s\n1,0.2\n0,abc\n", "line 3"},
+		{"third label", "y,s\n1,0.2\n0,0.3\n2,0.4\n", "third value"},
+		{"one class", "y,s\n1,0.2\n1,0.3\n", "AUC undefined"},
+		{"missing column", "y,score\n1,0.2\n", `no column "s"`},
+		{"infinite score", "y,s\n1,Inf\n0,0.1\n", "not a finite number"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			dir := t.TempDir()
+			p := writeTemp(t, dir, "t.csv", c.table)
+			var out, errb bytes.Buffer
+			code := run(context.Background(), []string{"evaluate", "--table", p, "--score-col", "s", "--label-col", "y",
+				"--positive", "1", "--report", filepath.Join(dir, "rep")}, &out, &errb)
+			if code != exitRejected || !strings.Contains(errb.String(), "bad_table") || !strings.Contains(errb.String(), c.want) {
+				t.Errorf("exit %d, stderr %q; want 3, bad_table and %q", code, errb.String(), c.want)
+			}
+			if _, err := os.Stat(filepath.Join(dir, "rep")); err == nil {
+				t.Errorf("a report folder was written for a refused table")
+			}
+		})
+	}
+}
+
+func TestEvaluateUsage(t *testing.T) {
+	var out, errb bytes.Buffer
+	if code := run(context.Background(), []string{"evaluate", "--table", "x.csv", "--score-col", "s", "--label-col", "y",
+		"--positive", "1", "--threshold", "0.5", "--target-sensitivity", "0.9"}, &out, &errb); code != exitUsage {
+		t.Errorf("exit %d, want 2 for --threshold with --target-sensitivity", code)
+	}
+}
