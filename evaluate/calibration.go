@@ -55,6 +55,42 @@ func Reliability(probs []float64, labels []bool) []Bin {
 	return bins
 }
 
+// Diagnostics are the calibration measures midsag calibrate prints
+// before and after a fit.
+type Diagnostics struct {
+	// NLL is the mean negative log-likelihood (log loss), natural log.
+	NLL float64 `json:"nll"`
+	// Brier is the mean squared difference between probability and label
+	// (Brier 1950).
+	Brier float64 `json:"brier"`
+	// ECE is the expected calibration error over ECEBins equal-width bins.
+	ECE float64 `json:"ece"`
+}
+
+// Diagnose returns NLL, Brier score and ECE of probs against labels.
+func Diagnose(probs []float64, labels []bool) Diagnostics {
+	return Diagnostics{NLL: LogLoss(probs, labels), Brier: Brier(probs, labels), ECE: ECE(probs, labels)}
+}
+
+// nllClip keeps log loss finite for a probability of exactly 0 or 1: it
+// is float64 machine epsilon, as scikit-learn 1.2's log_loss(eps="auto")
+// clips.
+const nllClip = 0x1p-52
+
+// LogLoss is the mean negative log-likelihood of the labels under probs.
+func LogLoss(probs []float64, labels []bool) float64 {
+	var s float64
+	for i, q := range probs {
+		c := math.Min(1-nllClip, math.Max(nllClip, q))
+		if labels[i] {
+			s -= math.Log(c)
+		} else {
+			s -= math.Log1p(-c)
+		}
+	}
+	return s / float64(len(probs))
+}
+
 // ECE returns the expected calibration error: the count-weighted mean over
 // the Reliability bins of |mean probability − event rate| (Naeini, Cooper
 // and Hauskrecht 2015).

@@ -15,6 +15,7 @@ import (
 	"strings"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/evaluate"
 	"github.com/midsag/midsag/models"
 )
 
@@ -32,16 +33,16 @@ type calibrateReport struct {
 	Prevalence float64                `json:"prevalence"`
 	Calibrated string                 `json:"calibration_method"`
 	Spec       models.CalibrationSpec `json:"calibration"`
-	Before     models.Diagnostics     `json:"before"`
+	Before     evaluate.Diagnostics   `json:"before"`
 	// After is measured with the fitted calibrator alone; a prior shift
 	// aims at another population, so on the fitting table it only adds
 	// error and is measured apart in AfterPriorShift.
-	After           models.Diagnostics  `json:"after"`
-	AfterPriorShift *models.Diagnostics `json:"after_prior_shift,omitempty"`
-	ECEBinning      string              `json:"ece_binning"`
-	Out             string              `json:"out,omitempty"`
-	Sidecar         string              `json:"sidecar,omitempty"`
-	Notice          string              `json:"notice"`
+	After           evaluate.Diagnostics  `json:"after"`
+	AfterPriorShift *evaluate.Diagnostics `json:"after_prior_shift,omitempty"`
+	ECEBinning      string                `json:"ece_binning"`
+	Out             string                `json:"out,omitempty"`
+	Sidecar         string                `json:"sidecar,omitempty"`
+	Notice          string                `json:"notice"`
 }
 
 func runCalibrate(_ context.Context, args []string, stdout, stderr io.Writer) error {
@@ -154,8 +155,8 @@ func diagnose(spec models.CalibrationSpec, cal models.Calibrator, ft *models.Fit
 		Prevalence: ft.Prevalence(),
 		Calibrated: cal.Method(),
 		Spec:       spec,
-		Before:     models.Diagnose(p, ft.Positive),
-		ECEBinning: fmt.Sprintf("%d equal-width bins on the positive-class probability, weighted by bin count", models.ECEBins),
+		Before:     evaluate.Diagnose(p, ft.Positive),
+		ECEBinning: fmt.Sprintf("%d equal-width bins on the positive-class probability, weighted by bin count", evaluate.ECEBins),
 		Notice:     midsag.Notice,
 	}
 	for _, y := range ft.Positive {
@@ -164,7 +165,7 @@ func diagnose(spec models.CalibrationSpec, cal models.Calibrator, ft *models.Fit
 		}
 	}
 	if spec.PriorShift == nil {
-		rep.After = models.Diagnose(calibrated, ft.Positive)
+		rep.After = evaluate.Diagnose(calibrated, ft.Positive)
 		return rep, calibrated, nil
 	}
 	unshifted := spec
@@ -177,8 +178,8 @@ func diagnose(spec models.CalibrationSpec, cal models.Calibrator, ft *models.Fit
 	for i, q := range p {
 		before[i] = base.Calibrate(q)
 	}
-	rep.After = models.Diagnose(before, ft.Positive)
-	shifted := models.Diagnose(calibrated, ft.Positive)
+	rep.After = evaluate.Diagnose(before, ft.Positive)
+	shifted := evaluate.Diagnose(calibrated, ft.Positive)
 	rep.AfterPriorShift = &shifted
 	return rep, calibrated, nil
 }
@@ -339,7 +340,7 @@ func printCalibrateSummary(w io.Writer, r *calibrateReport) {
 		fmt.Fprintf(w, "prior shift  prevalence %.4g -> %.4g\n", ps.TrainPrevalence, ps.TargetPrevalence)
 	}
 	fmt.Fprintf(w, "\n%-22s %10s %10s %10s\n", "", "NLL", "Brier", "ECE")
-	row := func(name string, d models.Diagnostics) {
+	row := func(name string, d evaluate.Diagnostics) {
 		fmt.Fprintf(w, "%-22s %10.5f %10.5f %10.5f\n", name, d.NLL, d.Brier, d.ECE)
 	}
 	row("before", r.Before)

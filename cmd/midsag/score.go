@@ -131,6 +131,12 @@ func writeFileAtomic(path string, data []byte) error {
 	if err != nil {
 		return err
 	}
+	// CreateTemp makes the file owner-only; outputs are ordinary files.
+	if err := tmp.Chmod(0o644); err != nil {
+		tmp.Close()
+		os.Remove(tmp.Name())
+		return err
+	}
 	if _, err := tmp.Write(data); err != nil {
 		tmp.Close()
 		os.Remove(tmp.Name())
