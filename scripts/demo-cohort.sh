@@ -6,7 +6,8 @@
 #
 # writes DIR/study-NNNN/ and DIR/labels.csv (midsag phantom) and
 # DIR/scores.csv with study_instance_uid,raw_output,probability,
-# calibrated_probability,decision. With --reader it adds a column "reader":
+# calibrated_probability,decision,label (label copied from labels.csv, so
+# the table also serves as a validation table for midsag calibrate). With --reader it adds a column "reader":
 # a SIMULATED reader who is right with probability 0.85 on each study,
 # seeded. That column is invented data for the demo only, not a person.
 # Research use only; phantoms mean nothing for a real patient.
@@ -38,7 +39,7 @@ with open(labels_path) as f:
         truth[uid] = label
 rng = random.Random(seed)
 cols = ["study_instance_uid", "raw_output", "probability", "calibrated_probability", "decision"]
-print(",".join(cols + (["reader"] if reader else [])))
+print(",".join(cols + ["label"] + (["reader"] if reader else [])))
 text, dec, pos = sys.stdin.read(), json.JSONDecoder(), 0
 while True:
     while pos < len(text) and text[pos].isspace():
@@ -46,10 +47,10 @@ while True:
     if pos >= len(text):
         break
     r, pos = dec.raw_decode(text, pos)
-    row = [str(r[c]) for c in cols]
+    label = truth[r["study_instance_uid"]]
+    row = [str(r[c]) for c in cols] + [label]
     if reader:
         right = rng.random() < 0.85  # simulated reader: right with probability 0.85
-        label = truth[r["study_instance_uid"]]
         row.append(label if right else str(1 - int(label)))
     print(",".join(row))
 ' "$reader" "$seed" "$dir/labels.csv" > "$tmp"
