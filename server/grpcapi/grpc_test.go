@@ -2,6 +2,8 @@ package grpcapi
 
 import (
 	"context"
+	"errors"
+	"io"
 	"net"
 	"testing"
 	"time"
@@ -56,6 +58,11 @@ func sendStudy(ctx context.Context, c midsagv1.StudyScoringClient, opts *midsagv
 			end := min(off+chunk, len(f.Data))
 			msg := &midsagv1.InstanceChunk{Data: f.Data[off:end], EndOfInstance: end == len(f.Data)}
 			if err := st.Send(&midsagv1.ScoreStudyRequest{Part: &midsagv1.ScoreStudyRequest_Chunk{Chunk: msg}}); err != nil {
+				// io.EOF means the server ended the stream; its status
+				// comes from the receive side (grpc-go ClientStream.SendMsg).
+				if errors.Is(err, io.EOF) {
+					return st.CloseAndRecv()
+				}
 				return nil, err
 			}
 		}
