@@ -32,6 +32,15 @@ type Model interface {
 	Interpret(raw float64) Score
 }
 
+// Explainer explains a model's score of a prepared input, for example
+// with an occlusion map. explain.Occlusion implements it.
+type Explainer interface {
+	// Explain returns the explanation of raw, the model's output for
+	// prep.Input; instances are the study's instances, for the geometry
+	// of the stacked slices.
+	Explain(ctx context.Context, m Model, prep *Prepared, instances []*Instance, raw float64) (*Explanation, error)
+}
+
 // Source is one input stream: a file, a zip entry, an upload part or a
 // received dataset.
 type Source struct {
@@ -44,6 +53,8 @@ type Source struct {
 type Pipeline struct {
 	Pre   Preprocessor
 	Model Model
+	// Explainer, when set, adds an Explanation to every result.
+	Explainer Explainer
 	// Now and NewID default to time.Now and a random 128-bit hex id.
 	Now   func() time.Time
 	NewID func() string
@@ -154,6 +165,15 @@ func (p *Pipeline) Score(ctx context.Context, instances []*Instance) (*Result, e
 	}
 	timings["predict"] = predictMS
 	timings["calibrate"] = ms(time.Since(t1))
+	var expl *Explanation
+	if p.Explainer != nil {
+		t2 := time.Now()
+		expl, err = p.Explainer.Explain(ctx, p.Model, prep, instances, raw[0])
+		if err != nil {
+			return nil, fmt.Errorf("explain: %w", err)
+		}
+		timings["explain"] = ms(time.Since(t2))
+	}
 	timings["total"] = ms(now().Sub(start))
 
 	flags := append([]string{}, prep.QualityFlags...)
@@ -177,6 +197,7 @@ func (p *Pipeline) Score(ctx context.Context, instances []*Instance) (*Result, e
 		Threshold:            sc.Threshold,
 		Decision:             sc.Decision,
 		QualityFlags:         flags,
+		Explanation:          expl,
 		Notice:               Notice,
 		TimingsMS:            timings,
 	}, nil
