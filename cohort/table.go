@@ -1,0 +1,197 @@
+package cohort
+
+import (
+	"bufio"
+	"bytes"
+	"encoding/csv"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"sort"
+	"strconv"
+
+	"github.com/midsag/midsag"
+)
+
+// Status is a study's outcome in a batch.
+type Status string
+
+// Statuses: scored with a probability; rejected with an input reason
+// code; failed on a runtime error (an I/O error, a model error).
+const (
+	StatusScored   Status = "scored"
+	StatusRejected Status = "rejected"
+	StatusFailed   Status = "failed"
+)
+
+// ReasonError is the reason of a failed row: the message column says more.
+const ReasonError = "error"
+
+// Output file names in a batch's folder.
+const (
+	CSVName   = "results.csv"
+	JSONLName = "results.jsonl"
+)
+
+// Row is one study's line in results.csv and results.jsonl.
+type Row struct {
+	StudyInstanceUID      string   `json:"study_instance_uid"`
+	Status                Status   `json:"status"`
+	Reason                string   `json:"reason"`
+	Message               string   `json:"message"`
+	SeriesInstanceUID     string   `json:"series_instance_uid"`
+	CenterSOPInstanceUID  string   `json:"center_sop_instance_uid"`
+	RawOutput             *float64 `json:"raw_output"`
+	Probability           *float64 `json:"probability"`
+	CalibratedProbability *float64 `json:"calibrated_probability"`
+	Threshold             *float64 `json:"threshold"`
+	Decision              string   `json:"decision"`
+	QualityFlags          []string `json:"quality_flags"`
+	ModelSHA256           string   `json:"model_sha256"`
+	Files                 int      `json:"files"`
+	ElapsedMS             float64  `json:"elapsed_ms"`
+	// Label is set when labels were joined (empty for a study without
+	// one); nil leaves the label column out.
+	Label  *string `json:"label,omitempty"`
+	Notice string  `json:"notice"`
+}
+
+// csvHeader is the column order of results.csv; "label" follows
+// elapsed_ms when labels were joined.
+var csvHeader = []string{"study_instance_uid", "status", "reason", "series_instance_uid", "center_sop_instance_uid",
+	"raw_output", "probability", "calibrated_probability", "threshold", "decision", "quality_flags",
+	"model_sha256", "files", "elapsed_ms", "message", "notice"}
+
+func num(f *float64) string {
+	if f == nil {
+		return ""
+	}
+	return strconv.FormatFloat(*f, 'g', -1, 64)
+}
+
+// WriteTables writes dir/results.csv and dir/results.jsonl from rows,
+// sorted by Study Instance UID, each through a synced temporary file and
+// a rename, so a reader sees the old table or the new one, never a part.
+func WriteTables(dir string, rows []Row) error {
+	rows = append([]Row(nil), rows...)
+	sort.Slice(rows, func(i, j int) bool { return rows[i].StudyInstanceUID < rows[j].StudyInstanceUID })
+	withLabel := false
+	for _, r := range rows {
+		withLabel = withLabel || r.Label != nil
+	}
+	header := append([]string(nil), csvHeader...)
+	if withLabel {
+		header = append(header[:14:14], append([]string{"label"}, csvHeader[14:]...)...)
+	}
+	var cb, jb bytes.Buffer
+	cw := csv.NewWriter(&cb)
+	if err := cw.Write(header); err != nil {
+		return fmt.Errorf("cohort: write table: %w", err)
+	}
+	enc := json.NewEncoder(&jb)
+	enc.SetEscapeHTML(false)
+	for _, r := range rows {
+		flags, _ := json.Marshal(r.QualityFlags)
+		if r.QualityFlags == nil {
+			flags = nil
+		}
+		rec := []string{r.StudyInstanceUID, string(r.Status), r.Reason, r.SeriesInstanceUID, r.CenterSOPInstanceUID,
+			num(r.RawOutput), num(r.Probability), num(r.CalibratedProbability), num(r.Threshold), r.Decision, string(flags),
+			r.ModelSHA256, strconv.Itoa(r.Files), strconv.FormatFloat(r.ElapsedMS, 'f', 1, 64)}
+		if withLabel {
+			label := ""
+			if r.Label != nil {
+				label = *r.Label
+			}
+			rec = append(rec, label)
+		}
+		rec = append(rec, r.Message, r.Notice)
+		if err := cw.Write(rec); err != nil {
+			return fmt.Errorf("cohort: write table: %w", err)
+		}
+		if err := enc.Encode(r); err != nil {
+			return fmt.Errorf("cohort: write table: %w", err)
+		}
+	}
+	cw.Flush()
+	if err := cw.Error(); err != nil {
+		return fmt.Errorf("cohort: write table: %w", err)
+	}
+	if err := writeAtomic(filepath.Join(dir, CSVName), cb.Bytes()); err != nil {
+		return err
+	}
+	return writeAtomic(filepath.Join(dir, JSONLName), jb.Bytes())
+}
+
+// ReadRows reads dir/results.jsonl.
+func ReadRows(dir string) ([]Row, error) {
+	path := filepath.Join(dir, JSONLName)
+	f, err := os.Open(path)
+	if err != nil {
+		if errors.Is(err, fs.ErrNotExist) {
+			return nil, midsag.Reject(midsag.ReasonNoInput, "no batch results in "+dir, err)
+		}
+		return nil, fmt.Errorf("cohort: %w", err)
+	}
+	defer f.Close()
+	var out []Row
+	sc := bufio.NewScanner(f)
+	sc.Buffer(nil, 16<<20)
+	for n := 1; sc.Scan(); n++ {
+		var r Row
+		if err := json.Unmarshal(sc.Bytes(), &r); err != nil {
+			return nil, midsag.Reject(midsag.ReasonBadTable, fmt.Sprintf("%s line %d", path, n), err)
+		}
+		out = append(out, r)
+	}
+	if err := sc.Err(); err != nil {
+		return nil, fmt.Errorf("cohort: read %s: %w", path, err)
+	}
+	return out, nil
+}
+
+// writeAtomic writes data to a synced temporary file beside path, renames
+// it into place and syncs the folder, so the new name survives a crash.
+func writeAtomic(path string, data []byte) error {
+	dir := filepath.Dir(path)
+	tmp, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp*")
+	if err != nil {
+		return fmt.Errorf("cohort: write %s: %w", path, err)
+	}
+	name := tmp.Name()
+	fail := func(err error) error {
+		tmp.Close()
+		os.Remove(name)
+		return fmt.Errorf("cohort: write %s: %w", path, err)
+	}
+	// CreateTemp makes the file owner-only; outputs are ordinary files.
+	if err := tmp.Chmod(0o644); err != nil {
+		return fail(err)
+	}
+	if _, err := tmp.Write(data); err != nil {
+		return fail(err)
+	}
+	if err := tmp.Sync(); err != nil {
+		return fail(err)
+	}
+	if err := tmp.Close(); err != nil {
+		os.Remove(name)
+		return fmt.Errorf("cohort: write %s: %w", path, err)
+	}
+	if err := os.Rename(name, path); err != nil {
+		os.Remove(name)
+		return fmt.Errorf("cohort: write %s: %w", path, err)
+	}
+	d, err := os.Open(dir)
+	if err != nil {
+		return fmt.Errorf("cohort: sync %s: %w", dir, err)
+	}
+	defer d.Close()
+	if err := d.Sync(); err != nil {
+		return fmt.Errorf("cohort: sync %s: %w", dir, err)
+	}
+	return nil
+}
