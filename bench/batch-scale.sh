@@ -47,6 +47,9 @@ fi
 need_kb=$(( (n + small) * 1900 ))
 avail_kb=$(df -Pk "$(dirname "$bench_dir")" | awk 'NR == 2 { print $4 }')
 mkdir -p "$bench_dir"
+# Absolute, since midsag batch (as of d72345c) fails to open OUT/batch.db
+# when --out is a relative path.
+bench_dir=$(cd "$bench_dir" && pwd)
 
 # cohort DIR COUNT writes COUNT phantom studies (seed 5, no decoys) into
 # DIR unless DIR already holds exactly that many.
