@@ -1,0 +1,149 @@
+package cohort
+
+import (
+	"archive/zip"
+	"context"
+	"io"
+	"os"
+	"path/filepath"
+	"sync/atomic"
+	"testing"
+	"time"
+
+	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/phantom"
+	"github.com/midsag/midsag/preprocess"
+)
+
+// countingHeaders counts header reads.
+type countingHeaders struct {
+	pre *preprocess.Preprocessor
+	n   atomic.Int64
+}
+
+func (c *countingHeaders) ReadHeader(name string, r io.Reader, size int64) (*midsag.Instance, error) {
+	c.n.Add(1)
+	return c.pre.ReadHeader(name, r, size)
+}
+
+// TestDiscoverRereadsOnlyChanged checks the header index: a second walk
+// reads no header, a changed file and a new zip archive's entries are the
+// only reads of a third, a removed file leaves the index, and studies are
+// grouped by Study Instance UID whatever the layout (the phantom's truth).
+func TestDiscoverRereadsOnlyChanged(t *testing.T) {
+	root := t.TempDir()
+	truths, err := phantom.Generate(root, phantom.Options{Studies: 4, Seed: 21, NoDecoys: true, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := Open(t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	hr := &countingHeaders{pre: preprocess.New(preprocess.Options{})}
+	ctx := context.Background()
+
+	d1, err := st.Discover(ctx, root, hr, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files := int(hr.n.Load())
+	if d1.Read != files || d1.Studies != 4 || d1.Refused[midsag.ReasonNotDICOM] != 2 { // labels.csv, truth.json
+		t.Fatalf("first walk: %+v after %d reads", d1, files)
+	}
+	uids, err := st.Studies(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, tr := range truths {
+		found := false
+		for _, u := range uids {
+			found = found || u == tr.StudyInstanceUID
+		}
+		if !found {
+			t.Errorf("study %s not discovered", tr.StudyInstanceUID)
+		}
+	}
+
+	hr.n.Store(0)
+	d2, err := st.Discover(ctx, root, hr, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if hr.n.Load() != 0 || d2.Cached != files || d2.Read != 0 {
+		t.Fatalf("unchanged rerun read %d headers: %+v", hr.n.Load(), d2)
+	}
+
+	// Change one file (new mtime), remove one, add a zip of one study's
+	// files under another folder.
+	s0, _ := filepath.Glob(filepath.Join(root, truths[0].Study, "*"))
+	later := time.Now().Add(time.Hour)
+	if err := os.Chtimes(s0[0], later, later); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.Remove(s0[1]); err != nil {
+		t.Fatal(err)
+	}
+	s1, _ := filepath.Glob(filepath.Join(root, truths[1].Study, "*"))
+	zf, err := os.Create(filepath.Join(root, "more.zip"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	zw := zip.NewWriter(zf)
+	for _, f := range s1[:3] {
+		b, _ := os.ReadFile(f)
+		w, _ := zw.Create("copy/" + filepath.Base(f))
+		w.Write(b)
+	}
+	zw.Close()
+	zf.Close()
+
+	hr.n.Store(0)
+	d3, err := st.Discover(ctx, root, hr, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if hr.n.Load() != 4 || d3.Read != 4 || d3.Removed != 1 || d3.Cached != files-2 || d3.Studies != 4 {
+		t.Fatalf("after one change, one removal and a 3-entry zip: %d reads, %+v", hr.n.Load(), d3)
+	}
+	hr.n.Store(0)
+	if d4, err := st.Discover(ctx, root, hr, 2); err != nil || hr.n.Load() != 0 || d4.Cached != files+2 {
+		t.Fatalf("rerun with the zip: %d reads, %+v, %v", hr.n.Load(), d4, err)
+	}
+	sf, err := st.studyFiles(ctx, truths[1].StudyInstanceUID)
+	if err != nil || len(sf) != len(s1)+3 {
+		t.Fatalf("study 1 has %d files (%v), want %d", len(sf), err, len(s1)+3)
+	}
+}
+
+// TestShardFNV1a checks the shard hash against the FNV-1a 64 test vector
+// for "a" (0xaf63dc4c8601ec8c, from the FNV reference by Fowler, Noll and
+// Vo) and that shards partition a set of UIDs.
+func TestShardFNV1a(t *testing.T) {
+	const fnvA = uint64(0xaf63dc4c8601ec8c)
+	for n := 1; n <= 7; n++ {
+		for i := 0; i < n; i++ {
+			if got, want := (Shard{Index: i, Count: n}).Has("a"), fnvA%uint64(n) == uint64(i); got != want {
+				t.Errorf("shard %d/%d has \"a\" = %v, want %v", i, n, got, want)
+			}
+		}
+	}
+	for k := 0; k < 200; k++ {
+		uid := "2.25." + string(rune('0'+k%10)) + string(rune('0'+k/10%10)) + string(rune('0'+k/100))
+		hits := 0
+		for i := 0; i < 3; i++ {
+			if (Shard{Index: i, Count: 3}).Has(uid) {
+				hits++
+			}
+		}
+		if hits != 1 {
+			t.Errorf("%s is in %d of 3 shards", uid, hits)
+		}
+	}
+	for _, bad := range []string{"3/3", "-1/2", "1", "a/b", "0/0"} {
+		if _, err := ParseShard(bad); err == nil {
+			t.Errorf("ParseShard(%q) accepted", bad)
+		}
+	}
+}
