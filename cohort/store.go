@@ -29,7 +29,12 @@ func Open(dir string) (*Store, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("cohort: %w", err)
 	}
-	path := filepath.Join(dir, DBName)
+	// A file: URI needs an absolute path; a relative one does not open.
+	abs, err := filepath.Abs(dir)
+	if err != nil {
+		return nil, fmt.Errorf("cohort: %w", err)
+	}
+	path := filepath.Join(abs, DBName)
 	u := url.URL{Scheme: "file", Path: path}
 	// synchronous=FULL: in WAL mode SQLite then syncs the WAL at every
 	// commit, so a recorded row survives kill -9 and power loss
