@@ -19,7 +19,6 @@ import (
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/cohort"
 	"github.com/midsag/midsag/models"
-	"github.com/midsag/midsag/models/demo"
 	"github.com/midsag/midsag/preprocess"
 )
 
@@ -120,21 +119,11 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 // cores. With --threads T, runs are bounded to cores/T so T x runs stays
 // within the cores.
 func loadBatchModel(mf *modelFlags, workers int) (*models.Model, error) {
-	lib, err := models.FindLibrary(mf.ortLib)
-	if err != nil {
-		return nil, err
-	}
-	if err := models.Init(lib); err != nil {
-		return nil, fmt.Errorf("start ONNX Runtime from %s: %w", lib, err)
-	}
 	opts := models.Options{IntraOpThreads: 1, MaxConcurrent: min(workers, runtime.NumCPU())}
 	if mf.threads > 0 {
 		opts = models.Options{IntraOpThreads: mf.threads, MaxConcurrent: max(1, runtime.NumCPU()/mf.threads)}
 	}
-	if mf.model == "" {
-		return models.LoadBytes(demo.Name, demo.ONNX, nil, opts)
-	}
-	return models.Load(mf.model, opts)
+	return mf.loadWith(opts)
 }
 
 // progress shows a bar with count, rate and ETA on a terminal, and

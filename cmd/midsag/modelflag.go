@@ -21,8 +21,14 @@ func (m *modelFlags) register(fs *flag.FlagSet) {
 	fs.IntVar(&m.threads, "threads", 0, "ONNX Runtime intra-op threads (0 = all cores)")
 }
 
-// load finds and initialises ONNX Runtime, then loads the model.
+// load finds and initialises ONNX Runtime, then loads the model with
+// --threads intra-op threads and one run at a time.
 func (m *modelFlags) load() (*models.Model, error) {
+	return m.loadWith(models.Options{IntraOpThreads: m.threads})
+}
+
+// loadWith is load with explicit session options.
+func (m *modelFlags) loadWith(opts models.Options) (*models.Model, error) {
 	lib, err := models.FindLibrary(m.ortLib)
 	if err != nil {
 		return nil, err
@@ -30,7 +36,6 @@ func (m *modelFlags) load() (*models.Model, error) {
 	if err := models.Init(lib); err != nil {
 		return nil, fmt.Errorf("start ONNX Runtime from %s: %w", lib, err)
 	}
-	opts := models.Options{IntraOpThreads: m.threads}
 	if m.model == "" {
 		return models.LoadBytes(demo.Name, demo.ONNX, nil, opts)
 	}
