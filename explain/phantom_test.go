@@ -272,4 +272,3 @@ func TestCoarseToFineFidelity(t *testing.T) {
 		}
 	}
 }
-

@@ -11,6 +11,7 @@ import (
 	"strings"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/preprocess"
 )
 
@@ -26,6 +27,7 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	asJSON := fs.Bool("json", false, "print the result (or the refusal) as JSON")
 	out := fs.String("out", "", "also write result.json into this `folder`")
 	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
+	withExplain := fs.Bool("explain", false, "add an occlusion map to the result; with --out also write heatmap.png and heatmap.dcm")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -33,13 +35,22 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		fs.Usage()
 		return usagef("score needs at least one PATH")
 	}
-	res, err := scoreStudy(ctx, &mf, *lenient, fs.Args())
+	var expl midsag.Explainer
+	if *withExplain {
+		expl = explain.New(explain.Options{})
+	}
+	res, err := scoreStudyWith(ctx, &mf, *lenient, expl, fs.Args())
 	if err != nil {
 		return reportRejection(err, *asJSON, stderr)
 	}
 	if *out != "" {
 		if err := writeJSONFile(filepath.Join(*out, "result.json"), res); err != nil {
 			return err
+		}
+		if res.Explanation != nil {
+			if err := writeHeatmaps(*out, res); err != nil {
+				return err
+			}
 		}
 	}
 	if *asJSON {
@@ -49,8 +60,31 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	return nil
 }
 
+// writeHeatmaps writes the explanation as heatmap.png and as the DICOM
+// Secondary Capture heatmap.dcm into dir.
+func writeHeatmaps(dir string, res *midsag.Result) error {
+	png, err := explain.Heatmap(res)
+	if err != nil {
+		return err
+	}
+	if err := writeFileAtomic(filepath.Join(dir, "heatmap.png"), png); err != nil {
+		return err
+	}
+	dcm, err := explain.SecondaryCapture(res, explain.SCOptions{})
+	if err != nil {
+		return err
+	}
+	return writeFileAtomic(filepath.Join(dir, "heatmap.dcm"), dcm)
+}
+
 // scoreStudy runs the one Pipeline on the given paths.
 func scoreStudy(ctx context.Context, mf *modelFlags, lenient bool, paths []string) (*midsag.Result, error) {
+	return scoreStudyWith(ctx, mf, lenient, nil, paths)
+}
+
+// scoreStudyWith runs the one Pipeline on the given paths with an
+// Explainer, which may be nil.
+func scoreStudyWith(ctx context.Context, mf *modelFlags, lenient bool, expl midsag.Explainer, paths []string) (*midsag.Result, error) {
 	sources, closeSources, err := collectSources(paths)
 	if err != nil {
 		return nil, err
@@ -61,7 +95,7 @@ func scoreStudy(ctx context.Context, mf *modelFlags, lenient bool, paths []strin
 		return nil, err
 	}
 	defer model.Close()
-	p := &midsag.Pipeline{Pre: preprocess.New(preprocess.Options{Lenient: lenient}), Model: model}
+	p := &midsag.Pipeline{Pre: preprocess.New(preprocess.Options{Lenient: lenient}), Model: model, Explainer: expl}
 	return p.Run(ctx, sources)
 }
 
