@@ -1,0 +1,53 @@
+package explain
+
+import (
+	"context"
+	"os"
+	"testing"
+
+	"github.com/midsag/midsag/models"
+)
+
+// BenchmarkResNet50 times exhaustive and coarse-to-fine 16 x 16 maps of a
+// ResNet-50-sized model (3 x 512 x 512 in, one logit out; random weights,
+// built offline with torchvision, not committed) on one phantom study,
+// reporting model runs per map. It needs MIDSAG_RESNET50=/path/model.onnx
+// with its sidecar manifest and is skipped without it:
+//
+//	MIDSAG_RESNET50=/tmp/midsag-resnet50.onnx go test -run '^$' -bench ResNet50 -benchtime 1x ./explain
+func BenchmarkResNet50(b *testing.B) {
+	path := os.Getenv("MIDSAG_RESNET50")
+	if path == "" {
+		b.Skip("set MIDSAG_RESNET50 to a ResNet-50-sized ONNX model")
+	}
+	if _, err := os.Stat(path); err != nil {
+		b.Skipf("MIDSAG_RESNET50: %v", err)
+	}
+	needORT(b)
+	m, err := models.Load(path, models.Options{})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer m.Close()
+	c := phantomCases(b, m, 4242, 1)[0]
+	for _, bc := range []struct {
+		name string
+		opts Options
+	}{
+		{"exhaustive", Options{Levels: 1}},
+		{"coarse_to_fine_l3_q0.75", Options{Levels: 3, RefineQuantile: 0.75}},
+		{"coarse_to_fine_l3_q0.875", Options{Levels: 3, RefineQuantile: 0.875}},
+	} {
+		b.Run(bc.name, func(b *testing.B) {
+			var runs int
+			for b.Loop() {
+				mp, err := New(bc.opts).Compute(context.Background(), m, c.prep.Input, c.raw)
+				if err != nil {
+					b.Fatal(err)
+				}
+				runs = mp.Runs + 1
+			}
+			b.ReportMetric(float64(runs), "model_runs")
+		})
+	}
+}
