@@ -261,7 +261,7 @@ func TestCoarseToFineFidelity(t *testing.T) {
 		}
 	}
 	res := measureFidelity(t, m, cases, settings)
-	t.Logf("levels quantile runs overlap(mean,min) spearman(mean,min); exhaustive = 257 runs")
+	t.Logf("levels quantile runs overlap(mean,min) spearman(mean,min) against the exhaustive map")
 	for i, f := range res {
 		t.Logf("%d %.3f %6.1f  %.3f %.3f  %.3f %.3f", f.levels, f.q, f.runs, f.over, f.minOver, f.rs, f.minRS)
 		if f.q < 0.01 && (f.minOver != 1 || f.minRS < 1-1e-12) {
