@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/models"
 	"github.com/midsag/midsag/preprocess"
 	"github.com/midsag/midsag/server/store"
@@ -34,6 +35,13 @@ type Config struct {
 	MaxInstancesPerRequest int
 	Logger                 *slog.Logger
 	Metrics                *Metrics
+	// Explain adds an occlusion map to every job, not only to requests
+	// that ask for one.
+	Explain bool
+	// SendTo, when set, receives the map of every explained result as a
+	// DICOM Secondary Capture (Part 10 bytes), e.g. to C-STORE it back to
+	// the PACS. A failure is logged; the result stands.
+	SendTo func(ctx context.Context, part10 []byte) error
 }
 
 // Core implements Backend: it stores what listeners receive, schedules
@@ -402,5 +410,39 @@ func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
 	}
 	defer release()
 	p := &midsag.Pipeline{Pre: c.cfg.Pre, Model: m, NewID: func() string { return rec.ID }}
-	return p.Run(ctx, sources)
+	if rec.Explain || c.cfg.Explain {
+		p.Explainer = explain.New(explain.Options{})
+	}
+	res, err := p.Run(ctx, sources)
+	if err != nil || res.Explanation == nil {
+		return res, err
+	}
+	// The picture behind the map lives only in memory: render it now.
+	png, err := explain.Heatmap(res)
+	if err != nil {
+		return nil, fmt.Errorf("render heatmap: %w", err)
+	}
+	if err := c.cfg.Store.WriteArtifact(rec.ID, HeatmapPNG, png); err != nil {
+		return nil, err
+	}
+	if c.cfg.SendTo != nil {
+		sc, err := explain.SecondaryCapture(res, explain.SCOptions{})
+		if err == nil {
+			err = c.cfg.SendTo(ctx, sc)
+		}
+		if err != nil {
+			c.log.Error("send heatmap", "result_id", rec.ID, "study_instance_uid", rec.StudyInstanceUID, "err", err)
+		} else {
+			c.log.Info("heatmap sent", "result_id", rec.ID, "study_instance_uid", rec.StudyInstanceUID)
+		}
+	}
+	return res, nil
+}
+
+// HeatmapPNG is the artifact name of an explained result's heatmap.
+const HeatmapPNG = "heatmap.png"
+
+// Artifact returns a file made with a result.
+func (c *Core) Artifact(ctx context.Context, id, name string) ([]byte, error) {
+	return c.cfg.Store.ReadArtifact(id, name)
 }

@@ -89,6 +89,9 @@ type Backend interface {
 	Results(ctx context.Context, q Query) ([]Record, string, error)
 	// Models lists the models that can be named in a ScoreRequest.
 	Models(ctx context.Context) []ModelEntry
+	// Artifact returns a file made with a result, such as "heatmap.png"
+	// for an explained result (store.ErrNotFound if there is none).
+	Artifact(ctx context.Context, id, name string) ([]byte, error)
 }
 
 // HTTPStatus maps a refusal reason to an HTTP status (DESIGN.md: 400, 413,

@@ -53,6 +53,8 @@ type serveFlags struct {
 	tlsCert      string
 	tlsKey       string
 	grace        time.Duration
+	explainAll   bool
+	sendTo       string
 }
 
 func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -78,6 +80,8 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&f.tokenFile, "token-file", "", "`file` of bearer tokens, one per line; when set, REST and gRPC require one")
 	fs.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate `file` for HTTP and gRPC (with --tls-key)")
 	fs.StringVar(&f.tlsKey, "tls-key", "", "TLS key `file`")
+	fs.BoolVar(&f.explainAll, "explain", false, "add an occlusion map to every result (requests can also ask with explain=true)")
+	fs.StringVar(&f.sendTo, "send-to", "", "send each result's map back as a DICOM Secondary Capture by C-STORE to `AE@host:port` (implies --explain)")
 	fs.DurationVar(&f.grace, "shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish; unfinished ones resume at the next start")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -87,6 +91,11 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	if (f.tlsCert == "") != (f.tlsKey == "") {
 		return usagef("--tls-cert and --tls-key go together")
+	}
+	if f.sendTo != "" {
+		if _, _, err := parseAEAddr(f.sendTo); err != nil {
+			return usagef("--send-to: %v", err)
+		}
 	}
 	log := slog.New(slog.NewJSONHandler(stderr, nil))
 	return serve(ctx, &f, log)
@@ -142,9 +151,24 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 	}
 	var core *server.Core
 	metrics := server.NewMetrics(func() float64 { return float64(core.QueueDepth()) }, assocs)
+	var sendTo func(context.Context, []byte) error
+	if f.sendTo != "" {
+		ae, addr, _ := parseAEAddr(f.sendTo)
+		client := &dimse.Client{CallingAE: f.aeTitle, CalledAE: ae, Timeout: 30 * time.Second}
+		sendTo = func(ctx context.Context, part10 []byte) error {
+			statuses, err := client.Store(ctx, addr, [][]byte{part10})
+			if err != nil {
+				return err
+			}
+			if statuses[0] != 0x0000 && statuses[0]&0xF000 != 0xB000 {
+				return fmt.Errorf("C-STORE to %s: status %04X", f.sendTo, statuses[0])
+			}
+			return nil
+		}
+	}
 	core = server.New(server.Config{Store: st, Registry: reg, Pre: preprocess.New(preprocess.Options{}),
 		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances,
-		Logger: log, Metrics: metrics})
+		Logger: log, Metrics: metrics, Explain: f.explainAll || f.sendTo != "", SendTo: sendTo})
 
 	runCtx, stop := context.WithCancel(ctx)
 	defer stop()
@@ -324,4 +348,17 @@ func readyHandler(reg *models.Registry, st *store.Store) http.Handler {
 		}
 		io.WriteString(w, "ready\n")
 	})
+}
+
+// parseAEAddr splits "AE@host:port" into the called AE title and the
+// address; AE titles are at most 16 characters (PS3.5 6.2, AE).
+func parseAEAddr(s string) (string, string, error) {
+	ae, addr, ok := strings.Cut(s, "@")
+	if !ok || ae == "" || len(ae) > 16 {
+		return "", "", fmt.Errorf("%q is not AE@host:port", s)
+	}
+	if _, _, err := net.SplitHostPort(addr); err != nil {
+		return "", "", fmt.Errorf("%q is not AE@host:port: %v", s, err)
+	}
+	return ae, addr, nil
 }

@@ -534,3 +534,60 @@ func TestServeModelsDirReload(t *testing.T) {
 		time.Sleep(50 * time.Millisecond)
 	}
 }
+
+// TestServeExplainSendsSecondaryCapture: with --send-to, a study stored by
+// storescu is scored with an occlusion map, and the map reaches DCMTK's
+// storescp as a Secondary Capture image (SOP Class 1.2.840.10008.5.1.4.1.1.7,
+// checked with dcmdump) in the source study; REST serves the same map as
+// a PNG.
+func TestServeExplainSendsSecondaryCapture(t *testing.T) {
+	scpDir := t.TempDir()
+	scpAddr := freePort(t)
+	scp := exec.Command(testtool.Command(t, "storescp"), "-aet", "NSIL_PACS", "-od", scpDir, portOf(scpAddr))
+	scp.Env = tcpNoDelay()
+	var scpLog bytes.Buffer
+	scp.Stdout, scp.Stderr = &scpLog, &scpLog
+	if err := scp.Start(); err != nil {
+		t.Fatal(err)
+	}
+	defer func() { scp.Process.Kill(); scp.Wait() }()
+	s := startService(t, t.TempDir(), "--send-to", "NSIL_PACS@"+scpAddr)
+	dir := t.TempDir()
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 64, NoDecoys: true, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := exec.Command(testtool.Command(t, "storescu"), "-aec", "MIDSAG", "+sd", "+r", "127.0.0.1", portOf(s.dicom), filepath.Join(dir, truths[0].Study))
+	st.Env = tcpNoDelay()
+	if out, err := st.CombinedOutput(); err != nil {
+		t.Fatalf("storescu: %v %s", err, out)
+	}
+	r := s.waitResult(truths[0].StudyInstanceUID)
+	if r["explanation"] == nil {
+		t.Fatalf("result has no explanation: %v", r)
+	}
+	resp, err := http.Get("http://" + s.http + "/v1/results/" + r["result_id"].(string) + "/heatmap.png")
+	if err != nil {
+		t.Fatal(err)
+	}
+	png, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != 200 || !bytes.HasPrefix(png, []byte("\x89PNG")) {
+		t.Errorf("heatmap.png: %d, %d bytes", resp.StatusCode, len(png))
+	}
+	deadline := time.Now().Add(20 * time.Second)
+	for {
+		files, _ := filepath.Glob(filepath.Join(scpDir, "*"))
+		if len(files) > 0 {
+			out := testtool.Run(t, "dcmdump", "-Un", "+P", "0008,0016", "+P", "0020,000d", files[0])
+			if !bytes.Contains(out, []byte("1.2.840.10008.5.1.4.1.1.7")) || !bytes.Contains(out, []byte(truths[0].StudyInstanceUID)) {
+				t.Errorf("storescp received %s:\n%s", filepath.Base(files[0]), out)
+			}
+			return
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("no Secondary Capture reached storescp; service log:\n%s\nstorescp:\n%s", s.log.String(), scpLog.String())
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+}

@@ -70,7 +70,7 @@ func (f *fakeBackend) Score(_ context.Context, req server.ScoreRequest) (server.
 	}
 	id := fmt.Sprintf("r%d", len(f.records)+1)
 	rec := server.Record{ID: id, StudyInstanceUID: study, Version: 1, Status: server.StatusPending,
-		ModelName: req.Model, CreatedAt: time.Date(2025, 3, 4, 5, 6, 7, 0, time.UTC)}
+		ModelName: req.Model, Explain: req.Explain, CreatedAt: time.Date(2025, 3, 4, 5, 6, 7, 0, time.UTC)}
 	if !req.Async {
 		rec.Status = server.StatusDone
 		rec.FinishedAt = rec.CreatedAt.Add(2 * time.Second)
@@ -84,6 +84,19 @@ func (f *fakeBackend) Score(_ context.Context, req server.ScoreRequest) (server.
 	}
 	f.records[id] = rec
 	return rec, nil
+}
+
+// fakePNG stands in for an explained result's heatmap.
+var fakePNG = []byte("\x89PNG\r\n\x1a\nfake")
+
+// Artifact returns fakePNG for an explained record's heatmap.
+func (f *fakeBackend) Artifact(_ context.Context, id, name string) ([]byte, error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	if rec, ok := f.records[id]; ok && rec.Explain && name == server.HeatmapPNG {
+		return fakePNG, nil
+	}
+	return nil, fmt.Errorf("artifact %s of %s: %w", name, id, store.ErrNotFound)
 }
 
 func (f *fakeBackend) Result(_ context.Context, id string) (server.Record, error) {

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"net/http"
+	"strconv"
 	"strings"
 	"time"
 
@@ -12,6 +13,7 @@ import (
 
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
 	"github.com/midsag/midsag/preprocess"
+	"github.com/midsag/midsag/server"
 )
 
 // openPaths never need a token: probes and the metrics scraper.
@@ -54,14 +56,15 @@ func NewHTTPHandler(ctx context.Context, cfg Config, extra map[string]http.Handl
 
 	mux := http.NewServeMux()
 	routes := map[string]http.Handler{
-		"GET /v1/results/{result_id}":    gw,
-		"GET /v1/results":                gw,
-		"GET /v1/models":                 gw,
-		"POST /v1/studies:score":         http.HandlerFunc(a.score),
-		"POST /dicomweb/studies":         http.HandlerFunc(a.stow),
-		"POST /dicomweb/studies/{study}": http.HandlerFunc(a.stow),
-		"GET /openapi.json":              http.HandlerFunc(serveOpenAPI),
-		"/":                              http.HandlerFunc(a.notFound),
+		"GET /v1/results/{result_id}":             gw,
+		"GET /v1/results/{result_id}/heatmap.png": http.HandlerFunc(a.heatmap),
+		"GET /v1/results":                         gw,
+		"GET /v1/models":                          gw,
+		"POST /v1/studies:score":                  http.HandlerFunc(a.score),
+		"POST /dicomweb/studies":                  http.HandlerFunc(a.stow),
+		"POST /dicomweb/studies/{study}":          http.HandlerFunc(a.stow),
+		"GET /openapi.json":                       http.HandlerFunc(serveOpenAPI),
+		"/":                                       http.HandlerFunc(a.notFound),
 	}
 	for pattern, h := range routes {
 		mux.Handle(pattern, a.tokens.wrap(a, h))
@@ -140,3 +143,16 @@ func (s *statusRecorder) Write(b []byte) (int, error) {
 // Unwrap lets http.ResponseController reach the connection (flush,
 // deadlines) through the recorder.
 func (s *statusRecorder) Unwrap() http.ResponseWriter { return s.ResponseWriter }
+
+// heatmap serves GET /v1/results/{result_id}/heatmap.png: the occlusion
+// map picture of an explained result (404 not_found otherwise).
+func (a *httpAPI) heatmap(w http.ResponseWriter, r *http.Request) {
+	b, err := a.cfg.Backend.Artifact(r.Context(), r.PathValue("result_id"), server.HeatmapPNG)
+	if err != nil {
+		writeError(w, a.cfg.Logger, classify(err))
+		return
+	}
+	w.Header().Set("Content-Type", "image/png")
+	w.Header().Set("Content-Length", strconv.Itoa(len(b)))
+	w.Write(b)
+}

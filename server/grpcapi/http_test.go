@@ -5,6 +5,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"io"
 	"net/http"
 	"net/http/httptest"
 	"net/textproto"
@@ -389,4 +390,47 @@ func slicesContain(s []string, v string) bool {
 		}
 	}
 	return false
+}
+
+// TestHeatmapRoute: GET /v1/results/{id}/heatmap.png serves an explained
+// result's picture as image/png and answers 404 not_found otherwise.
+func TestHeatmapRoute(t *testing.T) {
+	fake := newFake()
+	files := phantomStudy(t)
+	h, err := NewHTTPHandler(context.Background(), Config{Backend: fake}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv := httptest.NewServer(h)
+	defer srv.Close()
+	post := func(q string) string {
+		resp, err := http.Post(srv.URL+"/v1/studies:score"+q, "application/dicom", bytes.NewReader(files[0].Data))
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		var out struct {
+			ResultID string `json:"result_id"`
+		}
+		json.NewDecoder(resp.Body).Decode(&out)
+		return out.ResultID
+	}
+	explained, plain := post("?explain=true"), post("")
+	for _, c := range []struct {
+		id   string
+		code int
+	}{{explained, 200}, {plain, 404}, {"nope", 404}} {
+		resp, err := http.Get(srv.URL + "/v1/results/" + c.id + "/heatmap.png")
+		if err != nil {
+			t.Fatal(err)
+		}
+		body, _ := io.ReadAll(resp.Body)
+		resp.Body.Close()
+		if resp.StatusCode != c.code {
+			t.Errorf("%s: %d, want %d (%s)", c.id, resp.StatusCode, c.code, body)
+		}
+		if c.code == 200 && (resp.Header.Get("Content-Type") != "image/png" || !bytes.Equal(body, fakePNG)) {
+			t.Errorf("heatmap %q %q", resp.Header.Get("Content-Type"), body)
+		}
+	}
 }
