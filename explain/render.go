@@ -76,9 +76,11 @@ func Picture(res *midsag.Result) (*image.RGBA, error) {
 			img.SetRGBA(margin+x, top+y, color.RGBA{R: byte8(r), G: byte8(gg), B: byte8(b), A: 255})
 		}
 	}
-	// The peak cell, outlined in white.
-	s := e.StridePX * scale
-	outline(img, image.Rect(margin+e.PeakCell.Col*s, top+e.PeakCell.Row*s, margin+(e.PeakCell.Col+1)*s, top+(e.PeakCell.Row+1)*s))
+	// The peak cell, outlined in white, when some patch lowered the output.
+	if vmax > 0 {
+		s := e.StridePX * scale
+		outline(img, image.Rect(margin+e.PeakCell.Col*s, top+e.PeakCell.Row*s, margin+(e.PeakCell.Col+1)*s, top+(e.PeakCell.Row+1)*s))
+	}
 
 	white := color.RGBA{255, 255, 255, 255}
 	text(img, margin, margin+11, fmt.Sprintf("Occlusion map (%s, %s baseline, %d runs), p = %.3f", e.Method, e.Baseline, e.ModelRuns, res.CalibratedProb), white)
@@ -91,12 +93,19 @@ func Picture(res *midsag.Result) (*image.RGBA, error) {
 			img.SetRGBA(bx+x, top+y, color.RGBA{R: byte8(c[0] * 255), G: byte8(c[1] * 255), B: byte8(c[2] * 255), A: 255})
 		}
 	}
-	for i := 0; i <= 4; i++ {
+	// With no positive drop there is no scale to show: say so instead of
+	// labelling the bar 0 everywhere.
+	for i := 0; i <= 4 && vmax > 0; i++ {
 		y := top + (ih-1)*(4-i)/4
 		for x := bw; x < bw+4; x++ {
 			img.SetRGBA(bx+x, y, white)
 		}
 		text(img, bx+bw+6, y+4, fmt.Sprintf("%.3g", vmax*float64(i)/4), white)
+	}
+	if vmax <= 0 {
+		for i, line := range []string{"no patch", "lowered the", "probability"} {
+			text(img, bx+bw+6, top+lineHeight*(i+1), line, white)
+		}
 	}
 	for i, l := range []string{"drop in", "calibrated", "probability", "when occluded;", "<= 0 uncoloured"} {
 		text(img, bx+bw+6, top+ih/2+24+i*lineHeight, l, white)

@@ -6,16 +6,18 @@ import (
 	"io"
 	"path/filepath"
 
+	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/phantom"
 )
 
 func init() {
-	register("demo", "make a synthetic study, score it with the bundled demo model, write result.json", runDemo)
+	register("demo", "make a synthetic study, score it with the bundled demo model, write result.json and heatmap.png", runDemo)
 }
 
 func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("demo", "", "Writes one synthetic cervical MRI study (a phantom with decoy series) into\n"+
-		"OUT/study, scores it with the bundled demo model and writes OUT/result.json.", stderr)
+		"OUT/study, scores it with the bundled demo model and writes OUT/result.json with\n"+
+		"an occlusion map, OUT/heatmap.png and OUT/heatmap.dcm.", stderr)
 	var mf modelFlags
 	mf.register(fs)
 	out := fs.String("out", "demo-out", "output `folder`")
@@ -34,12 +36,15 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	}
 	// Score the study's own folder: labels.csv and truth.json beside it
 	// are the phantom's answers, not DICOM.
-	res, err := scoreStudy(ctx, &mf, false, []string{filepath.Join(studyDir, "study-0000")})
+	res, err := scoreStudyWith(ctx, &mf, false, explain.New(explain.Options{}), []string{filepath.Join(studyDir, "study-0000")})
 	if err != nil {
 		return reportRejection(err, *asJSON, stderr)
 	}
 	path := filepath.Join(*out, "result.json")
 	if err := writeJSONFile(path, res); err != nil {
+		return err
+	}
+	if err := writeHeatmaps(*out, res); err != nil {
 		return err
 	}
 	if *asJSON {
@@ -52,6 +57,6 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		truth = "compression at " + t.Level
 	}
 	fmt.Fprintf(stdout, "\nphantom truth: %s; midline slice %d (slab offset %.1f slices)\n", truth, t.CenterIndex+1, t.SlabOffsetSlices)
-	fmt.Fprintf(stdout, "wrote %s and the study under %s\n", path, studyDir)
+	fmt.Fprintf(stdout, "wrote %s, %s and the study under %s\n", path, filepath.Join(*out, "heatmap.png"), studyDir)
 	return nil
 }
