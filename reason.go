@@ -80,3 +80,23 @@ func ReasonOf(err error) (Reason, bool) {
 	}
 	return "", false
 }
+
+// RefusalBody is the JSON form of a refusal: on the CLI's stderr with
+// --json and in every HTTP error body, so clients parse one shape.
+type RefusalBody struct {
+	Error  RefusalDetail `json:"error"`
+	Notice string        `json:"notice"`
+}
+
+// RefusalDetail is the reason code, a sentence, and for series-picking
+// refusals every candidate series with its score and reasons.
+type RefusalDetail struct {
+	Reason           Reason            `json:"reason"`
+	Message          string            `json:"message"`
+	SeriesCandidates []SeriesCandidate `json:"series_candidates,omitempty"`
+}
+
+// NewRefusalBody returns the refusal body with the research-use notice.
+func NewRefusalBody(reason Reason, msg string, candidates []SeriesCandidate) RefusalBody {
+	return RefusalBody{Error: RefusalDetail{Reason: reason, Message: msg, SeriesCandidates: candidates}, Notice: Notice}
+}

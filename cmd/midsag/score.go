@@ -99,16 +99,6 @@ func scoreStudyWith(ctx context.Context, mf *modelFlags, lenient bool, expl mids
 	return p.Run(ctx, sources)
 }
 
-// refusal is the JSON form of an input refusal on stderr.
-type refusal struct {
-	Error struct {
-		Reason           midsag.Reason            `json:"reason"`
-		Message          string                   `json:"message"`
-		SeriesCandidates []midsag.SeriesCandidate `json:"series_candidates,omitempty"`
-	} `json:"error"`
-	Notice string `json:"notice"`
-}
-
 // reportRejection prints an input refusal (as JSON when asked, with the
 // series candidates when there are any) and returns an error whose exit
 // code is 3. Other errors are returned unchanged.
@@ -119,12 +109,7 @@ func reportRejection(err error, asJSON bool, stderr io.Writer) error {
 	}
 	msg := strings.Replace(err.Error(), string(e.Reason)+": ", "", 1)
 	if asJSON {
-		var ref refusal
-		ref.Error.Reason = e.Reason
-		ref.Error.Message = msg
-		ref.Error.SeriesCandidates = e.Candidates
-		ref.Notice = midsag.Notice
-		if perr := printJSON(stderr, ref); perr != nil {
+		if perr := printJSON(stderr, midsag.NewRefusalBody(e.Reason, msg, e.Candidates)); perr != nil {
 			return perr
 		}
 		return &reportedError{err: err, code: exitRejected}

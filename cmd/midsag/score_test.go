@@ -166,7 +166,7 @@ func TestScoreRefusals(t *testing.T) {
 		if out != "" {
 			t.Errorf("%s: stdout not empty: %s", c.name, out)
 		}
-		var ref refusal
+		var ref midsag.RefusalBody
 		if err := json.Unmarshal([]byte(errs), &ref); err != nil {
 			t.Errorf("%s: stderr is not JSON: %v: %s", c.name, err, errs)
 			continue

@@ -138,17 +138,6 @@ func fromStatus(err error) *apiError {
 	return &apiError{reason: reason, msg: strings.TrimPrefix(st.Message(), string(reason)+": ")}
 }
 
-// errorBody is the JSON body of every HTTP error, the same shape the CLI
-// prints on stderr.
-type errorBody struct {
-	Error struct {
-		Reason           midsag.Reason            `json:"reason"`
-		Message          string                   `json:"message"`
-		SeriesCandidates []midsag.SeriesCandidate `json:"series_candidates,omitempty"`
-	} `json:"error"`
-	Notice string `json:"notice"`
-}
-
 // overloadRetryAfter is the Retry-After (seconds) sent with 429: about
 // the time one study takes to score on two cores. Our choice.
 const overloadRetryAfter = "5"
@@ -159,11 +148,7 @@ func writeError(w http.ResponseWriter, log *slog.Logger, ae *apiError) {
 	if ae.cause != nil {
 		log.Error("request failed", "reason", ae.reason, "err", ae.cause)
 	}
-	var body errorBody
-	body.Error.Reason = ae.reason
-	body.Error.Message = ae.msg
-	body.Error.SeriesCandidates = ae.candidates
-	body.Notice = midsag.Notice
+	body := midsag.NewRefusalBody(ae.reason, ae.msg, ae.candidates)
 	if ae.reason == midsag.ReasonOverloaded {
 		w.Header().Set("Retry-After", overloadRetryAfter)
 	}

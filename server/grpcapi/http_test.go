@@ -89,9 +89,9 @@ func writeTemp(t *testing.T, name string, data []byte) string {
 
 // wantRefusal checks a response is the JSON error body with the status
 // and reason given and the research notice.
-func wantRefusal(t *testing.T, r curlResponse, code int, reason midsag.Reason) errorBody {
+func wantRefusal(t *testing.T, r curlResponse, code int, reason midsag.Reason) midsag.RefusalBody {
 	t.Helper()
-	var body errorBody
+	var body midsag.RefusalBody
 	if err := json.Unmarshal(r.body, &body); err != nil {
 		t.Fatalf("status %d, body %q is not the JSON error body: %v", r.code, r.body, err)
 	}
