@@ -106,18 +106,25 @@ func (s *Store) Run(ctx context.Context, opts Options) (*Summary, error) {
 		opts.OnStart(disc, len(todo), nDone)
 	}
 
+	// The tables are streamed from the database in study order, so
+	// writing them needs memory for one row whatever the cohort's size.
 	writeTables := func() error {
-		rows, err := s.rows(context.WithoutCancel(ctx), modelSHA, inShard)
+		tw, err := newTableWriter(s.dir, opts.Labels != nil)
 		if err != nil {
 			return err
 		}
-		if opts.Labels != nil {
-			for i := range rows {
-				l := opts.Labels[rows[i].StudyInstanceUID]
-				rows[i].Label = &l
+		err = s.eachRow(context.WithoutCancel(ctx), modelSHA, inShard, func(r Row) error {
+			if opts.Labels != nil {
+				l := opts.Labels[r.StudyInstanceUID]
+				r.Label = &l
 			}
+			return tw.write(r)
+		})
+		if err != nil {
+			tw.abort()
+			return err
 		}
-		return WriteTables(s.dir, rows)
+		return tw.commit()
 	}
 
 	var (

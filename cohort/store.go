@@ -109,28 +109,29 @@ func (s *Store) done(ctx context.Context, modelSHA string) (map[string]bool, err
 	return out, rows.Err()
 }
 
-// rows returns the recorded rows made with the model for the given
-// studies.
-func (s *Store) rows(ctx context.Context, modelSHA string, studies map[string]bool) ([]Row, error) {
-	q, err := s.db.QueryContext(ctx, `SELECT study, row FROM results WHERE model_sha256 = ?`, modelSHA)
+// eachRow calls fn with each recorded row made with the model for the
+// given studies, in Study Instance UID order.
+func (s *Store) eachRow(ctx context.Context, modelSHA string, studies map[string]bool, fn func(Row) error) error {
+	q, err := s.db.QueryContext(ctx, `SELECT study, row FROM results WHERE model_sha256 = ? ORDER BY study`, modelSHA)
 	if err != nil {
-		return nil, fmt.Errorf("cohort: read results: %w", err)
+		return fmt.Errorf("cohort: read results: %w", err)
 	}
 	defer q.Close()
-	var out []Row
 	for q.Next() {
 		var uid, js string
 		if err := q.Scan(&uid, &js); err != nil {
-			return nil, fmt.Errorf("cohort: read results: %w", err)
+			return fmt.Errorf("cohort: read results: %w", err)
 		}
 		if !studies[uid] {
 			continue
 		}
 		var r Row
 		if err := json.Unmarshal([]byte(js), &r); err != nil {
-			return nil, fmt.Errorf("cohort: decode row of study %s: %w", uid, err)
+			return fmt.Errorf("cohort: decode row of study %s: %w", uid, err)
 		}
-		out = append(out, r)
+		if err := fn(r); err != nil {
+			return err
+		}
 	}
-	return out, q.Err()
+	return q.Err()
 }

@@ -2,7 +2,6 @@ package cohort
 
 import (
 	"bufio"
-	"bytes"
 	"encoding/csv"
 	"encoding/json"
 	"errors"
@@ -82,48 +81,133 @@ func WriteTables(dir string, rows []Row) error {
 	for _, r := range rows {
 		withLabel = withLabel || r.Label != nil
 	}
+	tw, err := newTableWriter(dir, withLabel)
+	if err != nil {
+		return err
+	}
+	for _, r := range rows {
+		if err := tw.write(r); err != nil {
+			tw.abort()
+			return err
+		}
+	}
+	return tw.commit()
+}
+
+// tableWriter streams rows, already in order, into temporary files beside
+// results.csv and results.jsonl and renames them into place on commit, so
+// writing the tables takes memory for one row, not for the cohort.
+type tableWriter struct {
+	dir       string
+	withLabel bool
+	files     [2]*os.File // csv, jsonl
+	cw        *csv.Writer
+	jb        *bufio.Writer
+	enc       *json.Encoder
+}
+
+func newTableWriter(dir string, withLabel bool) (*tableWriter, error) {
+	tw := &tableWriter{dir: dir, withLabel: withLabel}
+	for i, name := range []string{CSVName, JSONLName} {
+		f, err := os.CreateTemp(dir, "."+name+".tmp*")
+		if err != nil {
+			tw.abort()
+			return nil, fmt.Errorf("cohort: write %s: %w", name, err)
+		}
+		tw.files[i] = f
+		// CreateTemp makes the file owner-only; outputs are ordinary files.
+		if err := f.Chmod(0o644); err != nil {
+			tw.abort()
+			return nil, fmt.Errorf("cohort: write %s: %w", name, err)
+		}
+	}
+	tw.cw = csv.NewWriter(bufio.NewWriter(tw.files[0]))
+	tw.jb = bufio.NewWriter(tw.files[1])
+	tw.enc = json.NewEncoder(tw.jb)
+	tw.enc.SetEscapeHTML(false)
 	header := append([]string(nil), csvHeader...)
 	if withLabel {
 		header = append(header[:14:14], append([]string{"label"}, csvHeader[14:]...)...)
 	}
-	var cb, jb bytes.Buffer
-	cw := csv.NewWriter(&cb)
-	if err := cw.Write(header); err != nil {
+	if err := tw.cw.Write(header); err != nil {
+		tw.abort()
+		return nil, fmt.Errorf("cohort: write table: %w", err)
+	}
+	return tw, nil
+}
+
+func (tw *tableWriter) write(r Row) error {
+	flags, _ := json.Marshal(r.QualityFlags)
+	if r.QualityFlags == nil {
+		flags = nil
+	}
+	rec := []string{r.StudyInstanceUID, string(r.Status), r.Reason, r.SeriesInstanceUID, r.CenterSOPInstanceUID,
+		num(r.RawOutput), num(r.Probability), num(r.CalibratedProbability), num(r.Threshold), r.Decision, string(flags),
+		r.ModelSHA256, strconv.Itoa(r.Files), strconv.FormatFloat(r.ElapsedMS, 'f', 1, 64)}
+	if tw.withLabel {
+		label := ""
+		if r.Label != nil {
+			label = *r.Label
+		}
+		rec = append(rec, label)
+	}
+	rec = append(rec, r.Message, r.Notice)
+	if err := tw.cw.Write(rec); err != nil {
 		return fmt.Errorf("cohort: write table: %w", err)
 	}
-	enc := json.NewEncoder(&jb)
-	enc.SetEscapeHTML(false)
-	for _, r := range rows {
-		flags, _ := json.Marshal(r.QualityFlags)
-		if r.QualityFlags == nil {
-			flags = nil
-		}
-		rec := []string{r.StudyInstanceUID, string(r.Status), r.Reason, r.SeriesInstanceUID, r.CenterSOPInstanceUID,
-			num(r.RawOutput), num(r.Probability), num(r.CalibratedProbability), num(r.Threshold), r.Decision, string(flags),
-			r.ModelSHA256, strconv.Itoa(r.Files), strconv.FormatFloat(r.ElapsedMS, 'f', 1, 64)}
-		if withLabel {
-			label := ""
-			if r.Label != nil {
-				label = *r.Label
-			}
-			rec = append(rec, label)
-		}
-		rec = append(rec, r.Message, r.Notice)
-		if err := cw.Write(rec); err != nil {
-			return fmt.Errorf("cohort: write table: %w", err)
-		}
-		if err := enc.Encode(r); err != nil {
-			return fmt.Errorf("cohort: write table: %w", err)
-		}
-	}
-	cw.Flush()
-	if err := cw.Error(); err != nil {
+	if err := tw.enc.Encode(r); err != nil {
 		return fmt.Errorf("cohort: write table: %w", err)
 	}
-	if err := writeAtomic(filepath.Join(dir, CSVName), cb.Bytes()); err != nil {
-		return err
+	return nil
+}
+
+// commit flushes and syncs both files, renames them into place and syncs
+// the folder, so the new tables survive a crash whole or not at all.
+func (tw *tableWriter) commit() error {
+	tw.cw.Flush()
+	err := tw.cw.Error()
+	if err == nil {
+		err = tw.jb.Flush()
 	}
-	return writeAtomic(filepath.Join(dir, JSONLName), jb.Bytes())
+	for _, f := range tw.files {
+		if err == nil {
+			err = f.Sync()
+		}
+	}
+	if err != nil {
+		tw.abort()
+		return fmt.Errorf("cohort: write table: %w", err)
+	}
+	for i, name := range []string{CSVName, JSONLName} {
+		f := tw.files[i]
+		if err := f.Close(); err != nil {
+			tw.abort()
+			return fmt.Errorf("cohort: write %s: %w", name, err)
+		}
+		if err := os.Rename(f.Name(), filepath.Join(tw.dir, name)); err != nil {
+			tw.abort()
+			return fmt.Errorf("cohort: write %s: %w", name, err)
+		}
+	}
+	d, err := os.Open(tw.dir)
+	if err != nil {
+		return fmt.Errorf("cohort: sync %s: %w", tw.dir, err)
+	}
+	defer d.Close()
+	if err := d.Sync(); err != nil {
+		return fmt.Errorf("cohort: sync %s: %w", tw.dir, err)
+	}
+	return nil
+}
+
+// abort removes whatever temporary files are left.
+func (tw *tableWriter) abort() {
+	for _, f := range tw.files {
+		if f != nil {
+			f.Close()
+			os.Remove(f.Name())
+		}
+	}
 }
 
 // ReadRows reads dir/results.jsonl.
