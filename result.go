@@ -104,6 +104,9 @@ type ExplanationPicture struct {
 	Map []float64
 	// Sources are the stacked images, centre first.
 	Sources []ImageRef
+	// Patient identifies the source study's patient for a derived image;
+	// it never reaches JSON (the whole picture is json:"-").
+	Patient PatientStudy
 }
 
 // ImageRef identifies one DICOM image by its SOP Class and Instance UIDs.

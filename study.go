@@ -50,6 +50,11 @@ type Instance struct {
 	RescaleIntercept          float64
 	PlanarConfiguration       int
 
+	// Patient and study identification, kept only so that derived objects
+	// (the heatmap's Secondary Capture) are filed under the same patient
+	// and study. Never logged and never written into a Result.
+	Patient PatientStudy
+
 	// PixelData holds native (uncompressed) pixel data bytes in the byte
 	// order of the transfer syntax; Fragments holds encapsulated frames.
 	PixelData []byte
@@ -75,4 +80,12 @@ type Study struct {
 type Image struct {
 	Rows, Columns int
 	Pix           []float32
+}
+
+// PatientStudy is the Patient and General Study module attributes (PS3.3
+// C.7.1.1, C.7.2.1) a derived image in the same study must repeat.
+type PatientStudy struct {
+	PatientName, PatientID, PatientBirthDate, PatientSex string
+	StudyDate, StudyTime, StudyID, AccessionNumber       string
+	ReferringPhysicianName                               string
 }

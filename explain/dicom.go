@@ -47,8 +47,9 @@ type SCOptions struct {
 // image (PS3.3 A.8.1; RGB, Explicit VR Little Endian) in the result's
 // study and a new series, with the notice in Image Comments (0020,4000)
 // and the stacked source images in Source Image Sequence (0008,2112).
-// Patient Name and ID are left empty (type 2): the result does not carry
-// them.
+// The Patient and General Study attributes are copied from the centre
+// source image (PS3.3 C.7.1.1, C.7.2.1), so a PACS files the map with the
+// study it came from.
 func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 	img, err := Picture(res)
 	if err != nil {
@@ -81,6 +82,7 @@ func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 		}
 	}
 	e := res.Explanation
+	pt := e.Picture.Patient
 	var items [][]element
 	for _, s := range e.Picture.Sources {
 		items = append(items, []element{
@@ -96,26 +98,26 @@ func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 		str(0x00080013, "TM", tm),
 		str(0x00080016, "UI", SecondaryCaptureImageStorage),
 		str(0x00080018, "UI", o.SOPInstanceUID),
-		str(0x00080020, "DA", ""),
-		str(0x00080030, "TM", ""),
-		str(0x00080050, "SH", ""),
+		str(0x00080020, "DA", pt.StudyDate),
+		str(0x00080030, "TM", pt.StudyTime),
+		str(0x00080050, "SH", pt.AccessionNumber),
 		str(0x00080060, "CS", "OT"),
 		str(0x00080064, "CS", "WSD"),
 		str(0x00080070, "LO", "midsag"),
-		str(0x00080090, "PN", ""),
+		str(0x00080090, "PN", pt.ReferringPhysicianName),
 		str(0x0008103E, "LO", o.SeriesDescription),
 		str(0x00082111, "ST", fmt.Sprintf("Occlusion sensitivity map (Zeiler and Fergus 2014), %s baseline, patch %d px, stride %d px, model %s %s",
 			e.Baseline, e.PatchPX, e.StridePX, res.Model.Name, res.Model.Version)),
 		{tag: 0x00082112, vr: "SQ", items: items},
-		str(0x00100010, "PN", ""),
-		str(0x00100020, "LO", ""),
-		str(0x00100030, "DA", ""),
-		str(0x00100040, "CS", ""),
+		str(0x00100010, "PN", pt.PatientName),
+		str(0x00100020, "LO", pt.PatientID),
+		str(0x00100030, "DA", pt.PatientBirthDate),
+		str(0x00100040, "CS", pt.PatientSex),
 		str(0x00181012, "DA", date),
 		str(0x00181016, "LO", "midsag"),
 		str(0x0020000D, "UI", res.StudyInstanceUID),
 		str(0x0020000E, "UI", o.SeriesInstanceUID),
-		str(0x00200010, "SH", ""),
+		str(0x00200010, "SH", pt.StudyID),
 		str(0x00200011, "IS", strconv.Itoa(o.SeriesNumber)),
 		str(0x00200013, "IS", "1"),
 		str(0x00200020, "CS", ""),

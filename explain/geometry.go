@@ -63,6 +63,7 @@ func (o *Occlusion) Explain(ctx context.Context, m midsag.Model, prep *midsag.Pr
 			Underlay: centerChannel(prep.Input, spec),
 			Map:      mp.Pixels,
 			Sources:  sources,
+			Patient:  center.Patient,
 		},
 	}, nil
 }

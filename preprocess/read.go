@@ -241,6 +241,17 @@ func (p *Preprocessor) instance(ds dicom.Dataset) (*midsag.Instance, error) {
 	if inst.SOPInstanceUID == "" {
 		return nil, midsag.Rejectf(midsag.ReasonNotDICOM, "no SOP Instance UID (0008,0018)")
 	}
+	inst.Patient = midsag.PatientStudy{
+		PatientName:            a.str(tag.PatientName),
+		PatientID:              a.str(tag.PatientID),
+		PatientBirthDate:       a.str(tag.PatientBirthDate),
+		PatientSex:             a.str(tag.PatientSex),
+		StudyDate:              a.str(tag.StudyDate),
+		StudyTime:              a.str(tag.StudyTime),
+		StudyID:                a.str(tag.StudyID),
+		AccessionNumber:        a.str(tag.AccessionNumber),
+		ReferringPhysicianName: a.str(tag.ReferringPhysicianName),
+	}
 	if iop := a.floats(tag.ImageOrientationPatient); len(iop) == 6 {
 		if ipp := a.floats(tag.ImagePositionPatient); len(ipp) == 3 {
 			copy(inst.ImageOrientation[:], iop)

@@ -538,8 +538,8 @@ func TestServeModelsDirReload(t *testing.T) {
 // TestServeExplainSendsSecondaryCapture: with --send-to, a study stored by
 // storescu is scored with an occlusion map, and the map reaches DCMTK's
 // storescp as a Secondary Capture image (SOP Class 1.2.840.10008.5.1.4.1.1.7,
-// checked with dcmdump) in the source study; REST serves the same map as
-// a PNG.
+// checked with dcmdump) in the source study and patient; REST serves the
+// same map as a PNG, and the log holds no patient name or ID.
 func TestServeExplainSendsSecondaryCapture(t *testing.T) {
 	scpDir := t.TempDir()
 	scpAddr := freePort(t)
@@ -566,6 +566,9 @@ func TestServeExplainSendsSecondaryCapture(t *testing.T) {
 	if r["explanation"] == nil {
 		t.Fatalf("result has no explanation: %v", r)
 	}
+	if logs := s.log.String(); strings.Contains(logs, "PHANTOM^") || strings.Contains(logs, "NSIL64-") {
+		t.Errorf("service log holds patient name or ID")
+	}
 	resp, err := http.Get("http://" + s.http + "/v1/results/" + r["result_id"].(string) + "/heatmap.png")
 	if err != nil {
 		t.Fatal(err)
@@ -579,8 +582,11 @@ func TestServeExplainSendsSecondaryCapture(t *testing.T) {
 	for {
 		files, _ := filepath.Glob(filepath.Join(scpDir, "*"))
 		if len(files) > 0 {
-			out := testtool.Run(t, "dcmdump", "-Un", "+P", "0008,0016", "+P", "0020,000d", files[0])
-			if !bytes.Contains(out, []byte("1.2.840.10008.5.1.4.1.1.7")) || !bytes.Contains(out, []byte(truths[0].StudyInstanceUID)) {
+			out := testtool.Run(t, "dcmdump", "-Un", "+P", "0008,0016", "+P", "0020,000d", "+P", "0010,0010", "+P", "0010,0020", files[0])
+			// Filed under the source patient: the phantom writes
+			// PHANTOM^0001 and NSIL64-0001 (phantom/write.go).
+			if !bytes.Contains(out, []byte("1.2.840.10008.5.1.4.1.1.7")) || !bytes.Contains(out, []byte(truths[0].StudyInstanceUID)) ||
+				!bytes.Contains(out, []byte("PHANTOM^0001")) || !bytes.Contains(out, []byte("NSIL64-0001")) {
 				t.Errorf("storescp received %s:\n%s", filepath.Base(files[0]), out)
 			}
 			return
