@@ -99,7 +99,12 @@ func TestPointingGame(t *testing.T) {
 	for _, mode := range []struct {
 		name string
 		opts Options
-	}{{"exhaustive", Options{Levels: 1}}, {"coarse_to_fine", Options{}}} {
+		// min is the rate guarded: 0.9 is the goal; with the mean
+		// baseline the demo model's maps reach 23/30 (0.77), so that
+		// level is guarded against regressions.
+		min float64
+	}{{"exhaustive", Options{Levels: 1}, 0.7}, {"coarse_to_fine", Options{}, 0.7},
+		{"exhaustive_blur", Options{Levels: 1, Baseline: BaselineBlur}, 0.9}} {
 		hits, positive := 0, 0
 		for i, c := range cases {
 			e, err := New(mode.opts).Explain(context.Background(), m, c.prep, c.instances, c.raw)
@@ -118,10 +123,8 @@ func TestPointingGame(t *testing.T) {
 		}
 		rate := float64(hits) / float64(len(cases))
 		t.Logf("%s: pointing game %d/%d = %.2f (model called %d of %d positive)", mode.name, hits, len(cases), rate, positive, len(cases))
-		// The goal was 0.9; the demo model's maps reach 23/30 (0.77) with
-		// either mode, so this guards that level against regressions.
-		if rate < 0.7 {
-			t.Errorf("%s: pointing-game rate %.2f below 0.7", mode.name, rate)
+		if rate < mode.min {
+			t.Errorf("%s: pointing-game rate %.2f below %.1f", mode.name, rate, mode.min)
 		}
 	}
 }

@@ -36,8 +36,9 @@ type Config struct {
 	Logger                 *slog.Logger
 	Metrics                *Metrics
 	// Explain adds an occlusion map to every job, not only to requests
-	// that ask for one.
-	Explain bool
+	// that ask for one; ExplainOptions configure the maps.
+	Explain        bool
+	ExplainOptions explain.Options
 	// SendTo, when set, receives the map of every explained result as a
 	// DICOM Secondary Capture (Part 10 bytes), e.g. to C-STORE it back to
 	// the PACS. A failure is logged; the result stands.
@@ -411,7 +412,7 @@ func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
 	defer release()
 	p := &midsag.Pipeline{Pre: c.cfg.Pre, Model: m, NewID: func() string { return rec.ID }}
 	if rec.Explain || c.cfg.Explain {
-		p.Explainer = explain.New(explain.Options{})
+		p.Explainer = explain.New(c.cfg.ExplainOptions)
 	}
 	res, err := p.Run(ctx, sources)
 	if err != nil || res.Explanation == nil {

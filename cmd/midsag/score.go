@@ -28,6 +28,7 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	out := fs.String("out", "", "also write result.json into this `folder`")
 	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
 	withExplain := fs.Bool("explain", false, "add an occlusion map to the result; with --out also write heatmap.png and heatmap.dcm")
+	baseline := fs.String("explain-baseline", explain.BaselineMean, "what an occluded patch is replaced by: mean, zero or blur")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -35,9 +36,12 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		fs.Usage()
 		return usagef("score needs at least one PATH")
 	}
+	if err := checkBaseline(*baseline); err != nil {
+		return err
+	}
 	var expl midsag.Explainer
 	if *withExplain {
-		expl = explain.New(explain.Options{})
+		expl = explain.New(explain.Options{Baseline: *baseline})
 	}
 	res, err := scoreStudyWith(ctx, &mf, *lenient, expl, fs.Args())
 	if err != nil {
@@ -208,4 +212,13 @@ func printSummary(w io.Writer, r *midsag.Result) {
 	}
 	fmt.Fprintf(w, "quality      %s\n", flags)
 	fmt.Fprintf(w, "time         %.0f ms\n", r.TimingsMS["total"])
+}
+
+// checkBaseline refuses an unknown --explain-baseline as a usage error.
+func checkBaseline(b string) error {
+	switch b {
+	case explain.BaselineMean, explain.BaselineZero, explain.BaselineBlur:
+		return nil
+	}
+	return usagef("--explain-baseline %q: use mean, zero or blur", b)
 }

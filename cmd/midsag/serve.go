@@ -20,6 +20,7 @@ import (
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/credentials"
 
+	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/models"
 	"github.com/midsag/midsag/preprocess"
 	"github.com/midsag/midsag/server"
@@ -54,6 +55,7 @@ type serveFlags struct {
 	tlsKey       string
 	grace        time.Duration
 	explainAll   bool
+	baseline     string
 	sendTo       string
 }
 
@@ -81,6 +83,7 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate `file` for HTTP and gRPC (with --tls-key)")
 	fs.StringVar(&f.tlsKey, "tls-key", "", "TLS key `file`")
 	fs.BoolVar(&f.explainAll, "explain", false, "add an occlusion map to every result (requests can also ask with explain=true)")
+	fs.StringVar(&f.baseline, "explain-baseline", explain.BaselineMean, "what an occluded patch is replaced by: mean, zero or blur")
 	fs.StringVar(&f.sendTo, "send-to", "", "send each result's map back as a DICOM Secondary Capture by C-STORE to `AE@host:port` (implies --explain)")
 	fs.DurationVar(&f.grace, "shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish; unfinished ones resume at the next start")
 	if err := parseFlags(fs, args); err != nil {
@@ -91,6 +94,9 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	if (f.tlsCert == "") != (f.tlsKey == "") {
 		return usagef("--tls-cert and --tls-key go together")
+	}
+	if err := checkBaseline(f.baseline); err != nil {
+		return err
 	}
 	if f.sendTo != "" {
 		if _, _, err := parseAEAddr(f.sendTo); err != nil {
@@ -168,7 +174,8 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 	}
 	core = server.New(server.Config{Store: st, Registry: reg, Pre: preprocess.New(preprocess.Options{}),
 		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances,
-		Logger: log, Metrics: metrics, Explain: f.explainAll || f.sendTo != "", SendTo: sendTo})
+		Logger: log, Metrics: metrics, Explain: f.explainAll || f.sendTo != "", SendTo: sendTo,
+		ExplainOptions: explain.Options{Baseline: f.baseline}})
 
 	runCtx, stop := context.WithCancel(ctx)
 	defer stop()
