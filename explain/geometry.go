@@ -43,7 +43,10 @@ func (o *Occlusion) Explain(ctx context.Context, m midsag.Model, prep *midsag.Pr
 		}
 	}
 	method := "occlusion"
-	if mp.Levels > 1 {
+	switch {
+	case mp.Sparse:
+		method = "occlusion_sparse"
+	case mp.Levels > 1:
 		method = "occlusion_coarse_to_fine"
 	}
 	return &midsag.Explanation{

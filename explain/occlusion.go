@@ -71,6 +71,15 @@ type Options struct {
 	// Workers is the number of Predict calls in flight; zero means 1. The
 	// model bounds how many really run at once (models.Options).
 	Workers int
+	// Sparse selects the sparse mode instead of Levels: every other cell
+	// of the finest grid in both directions is occluded (a quarter of the
+	// patches, same patch size), the other cells are interpolated
+	// bilinearly from them, and then the interpolated cells whose raw drop
+	// is at or above RefineQuantile of theirs are occluded too, within
+	// MaxRuns.
+	Sparse bool
+	// MaxRuns caps the occluded runs of the sparse mode; zero means no cap.
+	MaxRuns int
 }
 
 func (o Options) withDefaults(h int) (Options, error) {
@@ -119,6 +128,9 @@ type Patch struct {
 	Y0, X0, Y1, X1  int
 	// Run is false for a patch on air or padding that was not run.
 	Run bool
+	// Interpolated marks a sparse-mode patch whose drops were
+	// interpolated from its neighbours instead of run.
+	Interpolated bool
 	// DropRaw is the unoccluded raw output minus the occluded one;
 	// DropProb the same in calibrated probability.
 	DropRaw, DropProb float64
@@ -130,6 +142,7 @@ type Map struct {
 	PatchPX          int
 	StridePX         int
 	Levels           int
+	Sparse           bool
 	Height, Width    int
 	GridRows         int
 	GridCols         int
@@ -201,6 +214,9 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 	}
 	prob0 := m.Interpret(raw).Calibrated
 	r := &runner{m: m, in: in.Data, base: base, lay: lay, shape: in.Shape, opts: opts, raw0: raw, prob0: prob0}
+	if opts.Sparse {
+		return computeSparse(ctx, r, in.Data, lay, opts, air)
+	}
 
 	mp := &Map{Baseline: opts.Baseline, PatchPX: opts.PatchPX, StridePX: opts.StridePX, Levels: opts.Levels,
 		Height: lay.h, Width: lay.w}
@@ -240,6 +256,13 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 		refineCell = refineSet(todo, lm, g, opts.RefineQuantile)
 		parent = lm
 	}
+	mp.setPeak()
+	return mp, nil
+}
+
+// setPeak sets the peak to the highest cell of Values, ties broken by the
+// raw drop.
+func (mp *Map) setPeak() {
 	best := 0
 	for k := range mp.Values {
 		if mp.Values[k] > mp.Values[best] || (mp.Values[k] == mp.Values[best] && mp.RawValues[k] > mp.RawValues[best]) {
@@ -247,7 +270,6 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 		}
 	}
 	mp.PeakRow, mp.PeakCol = best/mp.GridCols, best%mp.GridCols
-	return mp, nil
 }
 
 // refineSet returns the cells run at this level whose raw drop is at or

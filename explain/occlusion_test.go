@@ -27,8 +27,9 @@ func TestLinearModelDropIsAnalytic(t *testing.T) {
 		t.Fatalf("unoccluded output %.6f, torch weights give %.6f", raw, want0+float64(bias))
 	}
 	for _, bl := range []string{BaselineMean, BaselineZero, BaselineBlur} {
-		for _, levels := range []int{1, 3} {
-			o := New(Options{Baseline: bl, Levels: levels, AirQuantile: -1, BatchSize: 5})
+		// levels 0 stands for the sparse mode here.
+		for _, levels := range []int{1, 3, 0} {
+			o := New(Options{Baseline: bl, Levels: max(levels, 1), Sparse: levels == 0, AirQuantile: -1, BatchSize: 5})
 			mp, err := o.Compute(context.Background(), m, in, raw)
 			if err != nil {
 				t.Fatal(err)
@@ -36,7 +37,7 @@ func TestLinearModelDropIsAnalytic(t *testing.T) {
 			base := baseline(in.Data, layout{c: 3, h: 32, w: 32}, Options{Baseline: bl, PatchPX: mp.PatchPX})
 			checked := 0
 			for _, p := range mp.Patches {
-				if !p.Run {
+				if !p.Run || p.Interpolated {
 					continue
 				}
 				var want float64
@@ -58,6 +59,9 @@ func TestLinearModelDropIsAnalytic(t *testing.T) {
 			}
 			if levels == 1 && (checked != 16*16 || mp.Runs != checked) {
 				t.Errorf("%s exhaustive: %d patches checked, %d runs, want 256", bl, checked, mp.Runs)
+			}
+			if levels == 0 && (checked != mp.Runs || mp.Runs >= 256 || mp.Runs < 64) {
+				t.Errorf("%s sparse: %d patches checked, %d runs", bl, checked, mp.Runs)
 			}
 			if levels == 3 && mp.Runs >= 256 {
 				t.Errorf("%s coarse to fine ran %d patches, no fewer than exhaustive", bl, mp.Runs)

@@ -29,6 +29,7 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
 	withExplain := fs.Bool("explain", false, "add an occlusion map to the result; with --out also write heatmap.png and heatmap.dcm")
 	baseline := fs.String("explain-baseline", explain.BaselineMean, "what an occluded patch is replaced by: mean, zero or blur")
+	sparse := fs.Bool("explain-sparse", false, "occlude every other cell, interpolate the rest and occlude only the highest of those (fewer model runs, approximate)")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -41,7 +42,7 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	var expl midsag.Explainer
 	if *withExplain {
-		expl = explain.New(explain.Options{Baseline: *baseline})
+		expl = explain.New(explain.Options{Baseline: *baseline, Sparse: *sparse})
 	}
 	res, err := scoreStudyWith(ctx, &mf, *lenient, expl, fs.Args())
 	if err != nil {

@@ -56,6 +56,7 @@ type serveFlags struct {
 	grace        time.Duration
 	explainAll   bool
 	baseline     string
+	sparse       bool
 	sendTo       string
 }
 
@@ -84,6 +85,7 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&f.tlsKey, "tls-key", "", "TLS key `file`")
 	fs.BoolVar(&f.explainAll, "explain", false, "add an occlusion map to every result (requests can also ask with explain=true)")
 	fs.StringVar(&f.baseline, "explain-baseline", explain.BaselineMean, "what an occluded patch is replaced by: mean, zero or blur")
+	fs.BoolVar(&f.sparse, "explain-sparse", false, "sparse occlusion maps: fewer model runs, approximate (see README)")
 	fs.StringVar(&f.sendTo, "send-to", "", "send each result's map back as a DICOM Secondary Capture by C-STORE to `AE@host:port` (implies --explain)")
 	fs.DurationVar(&f.grace, "shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish; unfinished ones resume at the next start")
 	if err := parseFlags(fs, args); err != nil {
@@ -175,7 +177,7 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 	core = server.New(server.Config{Store: st, Registry: reg, Pre: preprocess.New(preprocess.Options{}),
 		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances,
 		Logger: log, Metrics: metrics, Explain: f.explainAll || f.sendTo != "", SendTo: sendTo,
-		ExplainOptions: explain.Options{Baseline: f.baseline}})
+		ExplainOptions: explain.Options{Baseline: f.baseline, Sparse: f.sparse}})
 
 	runCtx, stop := context.WithCancel(ctx)
 	defer stop()
