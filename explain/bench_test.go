@@ -37,6 +37,7 @@ func BenchmarkResNet50(b *testing.B) {
 		{"exhaustive", Options{Levels: 1}},
 		{"coarse_to_fine_l3_q0.75", Options{Levels: 3, RefineQuantile: 0.75}},
 		{"coarse_to_fine_l3_q0.875", Options{Levels: 3, RefineQuantile: 0.875}},
+		{"sparse_max64", Options{Sparse: true, RefineQuantile: 0.75, MaxRuns: 63}},
 	} {
 		b.Run(bc.name, func(b *testing.B) {
 			var runs int
