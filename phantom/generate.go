@@ -2,6 +2,7 @@ package phantom
 
 import (
 	"bytes"
+	"context"
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
@@ -18,6 +19,13 @@ import (
 // a partial file. Studies are generated in parallel on all CPUs; the
 // output does not depend on how many.
 func Generate(dir string, opts Options) ([]StudyTruth, error) {
+	return GenerateContext(context.Background(), dir, opts)
+}
+
+// GenerateContext is Generate that stops handing out studies once ctx is
+// done and returns ctx's error; studies already written stay whole, and
+// labels.csv and truth.json are written only for a complete run.
+func GenerateContext(ctx context.Context, dir string, opts Options) ([]StudyTruth, error) {
 	if opts.Studies < 0 {
 		return nil, fmt.Errorf("generate: %d studies", opts.Studies)
 	}
@@ -43,11 +51,19 @@ func Generate(dir string, opts Options) ([]StudyTruth, error) {
 			}
 		}()
 	}
+feed:
 	for i := 0; i < opts.Studies; i++ {
-		next <- i
+		select {
+		case next <- i:
+		case <-ctx.Done():
+			break feed
+		}
 	}
 	close(next)
 	wg.Wait()
+	if err := ctx.Err(); err != nil {
+		return nil, fmt.Errorf("generate: %w", err)
+	}
 	for _, err := range errs {
 		if err != nil {
 			return nil, fmt.Errorf("generate: %w", err)

@@ -30,7 +30,7 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		return usagef("demo takes no arguments")
 	}
 	studyDir := filepath.Join(*out, "study")
-	truths, err := phantom.Generate(studyDir, phantom.Options{Studies: 1, Seed: *seed})
+	truths, err := phantom.GenerateContext(ctx, studyDir, phantom.Options{Studies: 1, Seed: *seed})
 	if err != nil {
 		return fmt.Errorf("make phantom study: %w", err)
 	}

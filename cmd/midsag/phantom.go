@@ -64,7 +64,7 @@ func runPhantom(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	if err := ctx.Err(); err != nil {
 		return err
 	}
-	truths, err := phantom.Generate(*out, opts)
+	truths, err := phantom.GenerateContext(ctx, *out, opts)
 	if err != nil {
 		return fmt.Errorf("phantom: %w", err)
 	}
