@@ -10,25 +10,12 @@ import (
 	"testing"
 
 	"github.com/midsag/midsag"
-	"github.com/midsag/midsag/internal/testtool"
+	"github.com/midsag/midsag/internal/ortest"
 	"github.com/midsag/midsag/models"
 )
 
-// needORT initialises ONNX Runtime or skips the test when the library is
-// missing, unless MIDSAG_REQUIRE_TOOLS=1 makes that a failure.
-func needORT(t testing.TB) {
-	t.Helper()
-	lib, err := models.FindLibrary("")
-	if err == nil {
-		err = models.Init(lib)
-	}
-	if err != nil {
-		if testtool.Required() {
-			t.Fatalf("ONNX Runtime required: %v", err)
-		}
-		t.Skipf("ONNX Runtime not available: %v", err)
-	}
-}
+// needORT initialises ONNX Runtime or skips the test.
+func needORT(t testing.TB) { ortest.Init(t) }
 
 func loadModel(t testing.TB, path string) *models.Model {
 	t.Helper()

@@ -7,7 +7,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
-	"github.com/midsag/midsag/internal/testtool"
+	"github.com/midsag/midsag/internal/ortest"
 	"github.com/midsag/midsag/models"
 	"github.com/midsag/midsag/models/demo"
 	"github.com/midsag/midsag/phantom"
@@ -19,16 +19,7 @@ import (
 // demo model, and runs it until the test ends.
 func newCore(t *testing.T, dir string, settle time.Duration) (*Core, *store.Store, func()) {
 	t.Helper()
-	lib, err := models.FindLibrary("")
-	if err == nil {
-		err = models.Init(lib)
-	}
-	if err != nil {
-		if testtool.Required() {
-			t.Fatal(err)
-		}
-		t.Skip(err)
-	}
+	ortest.Init(t)
 	def, err := models.LoadBytes(demo.Name, demo.ONNX, nil, models.Options{IntraOpThreads: 1})
 	if err != nil {
 		t.Fatal(err)

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/ortest"
 	"github.com/midsag/midsag/models"
 	"github.com/midsag/midsag/models/demo"
 	"github.com/midsag/midsag/phantom"
@@ -38,13 +39,7 @@ func benchStudyZip(b *testing.B) ([]byte, []phantom.File) {
 }
 
 func benchModel(b *testing.B) *models.Model {
-	lib, err := models.FindLibrary("")
-	if err == nil {
-		err = models.Init(lib)
-	}
-	if err != nil {
-		b.Skip(err)
-	}
+	ortest.Init(b)
 	m, err := models.LoadBytes(demo.Name, demo.ONNX, nil, models.Options{})
 	if err != nil {
 		b.Fatal(err)

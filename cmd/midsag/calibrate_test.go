@@ -53,13 +53,6 @@ func TestCalibrateWritesSidecar(t *testing.T) {
 	}
 
 	requireORT(t)
-	lib, err := models.FindLibrary("")
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := models.Init(lib); err != nil {
-		t.Fatal(err)
-	}
 	m, err := models.Load(model, models.Options{IntraOpThreads: 1})
 	if err != nil {
 		t.Fatalf("model no longer loads: %v", err)

@@ -12,22 +12,14 @@ import (
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/ortest"
 	"github.com/midsag/midsag/internal/testtool"
-	"github.com/midsag/midsag/models"
 	"github.com/midsag/midsag/phantom"
 )
 
 // requireORT skips (or, with MIDSAG_REQUIRE_TOOLS=1, fails) a test when the
 // ONNX Runtime library is not installed (make ort).
-func requireORT(t testing.TB) {
-	t.Helper()
-	if _, err := models.FindLibrary(""); err != nil {
-		if testtool.Required() {
-			t.Fatal(err)
-		}
-		t.Skip(err)
-	}
-}
+func requireORT(t testing.TB) { ortest.Init(t) }
 
 // phantomStudy writes one phantom study and returns its folder and truth.
 func phantomStudy(t *testing.T, opts phantom.Options) (string, phantom.StudyTruth) {
