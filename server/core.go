@@ -89,7 +89,9 @@ func (c *Core) QueueDepth() int { return len(c.slots) }
 
 // Ingest parses the instance's header and stores it durably.
 func (c *Core) Ingest(ctx context.Context, origin Origin, data []byte) (Stored, error) {
-	inst, err := c.cfg.Pre.Read(origin.Listener, bytes.NewReader(data))
+	// Headers only: the pixels are decoded when the study is scored, from
+	// the spool, so ingesting does not copy them a second time.
+	inst, err := c.cfg.Pre.ReadHeader(origin.Listener, bytes.NewReader(data), int64(len(data)))
 	if err != nil {
 		return Stored{}, err
 	}
