@@ -34,10 +34,10 @@ func BenchmarkResNet50(b *testing.B) {
 		name string
 		opts Options
 	}{
-		{"exhaustive", Options{Levels: 1}},
-		{"coarse_to_fine_l3_q0.75", Options{Levels: 3, RefineQuantile: 0.75}},
-		{"coarse_to_fine_l3_q0.875", Options{Levels: 3, RefineQuantile: 0.875}},
-		{"sparse_max64", Options{Sparse: true, RefineQuantile: 0.75, MaxRuns: 63}},
+		{"exhaustive", Options{Mode: ModeExhaustive}},
+		{"coarse_to_fine_l3_q0.75", Options{Mode: ModeCoarseToFine, Levels: 3, RefineQuantile: 0.75}},
+		{"coarse_to_fine_l3_q0.875", Options{Mode: ModeCoarseToFine, Levels: 3, RefineQuantile: 0.875}},
+		{"sparse", Options{Mode: ModeSparse}},
 	} {
 		b.Run(bc.name, func(b *testing.B) {
 			var runs int

@@ -44,9 +44,9 @@ func (o *Occlusion) Explain(ctx context.Context, m midsag.Model, prep *midsag.Pr
 	}
 	method := "occlusion"
 	switch {
-	case mp.Sparse:
+	case mp.Mode == ModeSparse:
 		method = "occlusion_sparse"
-	case mp.Levels > 1:
+	case mp.Mode == ModeCoarseToFine && mp.Levels > 1:
 		method = "occlusion_coarse_to_fine"
 	}
 	return &midsag.Explanation{

@@ -14,23 +14,33 @@ import (
 
 // Defaults of Options.
 const (
-	// DefaultLevels is 1, the exhaustive map: on phantom studies the demo
-	// model's coarse-to-fine maps fell short of the fidelity goal (top-10%
-	// overlap >= 0.8, Spearman >= 0.85 against the exhaustive map) at
-	// every setting measured by TestCoarseToFineFidelity, so coarse to
-	// fine is an opt-in for large models where its speed matters more.
-	DefaultLevels = 1
+	// DefaultMode is ModeSparse: on phantom studies it keeps the
+	// exhaustive map's ranking (top-10% cell overlap and Spearman
+	// correlation, TestSparseFidelity) in a quarter of its model runs.
+	DefaultMode = ModeSparse
+	// DefaultLevels is the number of grids of ModeCoarseToFine.
+	DefaultLevels = 3
 	// DefaultRefineQuantile refines the top quarter of the cells run at
 	// each level.
 	DefaultRefineQuantile = 0.75
-	// DefaultAirQuantile: patches whose mean is at or below the input's 5th
-	// percentile are air or padding (common practice for a background
-	// threshold; no single source).
-	DefaultAirQuantile = 0.05
 	// DefaultBatchSize is how many occluded copies go to one Predict call:
 	// large enough to amortise a run's overhead, small enough that a batch
 	// of 3x512x512 inputs stays under 50 MB.
 	DefaultBatchSize = 16
+)
+
+// Modes: which patches are occluded.
+const (
+	// ModeExhaustive occludes every cell of the finest grid.
+	ModeExhaustive = "exhaustive"
+	// ModeSparse occludes a lattice of every other row and column of the
+	// finest grid (and its last row and column), interpolates the cells
+	// between, then occludes the interpolated cells with the highest
+	// values within MaxRuns.
+	ModeSparse = "sparse"
+	// ModeCoarseToFine occludes a coarse grid first and refines only its
+	// cells at or above RefineQuantile, over Levels grids.
+	ModeCoarseToFine = "coarse_to_fine"
 )
 
 // Baselines an occluded patch can be replaced by.
@@ -50,20 +60,25 @@ type Options struct {
 	PatchPX, StridePX int
 	// Baseline is BaselineMean (default), BaselineZero or BaselineBlur.
 	Baseline string
-	// Levels is the number of grids from coarse to fine, each with twice
-	// the stride and patch of the next; 1 occludes every cell of the
-	// finest grid (exhaustive). Zero means DefaultLevels.
+	// Mode is ModeSparse, ModeExhaustive or ModeCoarseToFine; empty means
+	// DefaultMode.
+	Mode string
+	// Levels is the number of grids of ModeCoarseToFine, each with twice
+	// the stride and patch of the next; 1 is the exhaustive map. Zero
+	// means DefaultLevels.
 	Levels int
-	// RefineQuantile: at every level but the finest, the cells run at that
-	// level whose drop in raw output is at or above this quantile of
-	// theirs are split into the next level's four cells. Cells not refined
-	// pass their value down. Zero means DefaultRefineQuantile.
+	// RefineQuantile: in ModeCoarseToFine, at every level but the finest,
+	// the cells run at that level whose drop in raw output is at or above
+	// this quantile of theirs are split into the next level's four cells
+	// (cells not refined pass their value down); in ModeSparse, only
+	// interpolated cells at or above this quantile of theirs are occluded.
+	// Zero means DefaultRefineQuantile.
 	RefineQuantile float64
-	// AirQuantile: a patch whose mean over all slices is at or below this
-	// quantile of the input's values is taken to be air or padding: it is
-	// not run and its drop is zero. Zero means DefaultAirQuantile; a
-	// negative value runs every patch.
-	AirQuantile float64
+	// AirFraction sets the air threshold between the input's 2nd and 98th
+	// percentiles (see airMask): a patch all of whose pixels are air,
+	// outside the body, is not run and its drop is zero. Zero means
+	// DefaultAirFraction; a negative value runs every patch.
+	AirFraction float64
 	// BatchSize is the number of occluded copies per Predict call; zero
 	// means DefaultBatchSize. A model with a fixed batch of 1 runs them one
 	// by one inside Predict (models.Model).
@@ -71,14 +86,11 @@ type Options struct {
 	// Workers is the number of Predict calls in flight; zero means 1. The
 	// model bounds how many really run at once (models.Options).
 	Workers int
-	// Sparse selects the sparse mode instead of Levels: every other cell
-	// of the finest grid in both directions is occluded (a quarter of the
-	// patches, same patch size), the other cells are interpolated
-	// bilinearly from them, and then the interpolated cells whose raw drop
-	// is at or above RefineQuantile of theirs are occluded too, within
-	// MaxRuns.
-	Sparse bool
-	// MaxRuns caps the occluded runs of the sparse mode; zero means no cap.
+	// MaxRuns caps the occluded runs of ModeSparse, lattice included; the
+	// lattice itself is always run. Zero means a quarter of the finest
+	// grid's cells less one, so that with the unoccluded run the map costs
+	// at most a quarter of the exhaustive map's runs whenever the lattice
+	// fits; negative means no cap.
 	MaxRuns int
 }
 
@@ -92,14 +104,20 @@ func (o Options) withDefaults(h int) (Options, error) {
 	if o.Baseline == "" {
 		o.Baseline = BaselineMean
 	}
+	if o.Mode == "" {
+		o.Mode = DefaultMode
+	}
+	if o.Mode == ModeExhaustive {
+		o.Levels = 1
+	}
 	if o.Levels == 0 {
 		o.Levels = DefaultLevels
 	}
 	if o.RefineQuantile == 0 {
 		o.RefineQuantile = DefaultRefineQuantile
 	}
-	if o.AirQuantile == 0 {
-		o.AirQuantile = DefaultAirQuantile
+	if o.AirFraction == 0 {
+		o.AirFraction = DefaultAirFraction
 	}
 	if o.BatchSize == 0 {
 		o.BatchSize = DefaultBatchSize
@@ -113,6 +131,8 @@ func (o Options) withDefaults(h int) (Options, error) {
 			o.PatchPX, o.StridePX, o.Levels, o.BatchSize, o.Workers)
 	case o.RefineQuantile < 0 || o.RefineQuantile > 1:
 		return o, fmt.Errorf("explain options: refine quantile %g is outside [0,1]", o.RefineQuantile)
+	case o.Mode != ModeSparse && o.Mode != ModeExhaustive && o.Mode != ModeCoarseToFine:
+		return o, fmt.Errorf("explain options: unknown mode %q (want sparse, exhaustive or coarse_to_fine)", o.Mode)
 	case o.Baseline != BaselineMean && o.Baseline != BaselineZero && o.Baseline != BaselineBlur:
 		return o, fmt.Errorf("explain options: unknown baseline %q (want mean, zero or blur)", o.Baseline)
 	}
@@ -138,11 +158,11 @@ type Patch struct {
 
 // Map is an occlusion map on the finest grid.
 type Map struct {
+	Mode             string
 	Baseline         string
 	PatchPX          int
 	StridePX         int
 	Levels           int
-	Sparse           bool
 	Height, Width    int
 	GridRows         int
 	GridCols         int
@@ -151,7 +171,8 @@ type Map struct {
 	Pixels           []float64 // drop in calibrated probability per input pixel
 	Patches          []Patch   // every patch, run or not, level by level
 	Runs             int       // occluded inputs run (the unoccluded run not included)
-	PeakRow, PeakCol int       // the highest cell of Values
+	AirCells         []bool    // per cell: its patch lies wholly on air
+	PeakRow, PeakCol int       // the highest cell of Values not on air
 }
 
 // Occlusion is an occlusion-sensitivity Explainer. It is safe for
@@ -208,17 +229,17 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 		return nil, err
 	}
 	base := baseline(in.Data, lay, opts)
-	air := math.Inf(-1)
-	if opts.AirQuantile > 0 {
-		air = quantile(slices.Clone(in.Data), opts.AirQuantile)
+	var air []bool
+	if opts.AirFraction > 0 {
+		air = airMask(in.Data, lay, opts.AirFraction)
 	}
 	prob0 := m.Interpret(raw).Calibrated
 	r := &runner{m: m, in: in.Data, base: base, lay: lay, shape: in.Shape, opts: opts, raw0: raw, prob0: prob0}
-	if opts.Sparse {
-		return computeSparse(ctx, r, in.Data, lay, opts, air)
+	if opts.Mode == ModeSparse {
+		return computeSparse(ctx, r, lay, opts, air)
 	}
 
-	mp := &Map{Baseline: opts.Baseline, PatchPX: opts.PatchPX, StridePX: opts.StridePX, Levels: opts.Levels,
+	mp := &Map{Mode: opts.Mode, Baseline: opts.Baseline, PatchPX: opts.PatchPX, StridePX: opts.StridePX, Levels: opts.Levels,
 		Height: lay.h, Width: lay.w}
 	var (
 		parent     *levelMap
@@ -234,7 +255,7 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 					continue
 				}
 				p := g.patch(l, i, j)
-				p.Run = patchMean(in.Data, lay, p) > air
+				p.Run = !onAir(air, lay.w, p)
 				todo = append(todo, p)
 			}
 		}
@@ -251,6 +272,10 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 		if l == opts.Levels-1 {
 			mp.GridRows, mp.GridCols = g.rows, g.cols
 			mp.Values, mp.RawValues, mp.Pixels = lm.prob, lm.raw, lm.pixProb
+			mp.AirCells = make([]bool, g.rows*g.cols)
+			for k := range mp.AirCells {
+				mp.AirCells[k] = onAir(air, lay.w, g.patch(l, k/g.cols, k%g.cols))
+			}
 			break
 		}
 		refineCell = refineSet(todo, lm, g, opts.RefineQuantile)
@@ -260,12 +285,23 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 	return mp, nil
 }
 
-// setPeak sets the peak to the highest cell of Values, ties broken by the
-// raw drop.
+// setPeak sets the peak to the highest cell of Values whose patch is not
+// on air (any cell when all are), ties broken by the raw drop. Air cells
+// hold a zero drop by construction, which must not outrank a map whose
+// every measured drop is negative.
 func (mp *Map) setPeak() {
+	better := func(k, b int) bool {
+		if mp.AirCells[k] != mp.AirCells[b] {
+			return !mp.AirCells[k]
+		}
+		if mp.Values[k] != mp.Values[b] {
+			return mp.Values[k] > mp.Values[b]
+		}
+		return mp.RawValues[k] > mp.RawValues[b]
+	}
 	best := 0
-	for k := range mp.Values {
-		if mp.Values[k] > mp.Values[best] || (mp.Values[k] == mp.Values[best] && mp.RawValues[k] > mp.RawValues[best]) {
+	for k := 1; k < len(mp.Values); k++ {
+		if better(k, best) {
 			best = k
 		}
 	}
@@ -570,18 +606,6 @@ func boxBlur(p []float64, h, w, r int) []float64 {
 		}
 	}
 	return out
-}
-
-func patchMean(in []float32, lay layout, p Patch) float64 {
-	var s float64
-	for c := 0; c < lay.c; c++ {
-		for y := p.Y0; y < p.Y1; y++ {
-			for x := p.X0; x < p.X1; x++ {
-				s += float64(in[lay.at(c, y, x)])
-			}
-		}
-	}
-	return s / float64(lay.c*(p.Y1-p.Y0)*(p.X1-p.X0))
 }
 
 // quantile returns the q quantile (0..1) of v by nearest rank; it sorts v.

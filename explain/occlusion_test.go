@@ -29,7 +29,8 @@ func TestLinearModelDropIsAnalytic(t *testing.T) {
 	for _, bl := range []string{BaselineMean, BaselineZero, BaselineBlur} {
 		// levels 0 stands for the sparse mode here.
 		for _, levels := range []int{1, 3, 0} {
-			o := New(Options{Baseline: bl, Levels: max(levels, 1), Sparse: levels == 0, AirQuantile: -1, BatchSize: 5})
+			mode := map[int]string{1: ModeExhaustive, 3: ModeCoarseToFine, 0: ModeSparse}[levels]
+			o := New(Options{Baseline: bl, Mode: mode, Levels: max(levels, 1), AirFraction: -1, BatchSize: 5})
 			mp, err := o.Compute(context.Background(), m, in, raw)
 			if err != nil {
 				t.Fatal(err)
@@ -60,7 +61,8 @@ func TestLinearModelDropIsAnalytic(t *testing.T) {
 			if levels == 1 && (checked != 16*16 || mp.Runs != checked) {
 				t.Errorf("%s exhaustive: %d patches checked, %d runs, want 256", bl, checked, mp.Runs)
 			}
-			if levels == 0 && (checked != mp.Runs || mp.Runs >= 256 || mp.Runs < 64) {
+			// No air here, so the sparse lattice alone is 9 x 9 cells.
+			if levels == 0 && (checked != mp.Runs || mp.Runs != 81) {
 				t.Errorf("%s sparse: %d patches checked, %d runs", bl, checked, mp.Runs)
 			}
 			if levels == 3 && mp.Runs >= 256 {
@@ -81,7 +83,7 @@ func TestAirPatchesAreNotRun(t *testing.T) {
 	m := loadModel(t, filepath.Join("testdata", "linear.onnx"))
 	in := randomInput(32, 32)
 	raw := predictOne(t, m, in)
-	mp, err := New(Options{Levels: 1}).Compute(context.Background(), m, in, raw)
+	mp, err := New(Options{Mode: ModeExhaustive}).Compute(context.Background(), m, in, raw)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -112,18 +114,20 @@ func TestDeterministic(t *testing.T) {
 	m := loadModel(t, filepath.Join("testdata", "linear.onnx"))
 	in := randomInput(32, 32)
 	raw := predictOne(t, m, in)
-	var first *Map
-	for _, workers := range []int{1, 1, 2, 3, 8} {
-		mp, err := New(Options{Workers: workers, BatchSize: 4}).Compute(context.Background(), m, in, raw)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if first == nil {
-			first = mp
-			continue
-		}
-		if !slices.Equal(mp.Values, first.Values) || !slices.Equal(mp.RawValues, first.RawValues) || !slices.Equal(mp.Pixels, first.Pixels) || mp.Runs != first.Runs {
-			t.Errorf("workers %d: map differs from the first run", workers)
+	for _, mode := range []string{ModeSparse, ModeExhaustive, ModeCoarseToFine} {
+		var first *Map
+		for _, workers := range []int{1, 1, 2, 3, 8} {
+			mp, err := New(Options{Mode: mode, Workers: workers, BatchSize: 4}).Compute(context.Background(), m, in, raw)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if first == nil {
+				first = mp
+				continue
+			}
+			if !slices.Equal(mp.Values, first.Values) || !slices.Equal(mp.RawValues, first.RawValues) || !slices.Equal(mp.Pixels, first.Pixels) || mp.Runs != first.Runs {
+				t.Errorf("%s, workers %d: map differs from the first run", mode, workers)
+			}
 		}
 	}
 }

@@ -6,63 +6,91 @@ import (
 	"sort"
 )
 
-// computeSparse is the sparse mode (Options.Sparse): the finest grid's
-// even cells are occluded first, with the same patch as the exhaustive
-// map, so their drops are exact; odd cells take the bilinear
-// interpolation of their even neighbours (air cells keep a zero drop, as
-// in the exhaustive map); then the odd cells whose interpolated raw drop
-// is highest are occluded too, within MaxRuns. Neighbouring patches
-// overlap by half, so drops change slowly from cell to cell, which is
-// what the interpolation relies on.
-func computeSparse(ctx context.Context, r *runner, data []float32, lay layout, opts Options, air float64) (*Map, error) {
+// latticeLines returns the lattice rows (or columns) of ModeSparse on a
+// grid of n cells: every other one from the first, and the last, so that
+// every cell lies between two measured lines and none is extrapolated.
+func latticeLines(n int) []int {
+	var l []int
+	for i := 0; i < n; i += 2 {
+		l = append(l, i)
+	}
+	if l[len(l)-1] != n-1 {
+		l = append(l, n-1)
+	}
+	return l
+}
+
+// bracket returns the lattice lines a ≤ i ≤ b around i and i's weight
+// toward b.
+func bracket(lines []int, i int) (a, b int, f float64) {
+	k := sort.SearchInts(lines, i)
+	if lines[k] == i {
+		return i, i, 0
+	}
+	a, b = lines[k-1], lines[k]
+	return a, b, float64(i-a) / float64(b-a)
+}
+
+// computeSparse is ModeSparse. The lattice cells (latticeLines in both
+// directions) are occluded with the same patch as the exhaustive map, so
+// their drops are exact; every other cell not on air takes the bilinear
+// interpolation of the raw drops of the four lattice cells around it (air
+// cells hold a zero drop, as in the exhaustive map), and its probability
+// drop is the calibrator's at the interpolated raw output, so ranking by
+// either agrees. Then the interpolated cells at or above RefineQuantile
+// of theirs are occluded, highest first, until MaxRuns runs are spent.
+// Neighbouring patches overlap by half, so drops change slowly from cell
+// to cell, which is what the interpolation relies on.
+func computeSparse(ctx context.Context, r *runner, lay layout, opts Options, air []bool) (*Map, error) {
 	g := newGrid(lay.h, lay.w, opts.StridePX, opts.PatchPX)
-	mp := &Map{Baseline: opts.Baseline, PatchPX: opts.PatchPX, StridePX: opts.StridePX, Levels: 1, Sparse: true,
-		Height: lay.h, Width: lay.w, GridRows: g.rows, GridCols: g.cols}
+	mp := &Map{Mode: ModeSparse, Baseline: opts.Baseline, PatchPX: opts.PatchPX, StridePX: opts.StridePX, Levels: 1,
+		Height: lay.h, Width: lay.w, GridRows: g.rows, GridCols: g.cols, AirCells: make([]bool, g.rows*g.cols)}
+	rows, cols := latticeLines(g.rows), latticeLines(g.cols)
 	cells := make([]Patch, g.rows*g.cols)
-	measured := make([]bool, len(cells))
-	var first []Patch
+	var lattice []Patch
 	for i := 0; i < g.rows; i++ {
 		for j := 0; j < g.cols; j++ {
 			p := g.patch(0, i, j)
-			p.Run = patchMean(data, lay, p) > air
-			cells[i*g.cols+j] = p
-			if i%2 == 0 && j%2 == 0 {
-				first = append(first, p)
+			k := i*g.cols + j
+			mp.AirCells[k] = onAir(air, lay.w, p)
+			p.Run = !mp.AirCells[k]
+			cells[k] = p
+			if slices.Contains(rows, i) && slices.Contains(cols, j) {
+				lattice = append(lattice, p)
 			}
 		}
 	}
-	if err := r.run(ctx, first); err != nil {
+	if err := r.run(ctx, lattice); err != nil {
 		return nil, err
 	}
-	for _, p := range first {
+	measured := make([]bool, len(cells))
+	for _, p := range lattice {
 		k := p.Row*g.cols + p.Col
 		cells[k], measured[k] = p, true
 		if p.Run {
 			mp.Runs++
 		}
 	}
-	at := func(i, j int) Patch {
-		i, j = min(i, (g.rows-1)/2*2), min(j, (g.cols-1)/2*2)
-		return cells[i*g.cols+j]
-	}
 	var cand []int
 	for i := 0; i < g.rows; i++ {
+		i0, i1, fi := bracket(rows, i)
 		for j := 0; j < g.cols; j++ {
 			k := i*g.cols + j
 			if measured[k] || !cells[k].Run {
 				continue
 			}
-			i0, j0 := i/2*2, j/2*2
-			fi, fj := float64(i-i0)/2, float64(j-j0)/2
-			a, b, c, d := at(i0, j0), at(i0, j0+2), at(i0+2, j0), at(i0+2, j0+2)
-			bl := func(va, vb, vc, vd float64) float64 {
-				return (1-fi)*((1-fj)*va+fj*vb) + fi*((1-fj)*vc+fj*vd)
-			}
-			cells[k].DropRaw = bl(a.DropRaw, b.DropRaw, c.DropRaw, d.DropRaw)
-			cells[k].DropProb = bl(a.DropProb, b.DropProb, c.DropProb, d.DropProb)
+			j0, j1, fj := bracket(cols, j)
+			at := func(a, b int) float64 { return cells[a*g.cols+b].DropRaw }
+			d := (1-fi)*((1-fj)*at(i0, j0)+fj*at(i0, j1)) + fi*((1-fj)*at(i1, j0)+fj*at(i1, j1))
+			cells[k].DropRaw = d
+			cells[k].DropProb = r.prob0 - r.m.Interpret(r.raw0-d).Calibrated
 			cells[k].Interpolated = true
 			cand = append(cand, k)
 		}
+	}
+	budget := opts.MaxRuns
+	if budget == 0 {
+		budget = g.rows*g.cols/4 - 1
 	}
 	if len(cand) > 0 {
 		vals := make([]float64, len(cand))
@@ -73,7 +101,7 @@ func computeSparse(ctx context.Context, r *runner, data []float32, lay layout, o
 		sort.SliceStable(cand, func(a, b int) bool { return cells[cand[a]].DropRaw > cells[cand[b]].DropRaw })
 		var second []Patch
 		for _, k := range cand {
-			if cells[k].DropRaw < th || (opts.MaxRuns > 0 && mp.Runs+len(second) >= opts.MaxRuns) {
+			if cells[k].DropRaw < th || (budget > 0 && mp.Runs+len(second) >= budget) {
 				break
 			}
 			p := cells[k]

@@ -28,8 +28,8 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	out := fs.String("out", "", "also write result.json into this `folder`")
 	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
 	withExplain := fs.Bool("explain", false, "add an occlusion map to the result; with --out also write heatmap.png and heatmap.dcm")
-	baseline := fs.String("explain-baseline", explain.BaselineMean, "what an occluded patch is replaced by: mean, zero or blur")
-	sparse := fs.Bool("explain-sparse", false, "occlude every other cell, interpolate the rest and occlude only the highest of those (fewer model runs, approximate)")
+	var ef explainFlags
+	ef.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -37,12 +37,13 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		fs.Usage()
 		return usagef("score needs at least one PATH")
 	}
-	if err := checkBaseline(*baseline); err != nil {
+	eopts, err := ef.options()
+	if err != nil {
 		return err
 	}
 	var expl midsag.Explainer
 	if *withExplain {
-		expl = explain.New(explain.Options{Baseline: *baseline, Sparse: *sparse})
+		expl = explain.New(eopts)
 	}
 	res, err := scoreStudyWith(ctx, &mf, *lenient, expl, fs.Args())
 	if err != nil {
@@ -213,13 +214,4 @@ func printSummary(w io.Writer, r *midsag.Result) {
 	}
 	fmt.Fprintf(w, "quality      %s\n", flags)
 	fmt.Fprintf(w, "time         %.0f ms\n", r.TimingsMS["total"])
-}
-
-// checkBaseline refuses an unknown --explain-baseline as a usage error.
-func checkBaseline(b string) error {
-	switch b {
-	case explain.BaselineMean, explain.BaselineZero, explain.BaselineBlur:
-		return nil
-	}
-	return usagef("--explain-baseline %q: use mean, zero or blur", b)
 }

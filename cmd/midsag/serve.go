@@ -55,9 +55,9 @@ type serveFlags struct {
 	tlsKey       string
 	grace        time.Duration
 	explainAll   bool
-	baseline     string
-	sparse       bool
-	sendTo       string
+	explainFlags
+	explainOpts explain.Options
+	sendTo      string
 }
 
 func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -84,8 +84,7 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate `file` for HTTP and gRPC (with --tls-key)")
 	fs.StringVar(&f.tlsKey, "tls-key", "", "TLS key `file`")
 	fs.BoolVar(&f.explainAll, "explain", false, "add an occlusion map to every result (requests can also ask with explain=true)")
-	fs.StringVar(&f.baseline, "explain-baseline", explain.BaselineMean, "what an occluded patch is replaced by: mean, zero or blur")
-	fs.BoolVar(&f.sparse, "explain-sparse", false, "sparse occlusion maps: fewer model runs, approximate (see README)")
+	f.explainFlags.register(fs)
 	fs.StringVar(&f.sendTo, "send-to", "", "send each result's map back as a DICOM Secondary Capture by C-STORE to `AE@host:port` (implies --explain)")
 	fs.DurationVar(&f.grace, "shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish; unfinished ones resume at the next start")
 	if err := parseFlags(fs, args); err != nil {
@@ -97,7 +96,8 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if (f.tlsCert == "") != (f.tlsKey == "") {
 		return usagef("--tls-cert and --tls-key go together")
 	}
-	if err := checkBaseline(f.baseline); err != nil {
+	var err error
+	if f.explainOpts, err = f.explainFlags.options(); err != nil {
 		return err
 	}
 	if f.sendTo != "" {
@@ -177,7 +177,7 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 	core = server.New(server.Config{Store: st, Registry: reg, Pre: preprocess.New(preprocess.Options{}),
 		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances,
 		Logger: log, Metrics: metrics, Explain: f.explainAll || f.sendTo != "", SendTo: sendTo,
-		ExplainOptions: explain.Options{Baseline: f.baseline, Sparse: f.sparse}})
+		ExplainOptions: f.explainOpts})
 
 	runCtx, stop := context.WithCancel(ctx)
 	defer stop()
