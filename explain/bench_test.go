@@ -8,12 +8,15 @@ import (
 	"github.com/midsag/midsag/models"
 )
 
-// BenchmarkResNet50 times exhaustive and coarse-to-fine 16 x 16 maps of a
+// BenchmarkResNet50 times exhaustive (every patch, and air skipped),
+// coarse-to-fine and sparse 16 x 16 maps of a
 // ResNet-50-sized model (3 x 512 x 512 in, one logit out; random weights,
-// built offline with torchvision, not committed) on one phantom study,
-// reporting model runs per map. It needs MIDSAG_RESNET50=/path/model.onnx
-// with its sidecar manifest and is skipped without it:
+// built offline by bench/make-resnet50.py with torchvision, not
+// committed) on one phantom study, reporting model runs per map. It needs
+// MIDSAG_RESNET50=/path/model.onnx with its sidecar manifest and is
+// skipped without it:
 //
+//	/usr/bin/python3 bench/make-resnet50.py /tmp/midsag-resnet50.onnx
 //	MIDSAG_RESNET50=/tmp/midsag-resnet50.onnx go test -run '^$' -bench ResNet50 -benchtime 1x ./explain
 func BenchmarkResNet50(b *testing.B) {
 	path := os.Getenv("MIDSAG_RESNET50")
@@ -34,6 +37,7 @@ func BenchmarkResNet50(b *testing.B) {
 		name string
 		opts Options
 	}{
+		{"exhaustive_every_patch", Options{Mode: ModeExhaustive, AirFraction: -1}},
 		{"exhaustive", Options{Mode: ModeExhaustive}},
 		{"coarse_to_fine_l3_q0.75", Options{Mode: ModeCoarseToFine, Levels: 3, RefineQuantile: 0.75}},
 		{"coarse_to_fine_l3_q0.875", Options{Mode: ModeCoarseToFine, Levels: 3, RefineQuantile: 0.875}},

@@ -100,11 +100,11 @@ func TestPointingGame(t *testing.T) {
 	for _, mode := range []struct {
 		name string
 		opts Options
-		// min is the rate guarded: 0.9 is the goal; with the mean
-		// baseline the demo model's maps reach 23/30 (0.77), so that
-		// level is guarded against regressions.
+		// min is the rate guarded, the goal of 0.9. (A demo model trained
+		// without occlusion augmentation reached 23/30 with the mean
+		// baseline: models/demo/README.md.)
 		min float64
-	}{{"exhaustive", Options{Mode: ModeExhaustive}, 0.7}, {"sparse", Options{}, 0.7},
+	}{{"exhaustive", Options{Mode: ModeExhaustive}, 0.9}, {"sparse", Options{}, 0.9},
 		{"exhaustive_blur", Options{Mode: ModeExhaustive, Baseline: BaselineBlur}, 0.9},
 		{"sparse_blur", Options{Baseline: BaselineBlur}, 0.9}} {
 		hits, positive := 0, 0
@@ -329,9 +329,9 @@ func TestSparseFidelity(t *testing.T) {
 			}
 			t.Logf("sparse, %s baseline, max runs %3d: %5.1f runs (at most %d), all cells: top-10%% overlap %.3f, Spearman %.3f; cells not on air: %.3f, %.3f",
 				b, maxRuns, runs, maxTotal, over, rs, overT, rsT)
-			if maxRuns == 0 && (maxTotal > 64 || over < 0.8 || rs < 0.85) {
-				t.Errorf("sparse, %s baseline, default budget: at most %d runs, overlap %.3f, Spearman %.3f; want <= 64, >= 0.8, >= 0.85",
-					b, maxTotal, over, rs)
+			if maxRuns == 0 && (maxTotal > 64 || over < 0.8 || rs < 0.85 || overT < 0.8 || rsT < 0.85) {
+				t.Errorf("sparse, %s baseline, default budget: at most %d runs, overlap %.3f / %.3f, Spearman %.3f / %.3f (all cells / not on air); want <= 64, >= 0.8, >= 0.85",
+					b, maxTotal, over, overT, rs, rsT)
 			}
 		}
 	}
