@@ -38,6 +38,12 @@ type Options struct {
 	// OnRow is called after each study's row is recorded, from the
 	// worker's goroutine.
 	OnRow func(Row)
+	// OnScored, when not nil, is called with each study's result after it
+	// scores and before its row is recorded, from the worker's goroutine,
+	// to write per-study outputs (such as occlusion maps). An error makes
+	// the row failed; a run killed in between scores the study again on
+	// resume, so the outputs must be written atomically.
+	OnScored func(ctx context.Context, res *midsag.Result) error
 }
 
 // Summary is a batch's outcome.
@@ -140,7 +146,7 @@ func (s *Store) Run(ctx context.Context, opts Options) (*Summary, error) {
 		go func() {
 			defer wg.Done()
 			for uid := range next {
-				row, ok := s.scoreStudy(runCtx, opts.Pipeline, uid, modelSHA)
+				row, ok := s.scoreStudy(runCtx, opts.Pipeline, opts.OnScored, uid, modelSHA)
 				if !ok {
 					continue
 				}
@@ -214,7 +220,8 @@ func cmpErr(first, err error) error {
 
 // scoreStudy runs the Pipeline on one study's files. It returns false
 // when the run was cancelled, so the study stays to do.
-func (s *Store) scoreStudy(ctx context.Context, p *midsag.Pipeline, uid, modelSHA string) (Row, bool) {
+func (s *Store) scoreStudy(ctx context.Context, p *midsag.Pipeline, onScored func(context.Context, *midsag.Result) error,
+	uid, modelSHA string) (Row, bool) {
 	t0 := time.Now()
 	row := Row{StudyInstanceUID: uid, ModelSHA256: modelSHA, Notice: midsag.Notice}
 	files, err := s.studyFiles(ctx, uid)
@@ -243,6 +250,15 @@ func (s *Store) scoreStudy(ctx context.Context, p *midsag.Pipeline, uid, modelSH
 	}
 	if res.StudyInstanceUID != uid {
 		return failed(row, fmt.Errorf("pipeline scored study %s for %s", res.StudyInstanceUID, uid), t0), true
+	}
+	if onScored != nil {
+		err := onScored(ctx, res)
+		if ctx.Err() != nil {
+			return row, false
+		}
+		if err != nil {
+			return failed(row, fmt.Errorf("write the study's outputs: %w", err), t0), true
+		}
 	}
 	row.Status = StatusScored
 	row.SeriesInstanceUID = res.SeriesInstanceUID

@@ -91,9 +91,12 @@ func (s *Store) put(ctx context.Context, r Row) error {
 	return nil
 }
 
-// done returns the studies already recorded with the given model.
+// done returns the studies already recorded with the given model, but
+// not those that failed on a runtime error (I/O, model), which a rerun
+// tries again; rejected studies stay done, as their input would be
+// rejected again.
 func (s *Store) done(ctx context.Context, modelSHA string) (map[string]bool, error) {
-	rows, err := s.db.QueryContext(ctx, `SELECT study FROM results WHERE model_sha256 = ?`, modelSHA)
+	rows, err := s.db.QueryContext(ctx, `SELECT study FROM results WHERE model_sha256 = ? AND json_extract(row, '$.status') != 'failed'`, modelSHA)
 	if err != nil {
 		return nil, fmt.Errorf("cohort: read results: %w", err)
 	}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"hash/fnv"
 	"io"
 	"log/slog"
 	"os"
@@ -18,6 +19,7 @@ import (
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/cohort"
+	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/models"
 	"github.com/midsag/midsag/preprocess"
 )
@@ -41,6 +43,9 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	rescore := fs.Bool("rescore", false, "score again studies already recorded with this model")
 	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
 	every := fs.Duration("progress-every", 30*time.Second, "`interval` of progress log lines when stderr is not a terminal")
+	withExplain := fs.Bool("explain", false, "also make an occlusion map of each study scored in this run: OUT/maps/STUDY_UID/ holds result.json, heatmap.png and heatmap.dcm")
+	var ef explainFlags
+	ef.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -53,6 +58,10 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	if *every <= 0 {
 		return usagef("--progress-every must be positive")
+	}
+	eopts, err := ef.options()
+	if err != nil {
+		return err
 	}
 	var shard cohort.Shard
 	if *shardFlag != "" {
@@ -86,11 +95,20 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	defer store.Close()
 
 	pre := preprocess.New(preprocess.Options{Lenient: *lenient})
+	pipe := &midsag.Pipeline{Pre: pre, Model: model}
+	var onScored func(context.Context, *midsag.Result) error
+	if *withExplain {
+		pipe.Explainer = explain.New(eopts)
+		onScored = func(_ context.Context, res *midsag.Result) error {
+			return writeStudyMaps(filepath.Join(*out, "maps"), res)
+		}
+	}
 	prog := newProgress(stderr, *every)
 	sum, err := store.Run(ctx, cohort.Options{
+		OnScored: onScored,
 		Root:     root,
 		Headers:  pre,
-		Pipeline: &midsag.Pipeline{Pre: pre, Model: model},
+		Pipeline: pipe,
 		Workers:  *workers,
 		Shard:    shard,
 		Labels:   labelMap,
@@ -109,6 +127,41 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		return fmt.Errorf("batch: %w", err)
 	}
 	return nil
+}
+
+// writeStudyMaps writes res's result.json, heatmap.png and heatmap.dcm
+// into dir/NAME, NAME being the Study Instance UID when it is a valid UID
+// (PS3.5 9.1: digits and dots, at most 64 characters) and its FNV-1a 64
+// hash otherwise, so a header can never name a path outside dir.
+func writeStudyMaps(dir string, res *midsag.Result) error {
+	name := res.StudyInstanceUID
+	if !validUID(name) {
+		h := fnv.New64a()
+		h.Write([]byte(name))
+		name = fmt.Sprintf("uid-%016x", h.Sum64())
+	}
+	sub := filepath.Join(dir, name)
+	if err := os.MkdirAll(sub, 0o755); err != nil {
+		return err
+	}
+	if err := writeJSONFile(filepath.Join(sub, "result.json"), res); err != nil {
+		return err
+	}
+	return writeHeatmaps(sub, res)
+}
+
+// validUID reports whether s is a DICOM UID: 1 to 64 characters, digits
+// and dots, neither first nor last a dot (PS3.5 9.1).
+func validUID(s string) bool {
+	if len(s) == 0 || len(s) > 64 || s[0] == '.' || s[len(s)-1] == '.' {
+		return false
+	}
+	for _, c := range []byte(s) {
+		if (c < '0' || c > '9') && c != '.' {
+			return false
+		}
+	}
+	return true
 }
 
 // loadBatchModel loads the model as modelFlags.load does, with its

@@ -6,6 +6,7 @@ import (
 	"image/png"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/midsag/midsag"
@@ -76,5 +77,105 @@ func TestScoreExplainUsage(t *testing.T) {
 		if code != exitUsage {
 			t.Errorf("%v: exit %d, want 2 (%s)", args, code, stderr)
 		}
+	}
+}
+
+// TestBatchExplain: `batch --explain` writes result.json, heatmap.png and
+// heatmap.dcm per study scored, under OUT/maps/STUDY_UID, and a rerun
+// with nothing to score writes none again.
+func TestBatchExplain(t *testing.T) {
+	requireORT(t)
+	root := t.TempDir()
+	truths, err := phantom.Generate(root, phantom.Options{Studies: 3, Seed: 77, NoDecoys: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := t.TempDir()
+	if code, _, stderr := runCLI("batch", "--explain", "--workers", "1", "--out", out, root); code != exitOK {
+		t.Fatalf("batch --explain: exit %d: %s", code, stderr)
+	}
+	for _, tr := range truths {
+		dir := filepath.Join(out, "maps", tr.StudyInstanceUID)
+		var res midsag.Result
+		b, err := os.ReadFile(filepath.Join(dir, "result.json"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := json.Unmarshal(b, &res); err != nil || res.Explanation == nil || res.Explanation.ModelRuns > 64 ||
+			res.StudyInstanceUID != tr.StudyInstanceUID || res.Notice != midsag.Notice {
+			t.Errorf("%s: result.json %v, explanation %+v", tr.Study, err, res.Explanation)
+		}
+		for _, f := range []string{"heatmap.png", "heatmap.dcm"} {
+			if st, err := os.Stat(filepath.Join(dir, f)); err != nil || st.Size() == 0 {
+				t.Errorf("%s: %s: %v", tr.Study, f, err)
+			}
+		}
+	}
+	before, _ := os.Stat(filepath.Join(out, "maps", truths[0].StudyInstanceUID, "heatmap.png"))
+	if code, _, stderr := runCLI("batch", "--explain", "--out", out, root); code != exitOK {
+		t.Fatalf("rerun: exit %d: %s", code, stderr)
+	}
+	after, _ := os.Stat(filepath.Join(out, "maps", truths[0].StudyInstanceUID, "heatmap.png"))
+	if !after.ModTime().Equal(before.ModTime()) {
+		t.Errorf("a rerun with nothing to score rewrote a map")
+	}
+}
+
+// TestValidUID: map folders are named by the Study Instance UID only
+// when it is a valid UID (PS3.5 9.1), never by a path.
+func TestValidUID(t *testing.T) {
+	for s, want := range map[string]bool{
+		"1.2.840.10008.1.1": true, "2.25.1": true, "": false, "../etc": false, "1.2/3": false,
+		".1.2": false, "1.2.": false, "1.2.3a": false, strings.Repeat("1", 65): false,
+	} {
+		if validUID(s) != want {
+			t.Errorf("validUID(%q) = %v, want %v", s, !want, want)
+		}
+	}
+}
+
+// TestBatchRetriesFailedStudies: when a study's outputs cannot be written
+// (OUT/maps is a file), its row is failed with reason error and the
+// message; a rerun once the cause is gone scores it again, while scored
+// studies are not redone.
+func TestBatchRetriesFailedStudies(t *testing.T) {
+	requireORT(t)
+	root := t.TempDir()
+	if _, err := phantom.Generate(root, phantom.Options{Studies: 2, Seed: 78, NoDecoys: true}); err != nil {
+		t.Fatal(err)
+	}
+	out := t.TempDir()
+	blocker := filepath.Join(out, "maps")
+	if err := os.WriteFile(blocker, []byte("not a folder"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if code, _, stderr := runCLI("batch", "--explain", "--workers", "1", "--out", out, root); code != exitOK {
+		t.Fatalf("batch: exit %d: %s", code, stderr)
+	}
+	_, rows := readTable(t, filepath.Join(out, "results.csv"))
+	for _, r := range rows {
+		if r[1] != "failed" || r[2] != "error" || !strings.Contains(strings.Join(r, ","), "write the study's outputs") {
+			t.Errorf("row %v: want failed, error, and the cause in the message", r)
+		}
+	}
+	if err := os.Remove(blocker); err != nil {
+		t.Fatal(err)
+	}
+	code, stdout, stderr := runCLI("batch", "--explain", "--workers", "1", "--out", out, root)
+	if code != exitOK {
+		t.Fatalf("rerun: exit %d: %s", code, stderr)
+	}
+	_, rows = readTable(t, filepath.Join(out, "results.csv"))
+	for _, r := range rows {
+		if r[1] != "scored" {
+			t.Errorf("rerun row %v: want scored", r)
+		}
+	}
+	if len(rows) != 2 {
+		t.Errorf("%d rows, want 2", len(rows))
+	}
+	code, stdout, stderr = runCLI("batch", "--explain", "--out", out, root)
+	if code != exitOK || !strings.Contains(stderr+stdout, "0 to score, 2 already done") {
+		t.Errorf("second rerun: exit %d, want nothing to score:\n%s%s", code, stdout, stderr)
 	}
 }
