@@ -3,9 +3,11 @@ package grpcapi
 import (
 	"encoding/json"
 	"reflect"
+	"sort"
 	"testing"
 	"time"
 
+	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/server"
 )
 
@@ -72,5 +74,108 @@ func TestResultProtoPending(t *testing.T) {
 func TestResultProtoRefusesCorruptJSON(t *testing.T) {
 	if _, err := ResultProto(server.Record{ID: "x", ResultJSON: []byte(`{"probability":"high"`)}); err == nil {
 		t.Fatal("no error for corrupt result JSON")
+	}
+}
+
+// fill sets every exported field reachable from v to a non-zero value:
+// strings "x", numbers 1, one-element slices and maps, allocated
+// pointers. Fields encoding/json skips (tag "-") are left alone.
+func fill(v reflect.Value) {
+	switch v.Kind() {
+	case reflect.Pointer:
+		v.Set(reflect.New(v.Type().Elem()))
+		fill(v.Elem())
+	case reflect.Struct:
+		if v.Type() == reflect.TypeOf(time.Time{}) {
+			v.Set(reflect.ValueOf(time.Date(2026, 12, 2, 0, 0, 0, 0, time.UTC)))
+			return
+		}
+		for i := 0; i < v.NumField(); i++ {
+			if f := v.Type().Field(i); f.IsExported() && f.Tag.Get("json") != "-" {
+				fill(v.Field(i))
+			}
+		}
+	case reflect.Slice:
+		v.Set(reflect.MakeSlice(v.Type(), 1, 1))
+		fill(v.Index(0))
+	case reflect.Array:
+		for i := 0; i < v.Len(); i++ {
+			fill(v.Index(i))
+		}
+	case reflect.Map:
+		v.Set(reflect.MakeMap(v.Type()))
+		k, e := reflect.New(v.Type().Key()).Elem(), reflect.New(v.Type().Elem()).Elem()
+		fill(k)
+		fill(e)
+		v.SetMapIndex(k, e)
+	case reflect.String:
+		v.SetString("x")
+	case reflect.Int, reflect.Int32, reflect.Int64:
+		v.SetInt(1)
+	case reflect.Float64, reflect.Float32:
+		v.SetFloat(1)
+	case reflect.Bool:
+		v.SetBool(true)
+	}
+}
+
+// keyPaths lists the object key paths of a decoded JSON value; array
+// elements share the path of their array.
+func keyPaths(prefix string, v any, out map[string]bool) {
+	switch x := v.(type) {
+	case map[string]any:
+		for k, e := range x {
+			p := prefix + "." + k
+			out[p] = true
+			if k != "timings_ms" { // a map of step names, not fields
+				keyPaths(p, e, out)
+			}
+		}
+	case []any:
+		for _, e := range x {
+			keyPaths(prefix+"[]", e, out)
+		}
+	}
+}
+
+// TestResultProtoKeepsEveryNestedField: every JSON field of midsag.Result, with
+// every nested field set (the explanation included), survives the REST
+// and gRPC conversion (ResultProto), which drops what the proto does not
+// declare. It failed when the proto's Explanation lacked baseline, peak,
+// peak_patient_mm, model_runs and raw_values.
+func TestResultProtoKeepsEveryNestedField(t *testing.T) {
+	var res midsag.Result
+	fill(reflect.ValueOf(&res).Elem())
+	b, err := json.Marshal(res)
+	if err != nil {
+		t.Fatal(err)
+	}
+	pb, err := ResultProto(server.Record{ID: "x", ResultJSON: b})
+	if err != nil {
+		t.Fatal(err)
+	}
+	out, err := resultJSON.Marshal(pb)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var in, got any
+	if err := json.Unmarshal(b, &in); err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(out, &got); err != nil {
+		t.Fatal(err)
+	}
+	want, have := map[string]bool{}, map[string]bool{}
+	keyPaths("", in, want)
+	keyPaths("", got, have)
+	var missing []string
+	for p := range want {
+		if !have[p] {
+			missing = append(missing, p)
+		}
+	}
+	sort.Strings(missing)
+	if len(missing) > 0 {
+		t.Errorf("the API result drops %v", missing)
 	}
 }

@@ -1111,8 +1111,21 @@ type Explanation struct {
 	StridePx int32                  `protobuf:"varint,3,opt,name=stride_px,json=stridePx,proto3" json:"stride_px,omitempty"`
 	GridRows int32                  `protobuf:"varint,4,opt,name=grid_rows,json=gridRows,proto3" json:"grid_rows,omitempty"`
 	GridCols int32                  `protobuf:"varint,5,opt,name=grid_cols,json=gridCols,proto3" json:"grid_cols,omitempty"`
-	// values are row-major, grid_rows x grid_cols.
-	Values        []float64 `protobuf:"fixed64,6,rep,packed,name=values,proto3" json:"values,omitempty"`
+	// values are row-major, grid_rows x grid_cols: the drop in calibrated
+	// probability when the cell is occluded.
+	Values []float64 `protobuf:"fixed64,6,rep,packed,name=values,proto3" json:"values,omitempty"`
+	// baseline is what an occluded patch was replaced by: mean, zero or blur.
+	Baseline string `protobuf:"bytes,7,opt,name=baseline,proto3" json:"baseline,omitempty"`
+	// raw_values are the same drops in the model's raw output.
+	RawValues []float64 `protobuf:"fixed64,8,rep,packed,name=raw_values,json=rawValues,proto3" json:"raw_values,omitempty"`
+	// peak is the highest cell's centre in the centre slice's pixels.
+	Peak *PixelPoint `protobuf:"bytes,9,opt,name=peak,proto3" json:"peak,omitempty"`
+	// peak_patient_mm is the peak in patient coordinates (LPS, mm).
+	PeakPatientMm []float64 `protobuf:"fixed64,10,rep,packed,name=peak_patient_mm,json=peakPatientMm,proto3" json:"peak_patient_mm,omitempty"`
+	// peak_cell is the highest cell's grid row and column.
+	PeakCell *PixelPoint `protobuf:"bytes,11,opt,name=peak_cell,json=peakCell,proto3" json:"peak_cell,omitempty"`
+	// model_runs counts the inputs run, the unoccluded one included.
+	ModelRuns     int32 `protobuf:"varint,12,opt,name=model_runs,json=modelRuns,proto3" json:"model_runs,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1187,6 +1200,101 @@ func (x *Explanation) GetValues() []float64 {
 		return x.Values
 	}
 	return nil
+}
+
+func (x *Explanation) GetBaseline() string {
+	if x != nil {
+		return x.Baseline
+	}
+	return ""
+}
+
+func (x *Explanation) GetRawValues() []float64 {
+	if x != nil {
+		return x.RawValues
+	}
+	return nil
+}
+
+func (x *Explanation) GetPeak() *PixelPoint {
+	if x != nil {
+		return x.Peak
+	}
+	return nil
+}
+
+func (x *Explanation) GetPeakPatientMm() []float64 {
+	if x != nil {
+		return x.PeakPatientMm
+	}
+	return nil
+}
+
+func (x *Explanation) GetPeakCell() *PixelPoint {
+	if x != nil {
+		return x.PeakCell
+	}
+	return nil
+}
+
+func (x *Explanation) GetModelRuns() int32 {
+	if x != nil {
+		return x.ModelRuns
+	}
+	return 0
+}
+
+// PixelPoint is a (row, column) position in pixels or grid cells.
+type PixelPoint struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	Row           int32                  `protobuf:"varint,1,opt,name=row,proto3" json:"row,omitempty"`
+	Col           int32                  `protobuf:"varint,2,opt,name=col,proto3" json:"col,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *PixelPoint) Reset() {
+	*x = PixelPoint{}
+	mi := &file_midsag_v1_midsag_proto_msgTypes[15]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *PixelPoint) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*PixelPoint) ProtoMessage() {}
+
+func (x *PixelPoint) ProtoReflect() protoreflect.Message {
+	mi := &file_midsag_v1_midsag_proto_msgTypes[15]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use PixelPoint.ProtoReflect.Descriptor instead.
+func (*PixelPoint) Descriptor() ([]byte, []int) {
+	return file_midsag_v1_midsag_proto_rawDescGZIP(), []int{15}
+}
+
+func (x *PixelPoint) GetRow() int32 {
+	if x != nil {
+		return x.Row
+	}
+	return 0
+}
+
+func (x *PixelPoint) GetCol() int32 {
+	if x != nil {
+		return x.Col
+	}
+	return 0
 }
 
 var File_midsag_v1_midsag_proto protoreflect.FileDescriptor
@@ -1287,14 +1395,27 @@ const file_midsag_v1_midsag_proto_rawDesc = "" +
 	"\tModelInfo\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\x12\x18\n" +
 	"\aversion\x18\x02 \x01(\tR\aversion\x12\x16\n" +
-	"\x06sha256\x18\x03 \x01(\tR\x06sha256\"\xaf\x01\n" +
+	"\x06sha256\x18\x03 \x01(\tR\x06sha256\"\x90\x03\n" +
 	"\vExplanation\x12\x16\n" +
 	"\x06method\x18\x01 \x01(\tR\x06method\x12\x19\n" +
 	"\bpatch_px\x18\x02 \x01(\x05R\apatchPx\x12\x1b\n" +
 	"\tstride_px\x18\x03 \x01(\x05R\bstridePx\x12\x1b\n" +
 	"\tgrid_rows\x18\x04 \x01(\x05R\bgridRows\x12\x1b\n" +
 	"\tgrid_cols\x18\x05 \x01(\x05R\bgridCols\x12\x16\n" +
-	"\x06values\x18\x06 \x03(\x01R\x06values2\xb1\x02\n" +
+	"\x06values\x18\x06 \x03(\x01R\x06values\x12\x1a\n" +
+	"\bbaseline\x18\a \x01(\tR\bbaseline\x12\x1d\n" +
+	"\n" +
+	"raw_values\x18\b \x03(\x01R\trawValues\x12)\n" +
+	"\x04peak\x18\t \x01(\v2\x15.midsag.v1.PixelPointR\x04peak\x12&\n" +
+	"\x0fpeak_patient_mm\x18\n" +
+	" \x03(\x01R\rpeakPatientMm\x122\n" +
+	"\tpeak_cell\x18\v \x01(\v2\x15.midsag.v1.PixelPointR\bpeakCell\x12\x1d\n" +
+	"\n" +
+	"model_runs\x18\f \x01(\x05R\tmodelRuns\"0\n" +
+	"\n" +
+	"PixelPoint\x12\x10\n" +
+	"\x03row\x18\x01 \x01(\x05R\x03row\x12\x10\n" +
+	"\x03col\x18\x02 \x01(\x05R\x03col2\xb1\x02\n" +
 	"\fStudyScoring\x12K\n" +
 	"\n" +
 	"ScoreStudy\x12\x1c.midsag.v1.ScoreStudyRequest\x1a\x1d.midsag.v1.ScoreStudyResponse(\x01\x12;\n" +
@@ -1315,7 +1436,7 @@ func file_midsag_v1_midsag_proto_rawDescGZIP() []byte {
 	return file_midsag_v1_midsag_proto_rawDescData
 }
 
-var file_midsag_v1_midsag_proto_msgTypes = make([]protoimpl.MessageInfo, 17)
+var file_midsag_v1_midsag_proto_msgTypes = make([]protoimpl.MessageInfo, 18)
 var file_midsag_v1_midsag_proto_goTypes = []any{
 	(*ScoreStudyRequest)(nil),   // 0: midsag.v1.ScoreStudyRequest
 	(*ScoreOptions)(nil),        // 1: midsag.v1.ScoreOptions
@@ -1332,8 +1453,9 @@ var file_midsag_v1_midsag_proto_goTypes = []any{
 	(*SeriesCandidate)(nil),     // 12: midsag.v1.SeriesCandidate
 	(*ModelInfo)(nil),           // 13: midsag.v1.ModelInfo
 	(*Explanation)(nil),         // 14: midsag.v1.Explanation
-	nil,                         // 15: midsag.v1.Result.TimingsMsEntry
-	nil,                         // 16: midsag.v1.SliceScore.PartsEntry
+	(*PixelPoint)(nil),          // 15: midsag.v1.PixelPoint
+	nil,                         // 16: midsag.v1.Result.TimingsMsEntry
+	nil,                         // 17: midsag.v1.SliceScore.PartsEntry
 }
 var file_midsag_v1_midsag_proto_depIdxs = []int32{
 	1,  // 0: midsag.v1.ScoreStudyRequest.options:type_name -> midsag.v1.ScoreOptions
@@ -1344,22 +1466,24 @@ var file_midsag_v1_midsag_proto_depIdxs = []int32{
 	11, // 5: midsag.v1.Result.slices:type_name -> midsag.v1.SliceScore
 	12, // 6: midsag.v1.Result.series_candidates:type_name -> midsag.v1.SeriesCandidate
 	13, // 7: midsag.v1.Result.model:type_name -> midsag.v1.ModelInfo
-	15, // 8: midsag.v1.Result.timings_ms:type_name -> midsag.v1.Result.TimingsMsEntry
+	16, // 8: midsag.v1.Result.timings_ms:type_name -> midsag.v1.Result.TimingsMsEntry
 	14, // 9: midsag.v1.Result.explanation:type_name -> midsag.v1.Explanation
-	16, // 10: midsag.v1.SliceScore.parts:type_name -> midsag.v1.SliceScore.PartsEntry
-	0,  // 11: midsag.v1.StudyScoring.ScoreStudy:input_type -> midsag.v1.ScoreStudyRequest
-	4,  // 12: midsag.v1.StudyScoring.GetResult:input_type -> midsag.v1.GetResultRequest
-	5,  // 13: midsag.v1.StudyScoring.ListResults:input_type -> midsag.v1.ListResultsRequest
-	7,  // 14: midsag.v1.StudyScoring.ListModels:input_type -> midsag.v1.ListModelsRequest
-	3,  // 15: midsag.v1.StudyScoring.ScoreStudy:output_type -> midsag.v1.ScoreStudyResponse
-	10, // 16: midsag.v1.StudyScoring.GetResult:output_type -> midsag.v1.Result
-	6,  // 17: midsag.v1.StudyScoring.ListResults:output_type -> midsag.v1.ListResultsResponse
-	8,  // 18: midsag.v1.StudyScoring.ListModels:output_type -> midsag.v1.ListModelsResponse
-	15, // [15:19] is the sub-list for method output_type
-	11, // [11:15] is the sub-list for method input_type
-	11, // [11:11] is the sub-list for extension type_name
-	11, // [11:11] is the sub-list for extension extendee
-	0,  // [0:11] is the sub-list for field type_name
+	17, // 10: midsag.v1.SliceScore.parts:type_name -> midsag.v1.SliceScore.PartsEntry
+	15, // 11: midsag.v1.Explanation.peak:type_name -> midsag.v1.PixelPoint
+	15, // 12: midsag.v1.Explanation.peak_cell:type_name -> midsag.v1.PixelPoint
+	0,  // 13: midsag.v1.StudyScoring.ScoreStudy:input_type -> midsag.v1.ScoreStudyRequest
+	4,  // 14: midsag.v1.StudyScoring.GetResult:input_type -> midsag.v1.GetResultRequest
+	5,  // 15: midsag.v1.StudyScoring.ListResults:input_type -> midsag.v1.ListResultsRequest
+	7,  // 16: midsag.v1.StudyScoring.ListModels:input_type -> midsag.v1.ListModelsRequest
+	3,  // 17: midsag.v1.StudyScoring.ScoreStudy:output_type -> midsag.v1.ScoreStudyResponse
+	10, // 18: midsag.v1.StudyScoring.GetResult:output_type -> midsag.v1.Result
+	6,  // 19: midsag.v1.StudyScoring.ListResults:output_type -> midsag.v1.ListResultsResponse
+	8,  // 20: midsag.v1.StudyScoring.ListModels:output_type -> midsag.v1.ListModelsResponse
+	17, // [17:21] is the sub-list for method output_type
+	13, // [13:17] is the sub-list for method input_type
+	13, // [13:13] is the sub-list for extension type_name
+	13, // [13:13] is the sub-list for extension extendee
+	0,  // [0:13] is the sub-list for field type_name
 }
 
 func init() { file_midsag_v1_midsag_proto_init() }
@@ -1377,7 +1501,7 @@ func file_midsag_v1_midsag_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_midsag_v1_midsag_proto_rawDesc), len(file_midsag_v1_midsag_proto_rawDesc)),
 			NumEnums:      0,
-			NumMessages:   17,
+			NumMessages:   18,
 			NumExtensions: 0,
 			NumServices:   1,
 		},
