@@ -80,10 +80,12 @@ type Options struct {
 	// DefaultAirFraction; a negative value runs every patch.
 	AirFraction float64
 	// BatchSize is the number of occluded copies per Predict call; zero
-	// means DefaultBatchSize. A model with a fixed batch of 1 runs them one
+	// means DefaultBatchSize, or 1 for a model that reports a fixed batch
+	// (FixedBatch() bool, as models.Model does). A model with a fixed batch of 1 runs them one
 	// by one inside Predict (models.Model).
 	BatchSize int
-	// Workers is the number of Predict calls in flight; zero means 1. The
+	// Workers is the number of Predict calls in flight; zero means the
+	// model's Concurrency() when it reports one (models.Model does), else 1. The
 	// model bounds how many really run at once (models.Options).
 	Workers int
 	// MaxRuns caps the occluded runs of ModeSparse, lattice included; the
@@ -92,6 +94,27 @@ type Options struct {
 	// at most a quarter of the exhaustive map's runs whenever the lattice
 	// fits; negative means no cap.
 	MaxRuns int
+}
+
+// fixedBatcher and concurrent are what a model may report about how it
+// runs (models.Model reports both); explain uses them to spread runs.
+type (
+	fixedBatcher interface{ FixedBatch() bool }
+	concurrent   interface{ Concurrency() int }
+)
+
+// forModel fills BatchSize and Workers left zero from what m reports: a
+// model with a fixed batch gets one input per call, and as many calls in
+// flight as the model runs at once, so runs spread over its runners
+// instead of queueing inside one call.
+func (o Options) forModel(m midsag.Model) Options {
+	if f, ok := m.(fixedBatcher); ok && o.BatchSize == 0 && f.FixedBatch() {
+		o.BatchSize = 1
+	}
+	if c, ok := m.(concurrent); ok && o.Workers == 0 {
+		o.Workers = max(c.Concurrency(), 1)
+	}
+	return o
 }
 
 func (o Options) withDefaults(h int) (Options, error) {
@@ -224,7 +247,7 @@ func (o *Occlusion) Compute(ctx context.Context, m midsag.Model, in *midsag.Tens
 	if err != nil {
 		return nil, err
 	}
-	opts, err := o.opts.withDefaults(lay.h)
+	opts, err := o.opts.forModel(m).withDefaults(lay.h)
 	if err != nil {
 		return nil, err
 	}

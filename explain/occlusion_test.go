@@ -6,6 +6,8 @@ import (
 	"path/filepath"
 	"slices"
 	"testing"
+
+	"github.com/midsag/midsag"
 )
 
 // TestLinearModelDropIsAnalytic checks the occlusion drops of linear.onnx
@@ -129,5 +131,33 @@ func TestDeterministic(t *testing.T) {
 				t.Errorf("%s, workers %d: map differs from the first run", mode, workers)
 			}
 		}
+	}
+}
+
+// runnerModel is a midsag.Model stand-in that reports a fixed batch and
+// its concurrency, as models.Model does.
+type runnerModel struct {
+	midsag.Model
+	fixed bool
+	conc  int
+}
+
+func (r runnerModel) FixedBatch() bool { return r.fixed }
+func (r runnerModel) Concurrency() int { return r.conc }
+
+// TestOptionsForModel: runs spread over the model's runners, one input per
+// call for a fixed-batch model; options set by the caller are kept.
+func TestOptionsForModel(t *testing.T) {
+	o := Options{}.forModel(runnerModel{fixed: true, conc: 3})
+	if o.BatchSize != 1 || o.Workers != 3 {
+		t.Errorf("fixed batch, 3 runners: batch %d, workers %d; want 1 and 3", o.BatchSize, o.Workers)
+	}
+	o = Options{}.forModel(runnerModel{conc: 2})
+	if o.BatchSize != 0 || o.Workers != 2 {
+		t.Errorf("dynamic batch, 2 runners: batch %d, workers %d; want 0 (the default) and 2", o.BatchSize, o.Workers)
+	}
+	o = Options{BatchSize: 5, Workers: 4}.forModel(runnerModel{fixed: true, conc: 1})
+	if o.BatchSize != 5 || o.Workers != 4 {
+		t.Errorf("explicit options changed to batch %d, workers %d", o.BatchSize, o.Workers)
 	}
 }

@@ -227,6 +227,16 @@ func formatDims(d []int64) string {
 // Info returns the manifest's name and version and the sha256 of the model bytes.
 func (m *Model) Info() midsag.ModelInfo { return m.info }
 
+// Concurrency is how many Predict calls run at once (Options.MaxConcurrent);
+// callers with many independent inputs, such as an occlusion map, keep
+// this many calls in flight.
+func (m *Model) Concurrency() int { return cap(m.sem) }
+
+// FixedBatch reports whether the model's batch dimension is fixed (to 1):
+// Predict then runs a batch item by item, so callers gain nothing by
+// batching and should spread single inputs over concurrent calls.
+func (m *Model) FixedBatch() bool { return m.batch != -1 }
+
 // InputSpec returns the input the manifest asks for.
 func (m *Model) InputSpec() midsag.InputSpec { return m.manifest.InputSpec() }
 

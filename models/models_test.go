@@ -576,3 +576,16 @@ func BenchmarkPredict(b *testing.B) {
 		}
 	}
 }
+
+// TestReportsHowItRuns: FixedBatch follows the ONNX input's batch
+// dimension (tiny_batch1.onnx is fixed at 1, tiny_logit.onnx dynamic) and
+// Concurrency follows Options.MaxConcurrent (0 means 1).
+func TestReportsHowItRuns(t *testing.T) {
+	needORT(t)
+	fixed := load(t, "tiny_batch1.onnx", Options{MaxConcurrent: 3})
+	dyn := load(t, "tiny_logit.onnx", Options{})
+	if !fixed.FixedBatch() || dyn.FixedBatch() || fixed.Concurrency() != 3 || dyn.Concurrency() != 1 {
+		t.Errorf("fixed %v/%d, dynamic %v/%d; want true/3, false/1",
+			fixed.FixedBatch(), fixed.Concurrency(), dyn.FixedBatch(), dyn.Concurrency())
+	}
+}
