@@ -81,12 +81,12 @@ type Options struct {
 	AirFraction float64
 	// BatchSize is the number of occluded copies per Predict call; zero
 	// means DefaultBatchSize, or 1 for a model that reports a fixed batch
-	// (FixedBatch() bool, as models.Model does). A model with a fixed batch of 1 runs them one
-	// by one inside Predict (models.Model).
+	// (FixedBatch() bool, as models.Model does), which would run a batch
+	// item by item inside Predict anyway.
 	BatchSize int
 	// Workers is the number of Predict calls in flight; zero means the
-	// model's Concurrency() when it reports one (models.Model does), else 1. The
-	// model bounds how many really run at once (models.Options).
+	// model's Concurrency() when it reports one (models.Model does), else
+	// 1. The model bounds how many really run at once (models.Options).
 	Workers int
 	// MaxRuns caps the occluded runs of ModeSparse, lattice included; the
 	// lattice itself is always run. Zero means a quarter of the finest
