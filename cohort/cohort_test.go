@@ -32,7 +32,7 @@ func (c *countingHeaders) ReadHeader(name string, r io.Reader, size int64) (*mid
 // grouped by Study Instance UID whatever the layout (the phantom's truth).
 func TestDiscoverRereadsOnlyChanged(t *testing.T) {
 	root := t.TempDir()
-	truths, err := phantom.Generate(root, phantom.Options{Studies: 4, Seed: 21, NoDecoys: true, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	truths, err := phantom.Generate(root, phantom.Options{Studies: 4, Seed: 21, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
 	if err != nil {
 		t.Fatal(err)
 	}

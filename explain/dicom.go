@@ -14,18 +14,6 @@ import (
 	"github.com/midsag/midsag"
 )
 
-// SOP Class and transfer syntax of the Secondary Capture output.
-const (
-	// SecondaryCaptureImageStorage is the SC Image Storage SOP Class
-	// (PS3.4 B.5, PS3.6 Table A-1).
-	SecondaryCaptureImageStorage = "1.2.840.10008.5.1.4.1.1.7"
-	// ExplicitVRLittleEndian is the transfer syntax written (PS3.5 A.2).
-	ExplicitVRLittleEndian = "1.2.840.10008.1.2.1"
-	// implementationClassUID is midsag's Implementation Class UID, the
-	// same as server/dimse.ImplementationClassUID (PS3.7 D.3.3.2).
-	implementationClassUID = "2.25.163754905504511878491646896874482852857"
-)
-
 // Defaults of SCOptions.
 const (
 	DefaultSeriesNumber      = 9901
@@ -96,7 +84,7 @@ func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 		str(0x00080008, "CS", `DERIVED\SECONDARY`),
 		str(0x00080012, "DA", date),
 		str(0x00080013, "TM", tm),
-		str(0x00080016, "UI", SecondaryCaptureImageStorage),
+		str(0x00080016, "UI", midsag.SecondaryCaptureImageStorage),
 		str(0x00080018, "UI", o.SOPInstanceUID),
 		str(0x00080020, "DA", pt.StudyDate),
 		str(0x00080030, "TM", pt.StudyTime),
@@ -147,10 +135,10 @@ func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 	var meta bytes.Buffer
 	for _, el := range []element{
 		{tag: 0x00020001, vr: "OB", value: []byte{0, 1}},
-		str(0x00020002, "UI", SecondaryCaptureImageStorage),
+		str(0x00020002, "UI", midsag.SecondaryCaptureImageStorage),
 		str(0x00020003, "UI", o.SOPInstanceUID),
-		str(0x00020010, "UI", ExplicitVRLittleEndian),
-		str(0x00020012, "UI", implementationClassUID),
+		str(0x00020010, "UI", midsag.ExplicitVRLittleEndian),
+		str(0x00020012, "UI", midsag.ImplementationClassUID),
 	} {
 		el.encode(&meta)
 	}

@@ -9,28 +9,11 @@ import (
 	"sort"
 	"strconv"
 	"strings"
-)
 
-// Transfer syntax UIDs the phantom writes (PS3.5 Section 10 and Annex A;
-// PS3.6 Annex A).
-const (
-	// ImplicitVRLittleEndian is the default DICOM transfer syntax (PS3.5 A.1).
-	ImplicitVRLittleEndian = "1.2.840.10008.1.2"
-	// ExplicitVRLittleEndian is Explicit VR Little Endian (PS3.5 A.2).
-	ExplicitVRLittleEndian = "1.2.840.10008.1.2.1"
-	// DeflatedExplicitVRLE is Deflated Explicit VR Little Endian (PS3.5 A.5).
-	DeflatedExplicitVRLE = "1.2.840.10008.1.2.1.99"
-	// ExplicitVRBigEndian is the retired Explicit VR Big Endian (PS3.5 A.3).
-	ExplicitVRBigEndian = "1.2.840.10008.1.2.2"
-	// RLELossless is RLE Lossless (PS3.5 A.4.2, Annex G).
-	RLELossless = "1.2.840.10008.1.2.5"
-	// JPEGLosslessSV1 is JPEG Lossless, first-order prediction, selection
-	// value 1 (PS3.5 A.4.1).
-	JPEGLosslessSV1 = "1.2.840.10008.1.2.4.70"
+	"github.com/midsag/midsag"
 )
 
 const (
-	mrImageStorage          = "1.2.840.10008.5.1.4.1.1.4" // PS3.4 B.5
 	implementationVersion   = "MIDSAG_PHANTOM1"
 	implementationClassSeed = "midsag phantom implementation class"
 )
@@ -219,8 +202,8 @@ func encodePart10(ds dataset, ts string) ([]byte, error) {
 	if class == "" || inst == "" {
 		return nil, fmt.Errorf("encode: SOP Class and Instance UIDs are required")
 	}
-	body := &encoder{explicit: ts != ImplicitVRLittleEndian, order: binary.LittleEndian}
-	if ts == ExplicitVRBigEndian {
+	body := &encoder{explicit: ts != midsag.ImplicitVRLittleEndian, order: binary.LittleEndian}
+	if ts == midsag.ExplicitVRBigEndian {
 		body.order = binary.BigEndian
 	}
 	for _, el := range ds {
@@ -250,7 +233,7 @@ func encodePart10(ds dataset, ts string) ([]byte, error) {
 	out.Write([]byte{0x02, 0x00, 0x00, 0x00, 'U', 'L', 4, 0})
 	out.Write(binary.LittleEndian.AppendUint32(nil, uint32(meta.buf.Len())))
 	out.Write(meta.buf.Bytes())
-	if ts == DeflatedExplicitVRLE {
+	if ts == midsag.DeflatedExplicitVRLittleEndian {
 		// Raw deflate (RFC 1951, no zlib header) of the explicit VR little
 		// endian dataset, PS3.5 A.5.
 		zw, err := flate.NewWriter(&out, flate.BestSpeed)

@@ -14,6 +14,8 @@ import (
 	"strings"
 	"sync"
 	"testing"
+
+	"github.com/midsag/midsag"
 )
 
 // needTool returns the path of an external tool, skipping the test when it
@@ -96,7 +98,7 @@ func TestDcmdumpAndDciodvfyAcceptEverySyntax(t *testing.T) {
 					continue
 				}
 				seen[series] = true
-				if ts == DeflatedExplicitVRLE {
+				if ts == midsag.DeflatedExplicitVRLittleEndian {
 					// dciodvfy does not inflate (PS3.5 A.5); dcmtk's
 					// dcmconv writes the same dataset explicit little endian.
 					plain := p + ".ele"
@@ -148,7 +150,7 @@ func TestPydicomPixelsEqualWritten(t *testing.T) {
 	defer func() { pixelHook = nil }()
 	dir := t.TempDir()
 	var paths []string
-	for i, ts := range []string{ExplicitVRLittleEndian, ImplicitVRLittleEndian, ExplicitVRBigEndian, DeflatedExplicitVRLE, RLELossless} {
+	for i, ts := range []string{midsag.ExplicitVRLittleEndian, midsag.ImplicitVRLittleEndian, midsag.ExplicitVRBigEndian, midsag.DeflatedExplicitVRLittleEndian, midsag.RLELossless} {
 		files, _, err := GenerateStudy(Options{Seed: 5, Syntaxes: []string{ts}, NoDecoys: true}, i)
 		if err != nil {
 			t.Fatal(err)
@@ -159,7 +161,7 @@ func TestPydicomPixelsEqualWritten(t *testing.T) {
 	// pydicom has no JPEG lossless decoder of its own; dcmtk's dcmdjpeg
 	// decodes the SV1 codestream (ITU-T T.81 process 14) to native first.
 	dcmdjpeg := needTool(t, "dcmdjpeg")
-	files, _, err := GenerateStudy(Options{Seed: 5, Syntaxes: []string{JPEGLosslessSV1}, NoDecoys: true}, 9)
+	files, _, err := GenerateStudy(Options{Seed: 5, Syntaxes: []string{midsag.JPEGLosslessSV1}, NoDecoys: true}, 9)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -210,7 +212,7 @@ func TestCenterSliceFromHeaders(t *testing.T) {
 	py := needPydicom(t)
 	dir := t.TempDir()
 	for i := 0; i < 12; i++ {
-		files, truth, err := GenerateStudy(Options{Seed: 9, NoDecoys: i%4 != 0, Syntaxes: []string{ExplicitVRLittleEndian, ExplicitVRBigEndian, ImplicitVRLittleEndian}}, i)
+		files, truth, err := GenerateStudy(Options{Seed: 9, NoDecoys: i%4 != 0, Syntaxes: []string{midsag.ExplicitVRLittleEndian, midsag.ExplicitVRBigEndian, midsag.ImplicitVRLittleEndian}}, i)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -329,7 +331,7 @@ func TestCompressionRateAndLevel(t *testing.T) {
 	}{{-1, 0}, {1, 8}, {0, -1}} {
 		n := 0
 		for i := 0; i < 8; i++ {
-			opts := Options{Seed: 2, CompressionRate: tc.rate, NoDecoys: true, Syntaxes: []string{ExplicitVRLittleEndian}}
+			opts := Options{Seed: 2, CompressionRate: tc.rate, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}}
 			_, truth, err := GenerateStudy(opts, i)
 			if err != nil {
 				t.Fatal(err)
@@ -393,7 +395,7 @@ func TestDeterministicAndValidUIDs(t *testing.T) {
 
 func TestGenerateWritesLabelsAndTruth(t *testing.T) {
 	dir := t.TempDir()
-	truths, err := Generate(dir, Options{Studies: 3, Seed: 4, NoDecoys: true, Syntaxes: []string{DeflatedExplicitVRLE}})
+	truths, err := Generate(dir, Options{Studies: 3, Seed: 4, NoDecoys: true, Syntaxes: []string{midsag.DeflatedExplicitVRLittleEndian}})
 	if err != nil {
 		t.Fatal(err)
 	}

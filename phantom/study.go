@@ -7,6 +7,8 @@ import (
 	"slices"
 	"strings"
 	"time"
+
+	"github.com/midsag/midsag"
 )
 
 // Manufacturer is written to Manufacturer (0008,0070) of every phantom
@@ -77,7 +79,7 @@ type StudyTruth struct {
 // SupportedSyntaxes returns the transfer syntax UIDs the phantom writer can
 // produce.
 func SupportedSyntaxes() []string {
-	return append([]string{ExplicitVRLittleEndian, ImplicitVRLittleEndian, ExplicitVRBigEndian, DeflatedExplicitVRLE}, encapsulatedSyntaxes()...)
+	return append([]string{midsag.ExplicitVRLittleEndian, midsag.ImplicitVRLittleEndian, midsag.ExplicitVRBigEndian, midsag.DeflatedExplicitVRLittleEndian}, encapsulatedSyntaxes()...)
 }
 
 func (o Options) syntaxes() ([]string, error) {

@@ -7,6 +7,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"github.com/midsag/midsag"
 )
 
 // write renders and encodes every frame of the plan. It returns the files
@@ -119,7 +121,7 @@ func (s *study) seriesElements(sr *series, t time.Time) dataset {
 	var d dataset
 	date := t.Format("20060102")
 	d.text(0x00080008, "CS", sr.imageType)
-	d.text(0x00080016, "UI", mrImageStorage)
+	d.text(0x00080016, "UI", midsag.MRImageStorage)
 	d.text(0x00080020, "DA", s.date.Format("20060102"))
 	d.text(0x00080021, "DA", date)
 	d.text(0x00080023, "DA", date)

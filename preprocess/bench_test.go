@@ -16,7 +16,7 @@ import (
 func benchStudy(b *testing.B) []phantom.File {
 	b.Helper()
 	files, _, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 77,
-		Syntaxes: []string{phantom.ExplicitVRLittleEndian}}, 0)
+		Syntaxes: []string{midsag.ExplicitVRLittleEndian}}, 0)
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -42,11 +42,11 @@ func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 	var raw []int32
 	var err error
 	switch ts {
-	case ImplicitVRLittleEndian, ExplicitVRLittleEndian, DeflatedExplicitVRLittleEndian:
+	case midsag.ImplicitVRLittleEndian, midsag.ExplicitVRLittleEndian, midsag.DeflatedExplicitVRLittleEndian:
 		raw, err = native(inst.PixelData, n, inst.BitsAllocated, binary.LittleEndian)
-	case ExplicitVRBigEndian:
+	case midsag.ExplicitVRBigEndian:
 		raw, err = native(inst.PixelData, n, inst.BitsAllocated, binary.BigEndian)
-	case RLELossless:
+	case midsag.RLELossless:
 		var b []byte
 		b, err = codec.DecodeRLE(firstFrame(inst), rows, cols, spp, inst.BitsAllocated)
 		if err == nil {
@@ -55,10 +55,10 @@ func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 			raw, err = native(b, n, inst.BitsAllocated, binary.LittleEndian)
 			inst = withPlanar(inst, 0)
 		}
-	case JPEGLossless, JPEGLosslessSV1:
+	case midsag.JPEGLossless, midsag.JPEGLosslessSV1:
 		raw, err = jpegLossless(firstFrame(inst), rows, cols, spp)
 		inst = withPlanar(inst, 0)
-	case JPEGBaseline8Bit:
+	case midsag.JPEGBaseline8Bit:
 		raw, err = jpegBaseline(firstFrame(inst), rows, cols, spp)
 		inst = withPlanar(inst, 0)
 	}

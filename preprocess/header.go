@@ -130,14 +130,14 @@ func locatePixelData(data []byte, lenient bool) (pixelHeader, error) {
 		}
 	default:
 		if isUpper(data[4]) && isUpper(data[5]) {
-			m.transferSyntax = ExplicitVRLittleEndian
+			m.transferSyntax = midsag.ExplicitVRLittleEndian
 		}
 	}
-	if m.transferSyntax == DeflatedExplicitVRLittleEndian {
+	if m.transferSyntax == midsag.DeflatedExplicitVRLittleEndian {
 		return pixelHeader{}, errWholeFile
 	}
-	w := walker{data: data, explicit: m.transferSyntax != "" && m.transferSyntax != ImplicitVRLittleEndian, bo: binary.LittleEndian}
-	if m.transferSyntax == ExplicitVRBigEndian {
+	w := walker{data: data, explicit: m.transferSyntax != "" && m.transferSyntax != midsag.ImplicitVRLittleEndian, bo: binary.LittleEndian}
+	if m.transferSyntax == midsag.ExplicitVRBigEndian {
 		w.bo = binary.BigEndian
 	}
 	off := m.bodyOffset

@@ -70,11 +70,11 @@ func TestReadHeaderMatchesRead(t *testing.T) {
 		if !reflect.DeepEqual(got, want) {
 			t.Errorf("%s: ReadHeader = %+v\nRead = %+v", ts, got, want)
 		}
-		if ts == DeflatedExplicitVRLittleEndian {
+		if ts == midsag.DeflatedExplicitVRLittleEndian {
 			continue // inflating needs the whole stream
 		}
-		limit := pixelValueStart(t, data, ts == ExplicitVRBigEndian, ts == ImplicitVRLittleEndian)
-		encapsulated := ts != ExplicitVRLittleEndian && ts != ExplicitVRBigEndian && ts != ImplicitVRLittleEndian
+		limit := pixelValueStart(t, data, ts == midsag.ExplicitVRBigEndian, ts == midsag.ImplicitVRLittleEndian)
+		encapsulated := ts != midsag.ExplicitVRLittleEndian && ts != midsag.ExplicitVRBigEndian && ts != midsag.ImplicitVRLittleEndian
 		// Reads stop within the doubling chunk that reached Pixel Data,
 		// plus 8 bytes per fragment header when encapsulated.
 		bound := 2 * max(limit, headerChunk)
@@ -91,7 +91,7 @@ func TestReadHeaderMatchesRead(t *testing.T) {
 // header still names the study, with the truncated refusal Read gives.
 func TestReadHeaderTruncated(t *testing.T) {
 	pre := New(Options{})
-	for _, ts := range []string{ExplicitVRLittleEndian, JPEGLosslessSV1} {
+	for _, ts := range []string{midsag.ExplicitVRLittleEndian, midsag.JPEGLosslessSV1} {
 		files, truth, err := phantom.GenerateStudy(phantom.Options{Seed: 4, Syntaxes: []string{ts}, NoDecoys: true}, 0)
 		if err != nil {
 			t.Fatal(err)

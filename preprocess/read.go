@@ -105,14 +105,14 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 			return nil, midsag.Rejectf(midsag.ReasonNotDICOM, "%s, and the data does not start like a data set", sniff(data))
 		}
 		if isUpper(data[4]) && isUpper(data[5]) {
-			m.transferSyntax = ExplicitVRLittleEndian
+			m.transferSyntax = midsag.ExplicitVRLittleEndian
 		}
 	}
 	if m.transferSyntax == "" {
-		m.transferSyntax = ImplicitVRLittleEndian
+		m.transferSyntax = midsag.ImplicitVRLittleEndian
 	}
 	body := data[m.bodyOffset:]
-	if m.transferSyntax == DeflatedExplicitVRLittleEndian {
+	if m.transferSyntax == midsag.DeflatedExplicitVRLittleEndian {
 		// PS3.5 A.5: the data set after the meta information is raw deflate.
 		fr := flate.NewReader(bytes.NewReader(body))
 		body, err = io.ReadAll(io.LimitReader(fr, p.opts.Limits.MaxFileBytes+1))
@@ -124,8 +124,8 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 		}
 	}
 	var bo binary.ByteOrder = binary.LittleEndian
-	implicit := m.transferSyntax == ImplicitVRLittleEndian
-	if m.transferSyntax == ExplicitVRBigEndian {
+	implicit := m.transferSyntax == midsag.ImplicitVRLittleEndian
+	if m.transferSyntax == midsag.ExplicitVRBigEndian {
 		bo = binary.BigEndian
 	}
 	sc := scanner{data: body, explicit: !implicit, bo: bo, maxElem: p.opts.Limits.MaxElementBytes}
@@ -133,8 +133,8 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 		return nil, err
 	}
 	parseTS := m.transferSyntax
-	if parseTS == DeflatedExplicitVRLittleEndian {
-		parseTS = ExplicitVRLittleEndian // already inflated above
+	if parseTS == midsag.DeflatedExplicitVRLittleEndian {
+		parseTS = midsag.ExplicitVRLittleEndian // already inflated above
 	}
 	ds, err := parseDataset(body, parseTS)
 	if err != nil {

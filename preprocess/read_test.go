@@ -72,9 +72,9 @@ func TestPydicomMRSmallVariants(t *testing.T) {
 	sv1 := filepath.Join(dir, "jpegll-e1.dcm")
 	testtool.Run(t, "dcmcjpeg", "+e1", ref, sv1)
 	variants["jpeg lossless sv1 (dcmcjpeg +e1)"] = sv1
-	wantTS := map[string]string{"deflated (dcmconv +td)": DeflatedExplicitVRLittleEndian, "big-endian": ExplicitVRBigEndian,
-		"rle": RLELossless, "implicit": ImplicitVRLittleEndian, "jpeg lossless sv1 (dcmcjpeg +e1)": JPEGLosslessSV1,
-		"jpeg lossless (dcmcjpeg +el +sv 4)": JPEGLossless}
+	wantTS := map[string]string{"deflated (dcmconv +td)": midsag.DeflatedExplicitVRLittleEndian, "big-endian": midsag.ExplicitVRBigEndian,
+		"rle": midsag.RLELossless, "implicit": midsag.ImplicitVRLittleEndian, "jpeg lossless sv1 (dcmcjpeg +e1)": midsag.JPEGLosslessSV1,
+		"jpeg lossless (dcmcjpeg +el +sv 4)": midsag.JPEGLossless}
 	for name, path := range variants {
 		inst, got := mustDecode(t, path)
 		if ts, ok := wantTS[name]; ok && inst.TransferSyntaxUID != ts {
@@ -170,7 +170,7 @@ func part10(body []byte) []byte {
 	var b bytes.Buffer
 	b.Write(make([]byte, 128))
 	b.WriteString("DICM")
-	ts := ExplicitVRLittleEndian + "\x00"
+	ts := midsag.ExplicitVRLittleEndian + "\x00"
 	b.Write(elem(0x0002, 0x0010, "UI", []byte(ts)))
 	b.Write(body)
 	return b.Bytes()

@@ -65,7 +65,7 @@ func ingestAll(t *testing.T, c *Core, files []phantom.File) []string {
 func TestCoreScoresRequestAndSettledStudy(t *testing.T) {
 	c, st, stop := newCore(t, t.TempDir(), 300*time.Millisecond)
 	defer stop()
-	opts := phantom.Options{Studies: 2, Seed: 9, Syntaxes: []string{phantom.ExplicitVRLittleEndian}}
+	opts := phantom.Options{Studies: 2, Seed: 9, Syntaxes: []string{midsag.ExplicitVRLittleEndian}}
 	files, truth, err := phantom.GenerateStudy(opts, 0)
 	if err != nil {
 		t.Fatal(err)

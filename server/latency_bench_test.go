@@ -24,7 +24,7 @@ import (
 
 // benchStudyZip is one phantom study with its decoy series, zipped.
 func benchStudyZip(b *testing.B) ([]byte, []phantom.File) {
-	files, _, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 81, Syntaxes: []string{phantom.ExplicitVRLittleEndian}}, 0)
+	files, _, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 81, Syntaxes: []string{midsag.ExplicitVRLittleEndian}}, 0)
 	if err != nil {
 		b.Fatal(err)
 	}

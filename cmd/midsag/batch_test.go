@@ -106,7 +106,7 @@ func makeBatchCohort(t *testing.T, n int) batchCohort {
 	// JPEG 2000 Lossless (PS3.6 Annex A, 1.2.840.10008.1.2.4.90) in place
 	// of JPEG Lossless SV1: same length, so only the UID's bytes change.
 	jdir := t.TempDir()
-	jtr, err := phantom.Generate(jdir, phantom.Options{Studies: 1, Seed: 13, NoDecoys: true, Syntaxes: []string{phantom.JPEGLosslessSV1}})
+	jtr, err := phantom.Generate(jdir, phantom.Options{Studies: 1, Seed: 13, NoDecoys: true, Syntaxes: []string{midsag.JPEGLosslessSV1}})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -9,6 +9,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
 )
@@ -33,7 +34,7 @@ func BenchmarkStorescuToService(b *testing.B) {
 	studies := func(b *testing.B, seed int64) []string {
 		b.Helper()
 		dir := b.TempDir()
-		truths, err := phantom.Generate(dir, phantom.Options{Studies: b.N, Seed: seed, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+		truths, err := phantom.Generate(dir, phantom.Options{Studies: b.N, Seed: seed, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
 		if err != nil {
 			b.Fatal(err)
 		}

@@ -17,6 +17,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
 )
@@ -306,7 +307,7 @@ func storedByListener(t *testing.T, s *service) map[string]int {
 // that received them.
 func TestServeOrthancPushes(t *testing.T) {
 	dir := t.TempDir()
-	truths, err := phantom.Generate(dir, phantom.Options{Studies: 2, Seed: 71, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 2, Seed: 71, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
 	if err != nil {
 		t.Fatal(err)
 	}

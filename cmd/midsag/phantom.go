@@ -7,6 +7,7 @@ import (
 	"sort"
 	"strings"
 
+	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/phantom"
 )
 
@@ -17,12 +18,12 @@ func init() {
 // syntaxNames maps the --syntax names to transfer syntax UIDs (PS3.5
 // Section 10, Annex A).
 var syntaxNames = map[string]string{
-	"explicit-le":   phantom.ExplicitVRLittleEndian,
-	"implicit-le":   phantom.ImplicitVRLittleEndian,
-	"explicit-be":   phantom.ExplicitVRBigEndian,
-	"deflated":      phantom.DeflatedExplicitVRLE,
-	"rle":           phantom.RLELossless,
-	"jpeg-lossless": phantom.JPEGLosslessSV1,
+	"explicit-le":   midsag.ExplicitVRLittleEndian,
+	"implicit-le":   midsag.ImplicitVRLittleEndian,
+	"explicit-be":   midsag.ExplicitVRBigEndian,
+	"deflated":      midsag.DeflatedExplicitVRLittleEndian,
+	"rle":           midsag.RLELossless,
+	"jpeg-lossless": midsag.JPEGLosslessSV1,
 }
 
 func runPhantom(ctx context.Context, args []string, stdout, stderr io.Writer) error {

@@ -100,7 +100,7 @@ func zipFolder(t *testing.T, dir, dst string) {
 func TestScoreRefusals(t *testing.T) {
 	requireORT(t)
 	tmp := t.TempDir()
-	study, _ := phantomStudy(t, phantom.Options{Studies: 1, Seed: 32, NoDecoys: true, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	study, _ := phantomStudy(t, phantom.Options{Studies: 1, Seed: 32, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
 	files, _ := filepath.Glob(filepath.Join(study, "*"))
 
 	empty := filepath.Join(tmp, "empty")

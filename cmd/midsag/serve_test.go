@@ -192,7 +192,7 @@ func TestServeStorescuEchoAndREST(t *testing.T) {
 	dir := t.TempDir()
 	// storescu proposes one compressed syntax per run; server/dimse tests
 	// cover every syntax, this one covers the path to a result.
-	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 61, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 61, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -316,7 +316,7 @@ func TestServeKillDuringStorescu(t *testing.T) {
 	data := t.TempDir()
 	s := startService(t, data)
 	dir := t.TempDir()
-	truths, err := phantom.Generate(dir, phantom.Options{Studies: 4, Seed: 63, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 4, Seed: 63, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -553,7 +553,7 @@ func TestServeExplainSendsSecondaryCapture(t *testing.T) {
 	defer func() { scp.Process.Kill(); scp.Wait() }()
 	s := startService(t, t.TempDir(), "--send-to", "NSIL_PACS@"+scpAddr)
 	dir := t.TempDir()
-	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 64, NoDecoys: true, Syntaxes: []string{phantom.ExplicitVRLittleEndian}})
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 64, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -13,6 +13,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/midsag/midsag"
 )
 
 // readAll reads from c until EOF or the bound, reporting whether the
@@ -40,8 +42,8 @@ func pdu(typ byte, body []byte) []byte {
 func echoRQ() []byte {
 	return pdu(pduAssociateRQ, encodeAssoc(&assocPDU{
 		protocolVersion: 1, calledAE: "MIDSAG", callingAE: "T", appContext: applicationContext,
-		contexts:  []presContext{{id: 1, abstract: verificationSOPClass, syntaxes: []string{ImplicitVRLittleEndian}}},
-		maxLength: 16384, implClass: ImplementationClassUID, implVersion: ImplementationVersionName,
+		contexts:  []presContext{{id: 1, abstract: verificationSOPClass, syntaxes: []string{midsag.ImplicitVRLittleEndian}}},
+		maxLength: 16384, implClass: midsag.ImplementationClassUID, implVersion: midsag.ImplementationVersionName,
 	}, true))
 }
 
@@ -158,7 +160,7 @@ func TestIdleTimeout(t *testing.T) {
 // A-ABORT; the server goes on.
 func TestHandlerPanic(t *testing.T) {
 	s, addr, _ := startSCP(t, Config{}, func(context.Context, Association, []byte) uint16 { panic("boom") })
-	files := [][]byte{Part10(MRImageStorage, "1.2.3", ImplicitVRLittleEndian, "", []byte{8, 0, 0x18, 0, 0, 0, 0, 0})}
+	files := [][]byte{Part10(midsag.MRImageStorage, "1.2.3", midsag.ImplicitVRLittleEndian, "", []byte{8, 0, 0x18, 0, 0, 0, 0, 0})}
 	c := &Client{CallingAE: "T", CalledAE: "MIDSAG", Timeout: 5 * time.Second}
 	if _, err := c.Store(context.Background(), addr, files); !errors.Is(err, ErrAborted) {
 		t.Errorf("Store with a panicking handler: %v, want ErrAborted", err)

@@ -9,7 +9,7 @@ import (
 	"sync/atomic"
 	"testing"
 
-	"github.com/midsag/midsag/phantom"
+	"github.com/midsag/midsag"
 )
 
 // durableHandler writes each instance as the lead's store will: temp
@@ -38,7 +38,7 @@ func durableHandler(dir string) StoreHandler {
 // DCMTK's storescp -od, in the same run, both with TCP_NODELAY=1;
 // bench/storescu.sh prints the ratio of the two ns/op.
 func BenchmarkStorescu(b *testing.B) {
-	dir, files := studyDir(b, 5, phantom.ExplicitVRLittleEndian)
+	dir, files := studyDir(b, 5, midsag.ExplicitVRLittleEndian)
 	b.Logf("%d files", len(files))
 	run := func(b *testing.B, port, called string) {
 		for b.Loop() {

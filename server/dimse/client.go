@@ -7,6 +7,8 @@ import (
 	"net"
 	"slices"
 	"time"
+
+	"github.com/midsag/midsag"
 )
 
 // DefaultClientTimeout bounds each network step of a Client whose
@@ -51,7 +53,7 @@ func (a *scu) close() {
 // releases it. It returns nil when the peer answered success.
 func (c *Client) Echo(ctx context.Context, addr string) error {
 	a, err := c.open(ctx, addr, []presContext{{id: 1, abstract: verificationSOPClass,
-		syntaxes: []string{ExplicitVRLittleEndian, ImplicitVRLittleEndian}}})
+		syntaxes: []string{midsag.ExplicitVRLittleEndian, midsag.ImplicitVRLittleEndian}}})
 	if err != nil {
 		return fmt.Errorf("echo %s: %w", addr, err)
 	}
@@ -160,7 +162,7 @@ func (c *Client) open(ctx context.Context, addr string, pcs []presContext) (*scu
 	rq := &assocPDU{
 		protocolVersion: 1, calledAE: c.CalledAE, callingAE: c.CallingAE,
 		appContext: applicationContext, contexts: pcs, maxLength: maxLen,
-		implClass: ImplementationClassUID, implVersion: ImplementationVersionName,
+		implClass: midsag.ImplementationClassUID, implVersion: midsag.ImplementationVersionName,
 	}
 	if err := u.writePDU(time.Now().Add(timeout), pduAssociateRQ, encodeAssoc(rq, true)); err != nil {
 		return nil, fmt.Errorf("send A-ASSOCIATE-RQ: %w", err)

@@ -10,6 +10,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
 )
@@ -61,7 +62,7 @@ func TestClientAgainstStorescp(t *testing.T) {
 	if err := c.Echo(ctx, addr); err != nil {
 		t.Fatalf("Echo: %v", err)
 	}
-	_, sent := studyDir(t, 2, phantom.ExplicitVRLittleEndian)
+	_, sent := studyDir(t, 2, midsag.ExplicitVRLittleEndian)
 	var files [][]byte
 	var names []string
 	for name, b := range sent {

@@ -10,6 +10,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
 )
@@ -41,13 +42,13 @@ func TestStorescuPhantomStudy(t *testing.T) {
 			// default proposes the uncompressed syntaxes.
 			args := []string{"-aet", "PACS", "-aec", "MIDSAG", "+sd", "+r"}
 			switch ts {
-			case phantom.RLELossless:
+			case midsag.RLELossless:
 				args = append(args, "-xr")
-			case phantom.DeflatedExplicitVRLE:
+			case midsag.DeflatedExplicitVRLittleEndian:
 				args = append(args, "-xd")
-			case phantom.JPEGLosslessSV1:
+			case midsag.JPEGLosslessSV1:
 				args = append(args, "-xs")
-			case phantom.ImplicitVRLittleEndian:
+			case midsag.ImplicitVRLittleEndian:
 				args = append(args, "-xi")
 			}
 			out, err := dcmtk(t, "storescu", append(args, "127.0.0.1", port, dir)...)
@@ -99,7 +100,7 @@ func checkReceived(t *testing.T, sent map[string][]byte, got *received, callingA
 		}
 		// Deflated datasets are re-deflated by storescu, so only their
 		// content can be compared.
-		if rm.transferSyntax == sm.transferSyntax && sm.transferSyntax != phantom.DeflatedExplicitVRLE &&
+		if rm.transferSyntax == sm.transferSyntax && sm.transferSyntax != midsag.DeflatedExplicitVRLittleEndian &&
 			!bytes.Equal(rm.dataset, sm.dataset) {
 			t.Errorf("%s: dataset differs (%d vs %d bytes)", name, len(rm.dataset), len(sm.dataset))
 		}

@@ -4,34 +4,8 @@ import (
 	"encoding/binary"
 	"fmt"
 	"strings"
-)
 
-// ImplementationClassUID identifies midsag's DICOM implementation in
-// association negotiation (PS3.7 D.3.3.2) and in File Meta Information.
-// It is a 2.25 UUID-derived UID (PS3.5 B.2) drawn once for midsag.
-const ImplementationClassUID = "2.25.163754905504511878491646896874482852857"
-
-// ImplementationVersionName is midsag's Implementation Version Name
-// (PS3.7 D.3.3.2.3, at most 16 characters).
-const ImplementationVersionName = "MIDSAG_0.1"
-
-// Transfer syntax UIDs (PS3.5 Annex A, PS3.6 Table A-1).
-const (
-	ImplicitVRLittleEndian = "1.2.840.10008.1.2"
-	ExplicitVRLittleEndian = "1.2.840.10008.1.2.1"
-	DeflatedExplicitVRLE   = "1.2.840.10008.1.2.1.99"
-	ExplicitVRBigEndian    = "1.2.840.10008.1.2.2"
-	RLELossless            = "1.2.840.10008.1.2.5"
-	JPEGBaseline           = "1.2.840.10008.1.2.4.50"
-	JPEGLossless           = "1.2.840.10008.1.2.4.57"
-	JPEGLosslessSV1        = "1.2.840.10008.1.2.4.70"
-)
-
-// Storage SOP Class UIDs accepted by default (PS3.4 B.5).
-const (
-	MRImageStorage         = "1.2.840.10008.5.1.4.1.1.4"
-	EnhancedMRImageStorage = "1.2.840.10008.5.1.4.1.1.4.1"
-	SecondaryCaptureImage  = "1.2.840.10008.5.1.4.1.1.7"
+	"github.com/midsag/midsag"
 )
 
 // part10Prefix is the 128-byte preamble and "DICM" (PS3.10 7.1).
@@ -70,8 +44,8 @@ func metaHeader(sopClass, sopInstance, transferSyntax, callingAE string, extra i
 	el(0x0002, "UI", uid(sopClass))
 	el(0x0003, "UI", uid(sopInstance))
 	el(0x0010, "UI", uid(transferSyntax))
-	el(0x0012, "UI", uid(ImplementationClassUID))
-	el(0x0013, "SH", text(ImplementationVersionName))
+	el(0x0012, "UI", uid(midsag.ImplementationClassUID))
+	el(0x0013, "SH", text(midsag.ImplementationVersionName))
 	if callingAE != "" {
 		el(0x0016, "AE", text(callingAE))
 	}

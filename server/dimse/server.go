@@ -13,6 +13,8 @@ import (
 	"sync"
 	"sync/atomic"
 	"time"
+
+	"github.com/midsag/midsag"
 )
 
 // Defaults for zero Config fields (our choices unless noted).
@@ -38,13 +40,13 @@ const (
 // DefaultTransferSyntaxes are the transfer syntaxes accepted, in
 // preference order, when Config.TransferSyntaxes is empty.
 var DefaultTransferSyntaxes = []string{
-	ExplicitVRLittleEndian, ImplicitVRLittleEndian, ExplicitVRBigEndian, DeflatedExplicitVRLE,
-	RLELossless, JPEGBaseline, JPEGLossless, JPEGLosslessSV1,
+	midsag.ExplicitVRLittleEndian, midsag.ImplicitVRLittleEndian, midsag.ExplicitVRBigEndian, midsag.DeflatedExplicitVRLittleEndian,
+	midsag.RLELossless, midsag.JPEGBaseline8Bit, midsag.JPEGLossless, midsag.JPEGLosslessSV1,
 }
 
 // DefaultSOPClasses are the storage SOP classes accepted when
 // Config.SOPClasses is empty.
-var DefaultSOPClasses = []string{MRImageStorage, EnhancedMRImageStorage, SecondaryCaptureImage}
+var DefaultSOPClasses = []string{midsag.MRImageStorage, midsag.EnhancedMRImageStorage, midsag.SecondaryCaptureImageStorage}
 
 // Config configures a Server. Zero fields take the defaults above.
 type Config struct {
@@ -324,7 +326,7 @@ func (s *Server) serveConn(ctx context.Context, conn net.Conn, withSlot bool) {
 	ac := &assocPDU{
 		protocolVersion: 1, calledAE: rq.calledAE, callingAE: rq.callingAE,
 		appContext: applicationContext, maxLength: s.cfg.MaxPDULength,
-		implClass: ImplementationClassUID, implVersion: ImplementationVersionName,
+		implClass: midsag.ImplementationClassUID, implVersion: midsag.ImplementationVersionName,
 		asyncWindow: rq.asyncWindow,
 	}
 	for _, pc := range rq.contexts {
@@ -380,7 +382,7 @@ func (s *Server) negotiate(pc presContext) presContext {
 	}
 	// The transfer syntax sub-item is present but not significant when
 	// the context is not accepted (PS3.8 9.3.3.2).
-	res.syntaxes = []string{ImplicitVRLittleEndian}
+	res.syntaxes = []string{midsag.ImplicitVRLittleEndian}
 	return res
 }
 

@@ -7,6 +7,8 @@ import (
 	"net"
 	"testing"
 	"time"
+
+	"github.com/midsag/midsag"
 )
 
 // TestServeGracefulStop: cancelling Serve's context stops accepting but
@@ -50,7 +52,7 @@ func TestServeGracefulStop(t *testing.T) {
 			stored := make(chan result, 1)
 			go func() {
 				c := &Client{CallingAE: "T", CalledAE: "MIDSAG", Timeout: 5 * time.Second}
-				f := Part10(MRImageStorage, "1.2.3", ImplicitVRLittleEndian, "", []byte{8, 0, 0x18, 0, 0, 0, 0, 0})
+				f := Part10(midsag.MRImageStorage, "1.2.3", midsag.ImplicitVRLittleEndian, "", []byte{8, 0, 0x18, 0, 0, 0, 0, 0})
 				st, err := c.Store(context.Background(), l.Addr().String(), [][]byte{f})
 				stored <- result{st, err}
 			}()

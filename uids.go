@@ -1,0 +1,42 @@
+package midsag
+
+// DICOM UIDs midsag reads and writes, one source for every package.
+
+// Transfer syntax UIDs (PS3.5 Section 10 and Annex A; PS3.6 Annex A).
+const (
+	// ImplicitVRLittleEndian is the default DICOM transfer syntax (PS3.5 A.1).
+	ImplicitVRLittleEndian = "1.2.840.10008.1.2"
+	// ExplicitVRLittleEndian is Explicit VR Little Endian (PS3.5 A.2).
+	ExplicitVRLittleEndian = "1.2.840.10008.1.2.1"
+	// DeflatedExplicitVRLittleEndian is Deflated Explicit VR Little Endian
+	// (PS3.5 A.5).
+	DeflatedExplicitVRLittleEndian = "1.2.840.10008.1.2.1.99"
+	// ExplicitVRBigEndian is the retired Explicit VR Big Endian (PS3.5 A.3).
+	ExplicitVRBigEndian = "1.2.840.10008.1.2.2"
+	// JPEGBaseline8Bit is JPEG Baseline (Process 1) (PS3.5 A.4.1).
+	JPEGBaseline8Bit = "1.2.840.10008.1.2.4.50"
+	// JPEGLossless is JPEG Lossless, Non-Hierarchical (Process 14).
+	JPEGLossless = "1.2.840.10008.1.2.4.57"
+	// JPEGLosslessSV1 is JPEG Lossless, Non-Hierarchical, First-Order
+	// Prediction (Process 14, Selection Value 1) (PS3.5 A.4.1).
+	JPEGLosslessSV1 = "1.2.840.10008.1.2.4.70"
+	// RLELossless is RLE Lossless (PS3.5 A.4.2, Annex G).
+	RLELossless = "1.2.840.10008.1.2.5"
+)
+
+// Storage SOP Class UIDs (PS3.4 B.5, PS3.6 Table A-1).
+const (
+	MRImageStorage               = "1.2.840.10008.5.1.4.1.1.4"
+	EnhancedMRImageStorage       = "1.2.840.10008.5.1.4.1.1.4.1"
+	SecondaryCaptureImageStorage = "1.2.840.10008.5.1.4.1.1.7"
+)
+
+// ImplementationClassUID identifies midsag's DICOM implementation in
+// association negotiation (PS3.7 D.3.3.2) and in File Meta Information of
+// the files it writes. It is a 2.25 UUID-derived UID (PS3.5 B.2) drawn once
+// for midsag.
+const ImplementationClassUID = "2.25.163754905504511878491646896874482852857"
+
+// ImplementationVersionName is midsag's Implementation Version Name
+// (PS3.7 D.3.3.2.3, at most 16 characters).
+const ImplementationVersionName = "MIDSAG_0.1"
