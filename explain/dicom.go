@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // Defaults of SCOptions.
@@ -129,24 +130,9 @@ func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 	for _, el := range ds {
 		el.encode(&body)
 	}
-	var out bytes.Buffer
-	out.Write(make([]byte, 128))
-	out.WriteString("DICM")
-	var meta bytes.Buffer
-	for _, el := range []element{
-		{tag: 0x00020001, vr: "OB", value: []byte{0, 1}},
-		str(0x00020002, "UI", midsag.SecondaryCaptureImageStorage),
-		str(0x00020003, "UI", o.SOPInstanceUID),
-		str(0x00020010, "UI", midsag.ExplicitVRLittleEndian),
-		str(0x00020012, "UI", midsag.ImplementationClassUID),
-	} {
-		el.encode(&meta)
-	}
-	gl := element{tag: 0x00020000, vr: "UL", value: binary.LittleEndian.AppendUint32(nil, uint32(meta.Len()))}
-	gl.encode(&out)
-	out.Write(meta.Bytes())
-	out.Write(body.Bytes())
-	return out.Bytes(), nil
+	meta := part10.Meta{SOPClassUID: midsag.SecondaryCaptureImageStorage, SOPInstanceUID: o.SOPInstanceUID,
+		TransferSyntaxUID: midsag.ExplicitVRLittleEndian}
+	return part10.Wrap(meta, body.Bytes()), nil
 }
 
 // element is one data element in Explicit VR Little Endian (PS3.5 7.1.2).

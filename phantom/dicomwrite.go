@@ -11,6 +11,7 @@ import (
 	"strings"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 const (
@@ -212,31 +213,13 @@ func encodePart10(ds dataset, ts string) ([]byte, error) {
 		}
 	}
 
-	meta := &encoder{explicit: true, order: binary.LittleEndian}
-	for _, el := range []element{
-		{tag: 0x00020001, vr: "OB", raw: []byte{0, 1}},
-		{tag: 0x00020002, vr: "UI", str: class},
-		{tag: 0x00020003, vr: "UI", str: inst},
-		{tag: 0x00020010, vr: "UI", str: ts},
-		{tag: 0x00020012, vr: "UI", str: implementationClassUID},
-		{tag: 0x00020013, vr: "SH", str: implementationVersion},
-	} {
-		if err := meta.element(el); err != nil {
-			return nil, fmt.Errorf("encode file meta: %w", err)
-		}
-	}
-	var out bytes.Buffer
-	out.Grow(132 + 12 + meta.buf.Len() + body.buf.Len())
-	out.Write(make([]byte, 128))
-	out.WriteString("DICM")
-	// File Meta Information Group Length (0002,0000), PS3.10 7.1.
-	out.Write([]byte{0x02, 0x00, 0x00, 0x00, 'U', 'L', 4, 0})
-	out.Write(binary.LittleEndian.AppendUint32(nil, uint32(meta.buf.Len())))
-	out.Write(meta.buf.Bytes())
+	// The header leaves room for the dataset, which is appended in place.
+	out := bytes.NewBuffer(part10.Header(part10.Meta{SOPClassUID: class, SOPInstanceUID: inst, TransferSyntaxUID: ts,
+		ImplementationClassUID: implementationClassUID, ImplementationVersionName: implementationVersion}, body.buf.Len()))
 	if ts == midsag.DeflatedExplicitVRLittleEndian {
 		// Raw deflate (RFC 1951, no zlib header) of the explicit VR little
 		// endian dataset, PS3.5 A.5.
-		zw, err := flate.NewWriter(&out, flate.BestSpeed)
+		zw, err := flate.NewWriter(out, flate.BestSpeed)
 		if err != nil {
 			return nil, fmt.Errorf("deflate: %w", err)
 		}

@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // readAll reads from c until EOF or the bound, reporting whether the
@@ -160,7 +161,7 @@ func TestIdleTimeout(t *testing.T) {
 // A-ABORT; the server goes on.
 func TestHandlerPanic(t *testing.T) {
 	s, addr, _ := startSCP(t, Config{}, func(context.Context, Association, []byte) uint16 { panic("boom") })
-	files := [][]byte{Part10(midsag.MRImageStorage, "1.2.3", midsag.ImplicitVRLittleEndian, "", []byte{8, 0, 0x18, 0, 0, 0, 0, 0})}
+	files := [][]byte{part10.Wrap(part10.Meta{SOPClassUID: midsag.MRImageStorage, SOPInstanceUID: "1.2.3", TransferSyntaxUID: midsag.ImplicitVRLittleEndian}, []byte{8, 0, 0x18, 0, 0, 0, 0, 0})}
 	c := &Client{CallingAE: "T", CalledAE: "MIDSAG", Timeout: 5 * time.Second}
 	if _, err := c.Store(context.Background(), addr, files); !errors.Is(err, ErrAborted) {
 		t.Errorf("Store with a panicking handler: %v, want ErrAborted", err)

@@ -12,6 +12,7 @@ import (
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
+	"github.com/midsag/midsag/part10"
 	"github.com/midsag/midsag/phantom"
 )
 
@@ -137,7 +138,7 @@ func TestRoundTripSmallPDU(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		want := Part10(m.sopClass, m.sopInstance, m.transferSyntax, "ROUNDTRIP", m.dataset)
+		want := part10.Wrap(part10.Meta{SOPClassUID: m.sopClass, SOPInstanceUID: m.sopInstance, TransferSyntaxUID: m.transferSyntax, SourceAETitle: "ROUNDTRIP"}, m.dataset)
 		if !bytes.Equal(got.files[m.sopInstance], want) {
 			t.Errorf("%s: received Part 10 file differs from the one expected", f.Name)
 		}

@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // Defaults for zero Config fields (our choices unless noted).
@@ -454,7 +455,8 @@ func (a *assoc) sink(pcID byte, cmd *command) ([]byte, int64) {
 		// Datasets of requests we refuse anyway are read and dropped.
 		return nil, 0
 	}
-	return metaHeader(cmd.sopClass, cmd.sopInstance, pc.syntaxes[0], a.info.CallingAE, 64<<10), a.s.cfg.MaxDatasetBytes
+	meta := part10.Meta{SOPClassUID: cmd.sopClass, SOPInstanceUID: cmd.sopInstance, TransferSyntaxUID: pc.syntaxes[0], SourceAETitle: a.info.CallingAE}
+	return part10.Header(meta, 64<<10), a.s.cfg.MaxDatasetBytes
 }
 
 // handle answers one DIMSE request (PS3.7 9.3).

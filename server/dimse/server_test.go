@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // TestServeGracefulStop: cancelling Serve's context stops accepting but
@@ -52,7 +53,7 @@ func TestServeGracefulStop(t *testing.T) {
 			stored := make(chan result, 1)
 			go func() {
 				c := &Client{CallingAE: "T", CalledAE: "MIDSAG", Timeout: 5 * time.Second}
-				f := Part10(midsag.MRImageStorage, "1.2.3", midsag.ImplicitVRLittleEndian, "", []byte{8, 0, 0x18, 0, 0, 0, 0, 0})
+				f := part10.Wrap(part10.Meta{SOPClassUID: midsag.MRImageStorage, SOPInstanceUID: "1.2.3", TransferSyntaxUID: midsag.ImplicitVRLittleEndian}, []byte{8, 0, 0x18, 0, 0, 0, 0, 0})
 				st, err := c.Store(context.Background(), l.Addr().String(), [][]byte{f})
 				stored <- result{st, err}
 			}()

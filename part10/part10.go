@@ -1,0 +1,135 @@
+// Package part10 frames DICOM datasets as Part 10 files (PS3.10 7.1): the
+// 128-byte preamble, "DICM" and the File Meta Information group in
+// Explicit VR Little Endian, and reads that group back. The service's
+// DICOM listener, the phantom generator and the Secondary Capture writer
+// all frame their files here.
+package part10
+
+import (
+	"encoding/binary"
+	"fmt"
+	"strings"
+
+	"github.com/midsag/midsag"
+)
+
+// PrefixLen is the length of the preamble and "DICM".
+const PrefixLen = 128 + 4
+
+// Meta is the File Meta Information midsag writes and reads.
+type Meta struct {
+	// SOPClassUID and SOPInstanceUID are the Media Storage SOP Class and
+	// Instance UIDs (0002,0002) and (0002,0003).
+	SOPClassUID, SOPInstanceUID string
+	// TransferSyntaxUID (0002,0010) is the syntax the dataset is in.
+	TransferSyntaxUID string
+	// ImplementationClassUID (0002,0012) and ImplementationVersionName
+	// (0002,0013); empty means midsag's own.
+	ImplementationClassUID, ImplementationVersionName string
+	// SourceAETitle (0002,0016) is the AE that sent the dataset; omitted
+	// when empty.
+	SourceAETitle string
+}
+
+// Header returns the preamble, "DICM" and m's File Meta Information
+// group, with room for extra more bytes so the dataset can be appended
+// without a copy.
+func Header(m Meta, extra int) []byte {
+	if m.ImplementationClassUID == "" {
+		m.ImplementationClassUID = midsag.ImplementationClassUID
+	}
+	if m.ImplementationVersionName == "" {
+		m.ImplementationVersionName = midsag.ImplementationVersionName
+	}
+	var g []byte
+	el := func(elem uint16, vr, v string, pad byte) {
+		if len(v)%2 == 1 {
+			v += string(pad) // PS3.5 6.2: UI pads with NUL, text with a space
+		}
+		g = binary.LittleEndian.AppendUint16(g, 0x0002)
+		g = binary.LittleEndian.AppendUint16(g, elem)
+		g = append(g, vr...)
+		if vr == "OB" {
+			// OB has 2 reserved bytes and a 32-bit length (PS3.5 7.1.2).
+			g = append(g, 0, 0)
+			g = binary.LittleEndian.AppendUint32(g, uint32(len(v)))
+		} else {
+			g = binary.LittleEndian.AppendUint16(g, uint16(len(v)))
+		}
+		g = append(g, v...)
+	}
+	el(0x0001, "OB", "\x00\x01", 0) // File Meta Information Version 00\01
+	el(0x0002, "UI", m.SOPClassUID, 0)
+	el(0x0003, "UI", m.SOPInstanceUID, 0)
+	el(0x0010, "UI", m.TransferSyntaxUID, 0)
+	el(0x0012, "UI", m.ImplementationClassUID, 0)
+	el(0x0013, "SH", m.ImplementationVersionName, ' ')
+	if m.SourceAETitle != "" {
+		el(0x0016, "AE", m.SourceAETitle, ' ')
+	}
+	b := make([]byte, PrefixLen, PrefixLen+12+len(g)+extra)
+	copy(b[128:], "DICM")
+	// File Meta Information Group Length (0002,0000), PS3.10 7.1.
+	b = binary.LittleEndian.AppendUint16(b, 0x0002)
+	b = binary.LittleEndian.AppendUint16(b, 0x0000)
+	b = append(b, "UL"...)
+	b = binary.LittleEndian.AppendUint16(b, 4)
+	b = binary.LittleEndian.AppendUint32(b, uint32(len(g)))
+	return append(b, g...)
+}
+
+// Wrap returns dataset, encoded in m.TransferSyntaxUID, as a Part 10 file.
+func Wrap(m Meta, dataset []byte) []byte {
+	return append(Header(m, len(dataset)), dataset...)
+}
+
+// Parse reads the File Meta Information of a Part 10 file: the group 0002
+// elements after the preamble and "DICM", up to the first element of
+// another group, which starts the returned dataset. The Media Storage SOP
+// Class and Instance UIDs and the Transfer Syntax UID are required.
+func Parse(b []byte) (Meta, []byte, error) {
+	var m Meta
+	if len(b) < PrefixLen || string(b[128:132]) != "DICM" {
+		return m, nil, fmt.Errorf("not a DICOM Part 10 file: no DICM prefix")
+	}
+	p := b[PrefixLen:]
+	off := PrefixLen
+	for len(p) >= 8 && binary.LittleEndian.Uint16(p) == 0x0002 {
+		elem := binary.LittleEndian.Uint16(p[2:])
+		vr := string(p[4:6])
+		var n, hl int
+		switch vr {
+		case "OB", "OW", "OF", "SQ", "UT", "UN":
+			if len(p) < 12 {
+				return m, nil, fmt.Errorf("file meta: truncated element (0002,%04X)", elem)
+			}
+			n, hl = int(binary.LittleEndian.Uint32(p[8:])), 12
+		default:
+			n, hl = int(binary.LittleEndian.Uint16(p[6:])), 8
+		}
+		if n < 0 || n > len(p)-hl {
+			return m, nil, fmt.Errorf("file meta: element (0002,%04X) length %d exceeds the file", elem, n)
+		}
+		v := strings.TrimRight(string(p[hl:hl+n]), "\x00 ")
+		switch elem {
+		case 0x0002:
+			m.SOPClassUID = v
+		case 0x0003:
+			m.SOPInstanceUID = v
+		case 0x0010:
+			m.TransferSyntaxUID = v
+		case 0x0012:
+			m.ImplementationClassUID = v
+		case 0x0013:
+			m.ImplementationVersionName = v
+		case 0x0016:
+			m.SourceAETitle = v
+		}
+		p = p[hl+n:]
+		off += hl + n
+	}
+	if m.SOPClassUID == "" || m.SOPInstanceUID == "" || m.TransferSyntaxUID == "" {
+		return m, nil, fmt.Errorf("file meta: missing Media Storage SOP Class/Instance UID or Transfer Syntax UID")
+	}
+	return m, b[off:], nil
+}
