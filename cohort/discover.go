@@ -2,7 +2,6 @@ package cohort
 
 import (
 	"archive/zip"
-	"bytes"
 	"context"
 	"database/sql"
 	"errors"
@@ -12,10 +11,10 @@ import (
 	"os"
 	"path/filepath"
 	"sort"
-	"strings"
 	"sync"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/inputs"
 )
 
 // HeaderReader reads the header of one DICOM stream of size bytes without
@@ -33,10 +32,6 @@ const ReasonUnreadable midsag.Reason = "unreadable"
 // reasonArchive marks a zip archive's own index entry; its entries have
 // theirs.
 const reasonArchive = "archive"
-
-// maxZipEntries bounds the entries read from one zip archive, as the score
-// verb does.
-const maxZipEntries = 20000
 
 // discoverBatch is how many files are looked up, read and recorded
 // together: one transaction per batch keeps SQLite's per-commit sync from
@@ -104,7 +99,7 @@ func (s *Store) Discover(ctx context.Context, root string, hr HeaderReader, work
 			}
 			return nil
 		}
-		if path != root && strings.HasPrefix(e.Name(), ".") {
+		if path != root && inputs.Hidden(e.Name()) {
 			if e.IsDir() {
 				return filepath.SkipDir
 			}
@@ -240,7 +235,7 @@ func readFile(fi fileInfo, hr HeaderReader) []indexRow {
 	}
 	defer f.Close()
 	var magic [4]byte
-	if n, _ := f.ReadAt(magic[:], 0); n == 4 && bytes.Equal(magic[:], []byte("PK\x03\x04")) {
+	if n, _ := f.ReadAt(magic[:], 0); n == 4 && inputs.IsZip(magic[:]) {
 		return readZip(f, row, hr)
 	}
 	inst, err := hr.ReadHeader(fi.path, f, fi.size)
@@ -269,14 +264,14 @@ func readZip(f *os.File, arch indexRow, hr HeaderReader) []indexRow {
 		arch.reason = string(midsag.ReasonNotDICOM)
 		return []indexRow{arch}
 	}
-	if len(zr.File) > maxZipEntries {
+	if len(zr.File) > inputs.MaxZipEntries {
 		arch.reason = string(midsag.ReasonTooLarge)
 		return []indexRow{arch}
 	}
 	arch.reason = reasonArchive
 	out := []indexRow{arch}
 	for _, zf := range zr.File {
-		if zf.FileInfo().IsDir() || strings.HasPrefix(filepath.Base(zf.Name), ".") || strings.HasPrefix(zf.Name, "__MACOSX/") {
+		if inputs.SkipZipEntry(zf) {
 			continue
 		}
 		row := indexRow{path: arch.path + "!" + zf.Name, file: arch.path, entry: zf.Name,
@@ -371,8 +366,7 @@ func sources(files []studyFile) ([]midsag.Source, func()) {
 	var out []midsag.Source
 	for _, f := range files {
 		if f.entry == "" {
-			path := f.file
-			out = append(out, midsag.Source{Name: path, Open: func() (io.ReadCloser, error) { return os.Open(path) }})
+			out = append(out, inputs.File(f.file))
 			continue
 		}
 		if _, ok := archives[f.file]; !ok {

@@ -12,6 +12,7 @@ import (
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/explain"
+	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/preprocess"
 )
 
@@ -91,7 +92,7 @@ func scoreStudy(ctx context.Context, mf *modelFlags, lenient bool, paths []strin
 // scoreStudyWith runs the one Pipeline on the given paths with an
 // Explainer, which may be nil.
 func scoreStudyWith(ctx context.Context, mf *modelFlags, lenient bool, expl midsag.Explainer, paths []string) (*midsag.Result, error) {
-	sources, closeSources, err := collectSources(paths)
+	sources, closeSources, err := inputs.Collect(paths)
 	if err != nil {
 		return nil, err
 	}

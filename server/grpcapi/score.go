@@ -18,6 +18,7 @@ import (
 
 	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
+	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/server"
 )
 
@@ -25,7 +26,6 @@ import (
 // has a few hundred to a few thousand instances, and one instance is
 // rarely above 64 MiB.
 const (
-	maxZipEntries = 20000
 	// maxZipEntryBytes caps one entry's uncompressed size, whatever its
 	// header says.
 	maxZipEntryBytes int64 = 256 << 20
@@ -226,13 +226,13 @@ func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) er
 	if err != nil {
 		return midsag.Reject(midsag.ReasonNotDICOM, "the body is not a readable zip archive", err)
 	}
-	if len(zr.File) > maxZipEntries {
-		return newAPIError(midsag.ReasonTooLarge, fmt.Sprintf("the zip has %d entries; at most %d are accepted", len(zr.File), maxZipEntries))
+	if len(zr.File) > inputs.MaxZipEntries {
+		return newAPIError(midsag.ReasonTooLarge, fmt.Sprintf("the zip has %d entries; at most %d are accepted", len(zr.File), inputs.MaxZipEntries))
 	}
 	budget := zipExpansion * a.cfg.MaxBodyBytes
 	skipped := 0
 	for i, zf := range zr.File {
-		if zf.FileInfo().IsDir() || strings.HasPrefix(zf.Name, "__MACOSX/") {
+		if inputs.SkipZipEntry(zf) {
 			continue
 		}
 		name := fmt.Sprintf("zip entry %d (%s)", i+1, zf.Name)

@@ -1,0 +1,104 @@
+package inputs
+
+import (
+	"archive/zip"
+	"os"
+	"path/filepath"
+	"slices"
+	"strings"
+	"testing"
+
+	"github.com/midsag/midsag"
+)
+
+func write(t *testing.T, path string, b []byte) {
+	t.Helper()
+	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(path, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+func makeZip(t *testing.T, path string, names ...string) {
+	t.Helper()
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	zw := zip.NewWriter(f)
+	for _, n := range names {
+		w, err := zw.Create(n)
+		if err != nil {
+			t.Fatal(err)
+		}
+		w.Write([]byte("x"))
+	}
+	if err := zw.Close(); err != nil {
+		t.Fatal(err)
+	}
+	f.Close()
+}
+
+// TestCollect: folders are walked in name order without hidden files or
+// folders; a zip archive named anything is opened by its signature, its
+// folders, hidden entries and __MACOSX metadata skipped.
+func TestCollect(t *testing.T) {
+	dir := t.TempDir()
+	for _, n := range []string{"s/b.dcm", "s/a.dcm", "s/sub/c", "s/.DS_Store", "s/.hidden/d.dcm"} {
+		write(t, filepath.Join(dir, n), []byte("x"))
+	}
+	arch := filepath.Join(dir, "export.bin")
+	makeZip(t, arch, "study/", "study/IM1", "study/._IM1", "__MACOSX/study/._IM1", "IM2")
+	srcs, done, err := Collect([]string{filepath.Join(dir, "s"), arch})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer done()
+	var names []string
+	for _, s := range srcs {
+		names = append(names, strings.TrimPrefix(s.Name, dir+"/"))
+	}
+	want := []string{"s/a.dcm", "s/b.dcm", "s/sub/c", "export.bin!study/IM1", "export.bin!IM2"}
+	if !slices.Equal(names, want) {
+		t.Errorf("sources %v, want %v", names, want)
+	}
+	rc, err := srcs[3].Open()
+	if err != nil {
+		t.Fatal(err)
+	}
+	rc.Close()
+}
+
+// TestCollectRefusals: each refusal carries its reason code.
+func TestCollectRefusals(t *testing.T) {
+	dir := t.TempDir()
+	empty := filepath.Join(dir, "empty")
+	os.Mkdir(empty, 0o755)
+	broken := filepath.Join(dir, "broken.zip")
+	write(t, broken, []byte("PK\x03\x04 not really a zip"))
+	many := filepath.Join(dir, "many.zip")
+	names := make([]string, MaxZipEntries+1)
+	for i := range names {
+		names[i] = "f" + strings.Repeat("x", i%7) + string(rune('a'+i%26)) + "/" + string(rune('0'+i%10))
+	}
+	makeZip(t, many, names...)
+	for path, want := range map[string]midsag.Reason{
+		filepath.Join(dir, "missing"): midsag.ReasonNoInput,
+		empty:                         midsag.ReasonNoInput,
+		broken:                        midsag.ReasonNotDICOM,
+		many:                          midsag.ReasonTooLarge,
+	} {
+		_, _, err := Collect([]string{path})
+		if r, ok := midsag.ReasonOf(err); !ok || r != want {
+			t.Errorf("%s: %v, want reason %s", filepath.Base(path), err, want)
+		}
+	}
+}
+
+func TestRules(t *testing.T) {
+	if !Hidden("a/.b") || Hidden("a/b") || !IsZip([]byte("PK\x03\x04rest")) || IsZip([]byte("PK\x05\x06")) {
+		t.Error("Hidden or IsZip disagree with their definitions")
+	}
+}
