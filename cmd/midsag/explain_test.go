@@ -66,6 +66,21 @@ func TestScoreExplain(t *testing.T) {
 	}
 }
 
+// TestScoreExplainSummary: without --json the summary names the map's
+// method, its run count and its peak.
+func TestScoreExplainSummary(t *testing.T) {
+	requireORT(t)
+	study, _ := phantomStudy(t, phantom.Options{Studies: 1, Seed: 4242, CompressionRate: 1})
+	code, stdout, stderr := runCLI("score", "--explain", study)
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	if !strings.Contains(stdout, "map          occlusion_sparse, mean baseline, ") || !strings.Contains(stdout, "model runs; peak at row ") ||
+		!strings.Contains(stdout, midsag.Notice) {
+		t.Errorf("summary lacks the map line or the notice:\n%s", stdout)
+	}
+}
+
 // TestScoreExplainUsage: bad explanation flags are usage errors.
 func TestScoreExplainUsage(t *testing.T) {
 	for _, args := range [][]string{

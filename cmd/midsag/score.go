@@ -214,5 +214,10 @@ func printSummary(w io.Writer, r *midsag.Result) {
 		flags = strings.Join(r.QualityFlags, ", ")
 	}
 	fmt.Fprintf(w, "quality      %s\n", flags)
+	if e := r.Explanation; e != nil {
+		p := e.PeakPatientMM
+		fmt.Fprintf(w, "map          %s, %s baseline, %d model runs; peak at row %d, col %d of the centre slice (patient %.1f, %.1f, %.1f mm)\n",
+			e.Method, e.Baseline, e.ModelRuns, e.Peak.Row, e.Peak.Col, p[0], p[1], p[2])
+	}
 	fmt.Fprintf(w, "time         %.0f ms\n", r.TimingsMS["total"])
 }
