@@ -92,14 +92,14 @@ func (c *Client) Store(ctx context.Context, addr string, part10Files [][]byte) (
 			return nil, fmt.Errorf("store: file %d: %w", i, err)
 		}
 		metas[i] = m
-		k := key{m.sopClass, m.transferSyntax}
+		k := key{m.SOPClassUID, m.TransferSyntaxUID}
 		if _, ok := ids[k]; !ok {
 			if len(pcs) == maxContexts {
 				return nil, fmt.Errorf("store: more than %d SOP class and transfer syntax pairs", maxContexts)
 			}
 			id := byte(2*len(pcs) + 1)
 			ids[k] = id
-			pcs = append(pcs, presContext{id: id, abstract: m.sopClass, syntaxes: []string{m.transferSyntax}})
+			pcs = append(pcs, presContext{id: id, abstract: m.SOPClassUID, syntaxes: []string{m.TransferSyntaxUID}})
 		}
 	}
 	a, err := c.open(ctx, addr, pcs)
@@ -109,7 +109,7 @@ func (c *Client) Store(ctx context.Context, addr string, part10Files [][]byte) (
 	defer a.close()
 	statuses := make([]uint16, 0, len(metas))
 	for i, m := range metas {
-		id := ids[key{m.sopClass, m.transferSyntax}]
+		id := ids[key{m.SOPClassUID, m.TransferSyntaxUID}]
 		if _, ok := a.accepted[id]; !ok {
 			statuses = append(statuses, StatusSOPClassNotSupported)
 			continue
@@ -118,7 +118,7 @@ func (c *Client) Store(ctx context.Context, addr string, part10Files [][]byte) (
 			a.u.writeAbort(abortSourceUser, abortNotSpecified)
 			return statuses, fmt.Errorf("store %s: %w", addr, err)
 		}
-		cmd := &command{field: cmdCStoreRQ, sopClass: m.sopClass, sopInstance: m.sopInstance, dataSetType: 0x0000}
+		cmd := &command{field: cmdCStoreRQ, sopClass: m.SOPClassUID, sopInstance: m.SOPInstanceUID, dataSetType: 0x0000}
 		st, err := a.request(id, cmd, m.dataset, cmdCStoreRSP)
 		if err != nil {
 			return statuses, fmt.Errorf("store %s: file %d: %w", addr, i, err)

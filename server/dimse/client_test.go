@@ -87,7 +87,7 @@ func TestClientAgainstStorescp(t *testing.T) {
 		}
 		// storescp names files <modality>.<SOP Instance UID> (DCMTK
 		// default, observed).
-		got := filepath.Join(dir, "MR."+m.sopInstance)
+		got := filepath.Join(dir, "MR."+m.SOPInstanceUID)
 		if _, err := os.Stat(got); err != nil {
 			t.Errorf("%s: storescp wrote no %s", names[i], got)
 			continue
@@ -138,8 +138,8 @@ func TestRoundTripSmallPDU(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		want := part10.Wrap(part10.Meta{SOPClassUID: m.sopClass, SOPInstanceUID: m.sopInstance, TransferSyntaxUID: m.transferSyntax, SourceAETitle: "ROUNDTRIP"}, m.dataset)
-		if !bytes.Equal(got.files[m.sopInstance], want) {
+		want := part10.Wrap(part10.Meta{SOPClassUID: m.SOPClassUID, SOPInstanceUID: m.SOPInstanceUID, TransferSyntaxUID: m.TransferSyntaxUID, SourceAETitle: "ROUNDTRIP"}, m.dataset)
+		if !bytes.Equal(got.files[m.SOPInstanceUID], want) {
 			t.Errorf("%s: received Part 10 file differs from the one expected", f.Name)
 		}
 	}

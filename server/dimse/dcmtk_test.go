@@ -76,9 +76,9 @@ func checkReceived(t *testing.T, sent map[string][]byte, got *received, callingA
 		if err != nil {
 			t.Fatalf("%s: %v", name, err)
 		}
-		rb, ok := got.files[sm.sopInstance]
+		rb, ok := got.files[sm.SOPInstanceUID]
 		if !ok {
-			t.Errorf("%s (%s) not received", name, sm.sopInstance)
+			t.Errorf("%s (%s) not received", name, sm.SOPInstanceUID)
 			continue
 		}
 		rm, err := parsePart10(rb)
@@ -86,8 +86,8 @@ func checkReceived(t *testing.T, sent map[string][]byte, got *received, callingA
 			t.Errorf("%s: received file: %v", name, err)
 			continue
 		}
-		if rm.sopClass != sm.sopClass {
-			t.Errorf("%s: SOP class %s, sent %s", name, rm.sopClass, sm.sopClass)
+		if rm.SOPClassUID != sm.SOPClassUID {
+			t.Errorf("%s: SOP class %s, sent %s", name, rm.SOPClassUID, sm.SOPClassUID)
 		}
 		names = append(names, name)
 		rpaths = append(rpaths, filepath.Join(dir, name+".rcv"))
@@ -100,7 +100,7 @@ func checkReceived(t *testing.T, sent map[string][]byte, got *received, callingA
 		}
 		// Deflated datasets are re-deflated by storescu, so only their
 		// content can be compared.
-		if rm.transferSyntax == sm.transferSyntax && sm.transferSyntax != midsag.DeflatedExplicitVRLittleEndian &&
+		if rm.TransferSyntaxUID == sm.TransferSyntaxUID && sm.TransferSyntaxUID != midsag.DeflatedExplicitVRLittleEndian &&
 			!bytes.Equal(rm.dataset, sm.dataset) {
 			t.Errorf("%s: dataset differs (%d vs %d bytes)", name, len(rm.dataset), len(sm.dataset))
 		}

@@ -35,7 +35,7 @@ func (r *received) handler(status uint16) StoreHandler {
 		if r.files == nil {
 			r.files = map[string][]byte{}
 		}
-		r.files[m.sopInstance] = append([]byte(nil), part10...)
+		r.files[m.SOPInstanceUID] = append([]byte(nil), part10...)
 		r.assoc = append(r.assoc, a)
 		return status
 	}
