@@ -72,7 +72,11 @@ func TestServeGracefulStop(t *testing.T) {
 				if r.err != nil || len(r.st) != 1 || r.st[0] != StatusSuccess {
 					t.Errorf("Store during drain: %04x, %v", r.st, r.err)
 				}
-			} else if r.err == nil {
+			} else if r.err == nil && (len(r.st) != 1 || r.st[0] == StatusSuccess) {
+				// Cut at the bound, the instance must not count as stored:
+				// either the association breaks or, when the handler sees
+				// its context end first, it answers a failure status
+				// (A700 out of resources) before the cut.
 				t.Errorf("Store cut at the drain bound succeeded: %04x", r.st)
 			}
 			if _, err := net.DialTimeout("tcp", l.Addr().String(), time.Second); err == nil {
