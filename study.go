@@ -38,9 +38,39 @@ type Instance struct {
 	ScanningSequence []string
 	SequenceVariant  []string
 	MagneticField    float64
+	// MRAcquisitionType is MR Acquisition Type (0018,0023): 2D or 3D.
+	MRAcquisitionType string
+	// FlipAngle is Flip Angle (0018,1314) in degrees.
+	FlipAngle float64
+	// SequenceName is Sequence Name (0018,0024), PulseSequenceName Pulse
+	// Sequence Name (0018,9005) and EchoPulseSequence Echo Pulse Sequence
+	// (0018,9008: SPIN, GRADIENT or BOTH) of the Enhanced MR modules.
+	SequenceName      string
+	PulseSequenceName string
+	EchoPulseSequence string
+	// DiffusionBValue is Diffusion b-value (0018,9087) in s/mm2;
+	// HasDiffusionBValue tells an absent value from b = 0.
+	DiffusionBValue    float64
+	HasDiffusionBValue bool
+	// LossyImageCompression is Lossy Image Compression (0028,2110): "00"
+	// or "01" (PS3.3 C.7.6.1.1.5).
+	LossyImageCompression string
+	// AcquisitionNumber is (0020,0012); ImagesInAcquisition is Images in
+	// Acquisition (0020,1002), zero when absent.
+	AcquisitionNumber   int
+	ImagesInAcquisition int
 
-	Rows, Columns             int
-	NumberOfFrames            int
+	Rows, Columns  int
+	NumberOfFrames int
+	// Frame is the 0-based frame of the source instance's pixel data this
+	// Instance stands for. A multi-frame instance is read as one Instance
+	// per frame (PS3.3 C.7.6.16), each with the frame's own geometry.
+	Frame int
+	// StackID and InStackPosition are Stack ID (0020,9056) and In-Stack
+	// Position Number (0020,9057) of the frame's Frame Content (PS3.3
+	// C.7.6.16.2.2); empty and zero for single-frame instances.
+	StackID                   string
+	InStackPosition           int
 	SamplesPerPixel           int
 	BitsAllocated, BitsStored int
 	HighBit                   int
