@@ -22,10 +22,13 @@ const (
 	ReasonNoSagittalT2         Reason = "no_sagittal_t2_series"
 	ReasonTooFewSlices         Reason = "too_few_slices"
 	ReasonInconsistentGeometry Reason = "inconsistent_geometry"
-	ReasonModelInputMismatch   Reason = "model_input_mismatch"
-	ReasonBadModel             Reason = "bad_model"
-	ReasonUnknownModel         Reason = "unknown_model"
-	ReasonOverloaded           Reason = "overloaded"
+	// ReasonMidlineNotInSlab refuses a series whose slices do not hold the
+	// patient's midsagittal plane, by the midline cues' evidence.
+	ReasonMidlineNotInSlab   Reason = "midline_not_in_slab"
+	ReasonModelInputMismatch Reason = "model_input_mismatch"
+	ReasonBadModel           Reason = "bad_model"
+	ReasonUnknownModel       Reason = "unknown_model"
+	ReasonOverloaded         Reason = "overloaded"
 	// ReasonBadTable refuses a CSV table for evaluation or calibration: a
 	// missing column, a value that is not a number, an unknown label.
 	ReasonBadTable Reason = "bad_table"

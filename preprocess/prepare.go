@@ -3,6 +3,7 @@ package preprocess
 import (
 	"context"
 	"fmt"
+	"slices"
 	"time"
 
 	"github.com/midsag/midsag"
@@ -52,8 +53,10 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 		sl.Scores[i].InStack = true
 	}
 	flags = append(flags, sflags...)
-	if sl.Center == 0 || sl.Center == len(sl.Instances)-1 {
-		flags = append(flags, "midline_at_slab_edge")
+	flags = append(flags, sl.Flags...)
+	if _, clamped := StackIndices(sl.Center, len(sl.Instances), spec); clamped && !slices.Contains(flags, FlagMidlineAtSlabEdge) {
+		// The stack needs slices beyond the slab's edge.
+		flags = append(flags, FlagMidlineAtSlabEdge)
 	}
 	return &midsag.Prepared{
 		StudyInstanceUID:     st.StudyInstanceUID,

@@ -6,18 +6,47 @@ import (
 	"github.com/midsag/midsag"
 )
 
-// Slice-picking parameters.
+// Midline-picking parameters.
 const (
 	// symmetryReach is how many slices either side of a candidate centre
 	// are compared for left-right mirror symmetry.
 	symmetryReach = 3
-	// priorSigmaSlices is the width of the weak prior towards the slab's
-	// geometric centre, in slices: archived slabs are often one to three
-	// slices off the patient's midline, so the prior only breaks ties.
-	priorSigmaSlices = 4.0
+	// priorSigmaMM is the width of the weak prior towards the slab's
+	// geometric centre, in millimetres: technologists plan the sagittal
+	// slab centred on the cord, but archived slabs are often several
+	// millimetres off (common practice), so the prior only breaks ties.
+	priorSigmaMM = 15.0
 	// thumbSize is the longer side, in pixels, of the thumbnails that the
 	// symmetry term compares; averaging down suppresses noise.
 	thumbSize = 96
+	// Cue weights of the combined objective and the temperature that
+	// turns it into per-slice weights (tuned on package phantom only;
+	// validated on internal/crossphantom, which was written apart).
+	weightSymmetry = 1.0
+	weightCanal    = 1.0
+	weightPrior    = 0.1
+	scoreTemp      = 0.1
+	// MinConfidence is the least confidence of a pick without the flag
+	// midline_uncertain. Confidence is the combined weight of the picked
+	// slice and its two neighbours times the symmetry evidence, which is
+	// full at a symmetry of fullSymmetry or more: on package phantom the
+	// true midline slices score 0.41 to 0.98 with three pairs, and the
+	// best candidates of slabs that miss the midline 0.31 or less.
+	MinConfidence = 0.6
+	fullSymmetry  = 0.6
+	// onePairEvidence discounts symmetry that rests on a single pair of
+	// slices: on package phantom one pair reaches 0.37 on slabs that miss
+	// the midline.
+	onePairEvidence = 0.75
+)
+
+// Midline quality flags.
+const (
+	// FlagMidlineUncertain: the cues are weak or disagree about the plane.
+	FlagMidlineUncertain = "midline_uncertain"
+	// FlagMidlineAtSlabEdge: the pick lies at the slab's edge, so the plane
+	// may lie beyond it, or the model's stack needs slices the slab lacks.
+	FlagMidlineAtSlabEdge = "midline_at_slab_edge"
 )
 
 // Slices is a series sorted along its slice normal with its decoded images
@@ -35,14 +64,26 @@ type Slices struct {
 	// CenterEstimate is the sub-slice estimate it was rounded from.
 	Center         int
 	CenterEstimate float64
+	// Confidence is the combined weight of the picked slice and its
+	// neighbours (0 to 1); Flags are the midline quality flags.
+	Confidence float64
+	Flags      []string
 }
 
-// PickSlices decodes the sorted slices and scores each one's closeness to
-// the patient's midsagittal plane. The score combines image content, the
-// left-right mirror symmetry of the slices either side (the neck is close
-// to symmetric about its midsagittal plane, so slices at equal distances
-// either side look alike), with a weak prior towards the slab's geometric
-// centre. The slab is never assumed to be centred on the patient.
+// PickSlices decodes the sorted slices and picks the one nearest the
+// patient's midsagittal plane from three cues, each reported per slice:
+//
+//   - symmetry: the neck is close to mirror-symmetric about its
+//     midsagittal plane, so slices at equal distances either side of it
+//     look alike;
+//   - canal: only slices through the spinal canal show the bright CSF
+//     either side of the darker cord as one column along the neck, and the
+//     column is longest on the midsagittal slice;
+//   - prior: a weak pull, in millimetres, towards the slab's geometric
+//     centre. The slab is never assumed to be centred on the patient.
+//
+// When no slice shows the canal column, the plane is not in the slab and
+// PickSlices refuses with midline_not_in_slab.
 func PickSlices(s *Slices) error {
 	if len(s.Images) != len(s.Instances) {
 		s.Images = make([]*midsag.Image, len(s.Instances))
@@ -55,15 +96,137 @@ func PickSlices(s *Slices) error {
 		}
 	}
 	n := len(s.Instances)
+	cost, pairs := mirrorCost(s.Images)
+	canal := canalCues(s)
+	maxCol := 0.0
+	for _, c := range canal {
+		maxCol = max(maxCol, c.ColumnMM)
+	}
+	if maxCol < CanalMinColumnMM {
+		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
+			"no slice of the %d shows the CSF-cord column of the spinal canal over %.0f mm or more (longest %.0f mm): the slab does not hold the midsagittal plane",
+			n, CanalMinColumnMM, maxCol)
+	}
+	anat := make([]float64, n)
+	for i, c := range canal {
+		anat[i] = c.ColumnMM / maxCol
+	}
+	mid := (s.Positions[0] + s.Positions[n-1]) / 2
+	pos := func(c float64) float64 {
+		i := int(math.Floor(c))
+		if i >= n-1 {
+			return s.Positions[n-1]
+		}
+		f := c - float64(i)
+		return s.Positions[i]*(1-f) + s.Positions[i+1]*f
+	}
+	anatAt := func(k int) float64 {
+		if k%2 == 0 {
+			return anat[k/2]
+		}
+		return (anat[k/2] + anat[k/2+1]) / 2
+	}
+	obj := make([]float64, 2*n-1)
+	for k := range obj {
+		c := float64(k) / 2
+		sym := 0.0
+		if pairs[k] > 0 {
+			sym = 1 - cost[k]
+		}
+		prior := -0.5 * math.Pow((pos(c)-mid)/priorSigmaMM, 2)
+		obj[k] = weightSymmetry*sym + weightCanal*anatAt(k) + weightPrior*prior
+	}
+	best := 0
+	for k := range obj {
+		if obj[k] > obj[best] {
+			best = k
+		}
+	}
+	est := float64(best) / 2
+	if best > 0 && best < len(obj)-1 {
+		// Parabola through the best half-step and its neighbours.
+		l, c, r := obj[best-1], obj[best], obj[best+1]
+		if den := l - 2*c + r; den < 0 {
+			est += 0.5 * 0.5 * (l - r) / den
+		}
+	}
+	s.CenterEstimate = est
+	s.Center = min(max(int(math.Round(est)), 0), n-1)
+	// Per-slice weights: a softmax of the objective over whole slices.
+	w := make([]float64, n)
+	var sum float64
+	top := obj[0]
+	for i := range w {
+		top = max(top, obj[2*i])
+	}
+	for i := range w {
+		w[i] = math.Exp((obj[2*i] - top) / scoreTemp)
+		sum += w[i]
+	}
+	for i := range w {
+		w[i] /= sum
+	}
+	mass := 0.0
+	for i := max(0, s.Center-1); i <= min(n-1, s.Center+1); i++ {
+		mass += w[i]
+	}
+	evidence := 0.0
+	if k := 2 * s.Center; pairs[k] > 0 {
+		evidence = min(max((1-cost[k])/fullSymmetry, 0), 1)
+		if pairs[k] == 1 {
+			// One pair, one slice from the edge, is weaker evidence.
+			evidence *= onePairEvidence
+		}
+	}
+	evidence *= min(anat[s.Center]/0.5, 1)
+	s.Confidence = round4(mass * evidence)
+	s.Flags = nil
+	uncertain := s.Confidence < MinConfidence
+	if s.Center == 0 || s.Center == n-1 {
+		s.Flags = append(s.Flags, FlagMidlineAtSlabEdge)
+		uncertain = true
+	}
+	if uncertain {
+		s.Flags = append(s.Flags, FlagMidlineUncertain)
+	}
+	s.Scores = make([]midsag.SliceScore, n)
+	for i, in := range s.Instances {
+		k := 2 * i
+		parts := map[string]float64{
+			"canal_column_mm": round2(canal[i].ColumnMM),
+			"canal_depth_mm":  round2(canal[i].DepthMM),
+			"canal":           round4(anat[i]),
+			"symmetry_pairs":  float64(pairs[k]),
+			"center_prior":    round4(math.Exp(-0.5 * math.Pow((s.Positions[i]-mid)/priorSigmaMM, 2))),
+			"distance_mm":     round2(s.Positions[i] - pos(est)),
+			"distance_slices": round2(float64(i) - est),
+		}
+		if pairs[k] > 0 {
+			parts["symmetry"] = round4(1 - cost[k])
+		}
+		s.Scores[i] = midsag.SliceScore{
+			SOPInstanceUID: in.SOPInstanceUID,
+			InstanceNumber: in.InstanceNumber,
+			PositionMM:     round2(s.Positions[i]),
+			MidlineScore:   round4(w[i]),
+			Parts:          parts,
+		}
+	}
+	return nil
+}
+
+// mirrorCost returns, for every candidate centre k/2 (k in 0..2(n-1)), the
+// symmetry cost: the mean, over pairs of slices at equal distance either
+// side, of their squared difference relative to the typical squared
+// difference of slices that far apart anywhere in the series, and the
+// number of pairs it rests on.
+func mirrorCost(images []*midsag.Image) ([]float64, []int) {
+	n := len(images)
 	thumbs := make([][]float32, n)
-	for i, img := range s.Images {
+	for i, img := range images {
 		thumbs[i] = thumbnail(img, thumbSize)
 	}
 	scaleThumbs(thumbs)
-	// mirror[k] is the symmetry cost at candidate centre k/2, for k in
-	// 0..2(n-1): the mean, over pairs of slices at equal distance either
-	// side, of their squared difference relative to the typical squared
-	// difference of slices that far apart anywhere in the series.
 	base := map[int]float64{}
 	for sep := 1; sep <= 2*symmetryReach && sep < n; sep++ {
 		var sum float64
@@ -91,64 +254,24 @@ func PickSlices(s *Slices) error {
 			cost[k] = sum / float64(pairs[k])
 		}
 	}
-	mid := float64(n-1) / 2
-	obj := make([]float64, 2*n-1)
-	for k := range obj {
-		c := float64(k) / 2
-		prior := -0.5 * math.Pow((c-mid)/priorSigmaSlices, 2)
-		sym := 0.0
-		if pairs[k] >= 2 {
-			sym = 1 - cost[k]
-		} else {
-			// Too close to the slab's edge to judge symmetry.
-			sym = -1
-		}
-		obj[k] = sym + 0.1*prior
+	return cost, pairs
+}
+
+// canalCues measures the canal column of every slice on its canonical
+// view, against one bright reference for the series.
+func canalCues(s *Slices) []canalCue {
+	grids := make([][]float32, len(s.Images))
+	hs, ws := make([]int, len(grids)), make([]int, len(grids))
+	for i, img := range s.Images {
+		c, sp := canonical(s.Instances[i], img)
+		grids[i], hs[i], ws[i] = resampleGrid(c, sp)
 	}
-	best := 0
-	for k := range obj {
-		if obj[k] > obj[best] {
-			best = k
-		}
+	b := brightReference(grids)
+	out := make([]canalCue, len(grids))
+	for i := range grids {
+		out[i] = measureCanal(grids[i], hs[i], ws[i], b)
 	}
-	est := float64(best) / 2
-	if best > 0 && best < len(obj)-1 {
-		// Parabola through the best half-step and its neighbours.
-		l, c, r := obj[best-1], obj[best], obj[best+1]
-		if den := l - 2*c + r; den < 0 {
-			est += 0.5 * 0.5 * (l - r) / den
-		}
-	}
-	s.CenterEstimate = est
-	s.Center = int(math.Round(est))
-	if s.Center < 0 {
-		s.Center = 0
-	}
-	if s.Center > n-1 {
-		s.Center = n - 1
-	}
-	s.Scores = make([]midsag.SliceScore, n)
-	for i, in := range s.Instances {
-		k := 2 * i
-		prior := math.Exp(-0.5 * math.Pow((float64(i)-mid)/priorSigmaSlices, 2))
-		sym := 0.0
-		if pairs[k] >= 2 {
-			sym = 1 - cost[k]
-		}
-		s.Scores[i] = midsag.SliceScore{
-			SOPInstanceUID: in.SOPInstanceUID,
-			InstanceNumber: in.InstanceNumber,
-			PositionMM:     round2(s.Positions[i]),
-			MidlineScore:   round4(math.Exp(-0.5 * math.Pow(float64(i)-est, 2))),
-			Parts: map[string]float64{
-				"symmetry":        round4(sym),
-				"symmetry_pairs":  float64(pairs[k]),
-				"center_prior":    round4(prior),
-				"distance_slices": round2(float64(i) - est),
-			},
-		}
-	}
-	return nil
+	return out
 }
 
 // thumbnail box-averages img so its longer side is at most size pixels.

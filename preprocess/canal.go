@@ -1,0 +1,226 @@
+package preprocess
+
+import (
+	"math"
+	"sort"
+
+	"github.com/midsag/midsag"
+)
+
+// Canal-column cue parameters. On a T2-weighted sagittal slice through the
+// spinal canal, bright CSF lies in front of and behind the darker cord, so
+// a profile along the anterior-posterior axis reads bright, dark, bright;
+// on the midsagittal slice that pattern runs without a break from the
+// foramen magnum to the thoracic inlet. Slices lateral to the canal (beyond
+// the cord's half-width of about 6 to 7 mm, from memory: adult cervical
+// cord transverse diameter 12 to 14 mm) lose it.
+const (
+	// canalGridMM is the measurement grid: slices are resampled to this
+	// pixel size so every threshold below is in millimetres.
+	canalGridMM = 1.0
+	// canalMinSepMM and canalMaxSepMM bound the distance between the CSF
+	// maxima either side of the cord: the adult cervical cord is 6 to 9 mm
+	// deep and the canal 12 to 17 mm (from memory), and partial volume
+	// moves the maxima to the middle of each CSF layer.
+	canalMinSepMM = 4.0
+	canalMaxSepMM = 20.0
+	// canalFlank is the least CSF brightness, as a fraction of the series'
+	// bright reference (its 99th percentile), and canalDip the least fall
+	// from the darker flank to the cord, as a fraction of that flank
+	// (common practice for "clearly darker"; tuned on package phantom only).
+	canalFlank = 0.75
+	canalDip   = 0.25
+	// canalGapMM is the longest stretch a column may be broken for and
+	// still count as one column: a compressed level effaces the CSF over a
+	// disc height or two (a cervical disc is 5 to 6 mm high, from memory).
+	canalGapMM = 14.0
+	// canalDriftMM is how far the column's centre may move along the
+	// anterior-posterior axis per millimetre of height (lordosis bends the
+	// canal by well under 1 mm per mm, from memory).
+	canalDriftMM = 1.0
+	// CanalMinColumnMM is the shortest column that counts as the canal:
+	// a cervical sagittal field of view holds 100 mm or more of cord
+	// (common practice), and chance bright-dark-bright runs in muscle and
+	// fat are a few millimetres long.
+	CanalMinColumnMM = 40.0
+)
+
+// canalCue is what the canal-column measurement found in one slice.
+type canalCue struct {
+	// ColumnMM is the height covered by the longest bright-dark-bright
+	// column (rows that show the pattern, in mm); DepthMM is the median
+	// distance between its CSF maxima.
+	ColumnMM float64
+	DepthMM  float64
+	// APmm is the median anterior-posterior position of the column.
+	APmm float64
+	// Flank is the median brightness of the column's darker CSF maximum
+	// relative to the series' bright reference; Ratio the median cord to
+	// CSF brightness ratio.
+	Flank, Ratio float64
+}
+
+// resampleGrid turns a canonical image (rows superior to inferior, columns
+// anterior to posterior) with pixel spacing sp into a grid of canalGridMM
+// pixels by box-averaging, which also averages noise down.
+func resampleGrid(img *midsag.Image, sp [2]float64) (pix []float32, h, w int) {
+	h = int(float64(img.Rows) * sp[0] / canalGridMM)
+	w = int(float64(img.Columns) * sp[1] / canalGridMM)
+	if h < 1 || w < 1 {
+		return nil, 0, 0
+	}
+	pix = make([]float32, h*w)
+	for y := 0; y < h; y++ {
+		y0 := int(float64(y) * canalGridMM / sp[0])
+		y1 := max(y0+1, int(float64(y+1)*canalGridMM/sp[0]))
+		y1 = min(y1, img.Rows)
+		for x := 0; x < w; x++ {
+			x0 := int(float64(x) * canalGridMM / sp[1])
+			x1 := max(x0+1, int(float64(x+1)*canalGridMM/sp[1]))
+			x1 = min(x1, img.Columns)
+			var sum float32
+			n := 0
+			for yy := y0; yy < y1; yy++ {
+				row := img.Pix[yy*img.Columns:]
+				for xx := x0; xx < x1; xx++ {
+					sum += row[xx]
+					n++
+				}
+			}
+			if n > 0 {
+				pix[y*w+x] = sum / float32(n)
+			}
+		}
+	}
+	return pix, h, w
+}
+
+// brightReference is the 99th percentile of the grids' pixels: the level
+// of CSF on a T2-weighted image (common practice: CSF is the brightest
+// tissue of a T2-weighted spine).
+func brightReference(grids [][]float32) float64 {
+	var all []float32
+	for _, g := range grids {
+		for i := 0; i < len(g); i += 3 {
+			all = append(all, g[i])
+		}
+	}
+	if len(all) == 0 {
+		return 0
+	}
+	sort.Slice(all, func(i, j int) bool { return all[i] < all[j] })
+	return float64(all[int(0.99*float64(len(all)-1))])
+}
+
+// triplet is one bright-dark-bright crossing of a row.
+type triplet struct {
+	mid, sep     float64
+	flank, ratio float64 // darker flank / bright reference; dip / darker flank
+}
+
+// measureCanal finds the longest continuous CSF-cord-CSF column in a grid
+// of h x w millimetre pixels.
+func measureCanal(pix []float32, h, w int, bright float64) canalCue {
+	if h < 3 || w < 3 || bright <= 0 {
+		return canalCue{}
+	}
+	// Smooth over three rows: the column runs superior-inferior, noise
+	// does not.
+	sm := make([]float32, h*w)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var s float32
+			n := 0
+			for dy := -1; dy <= 1; dy++ {
+				if yy := y + dy; yy >= 0 && yy < h {
+					s += pix[yy*w+x]
+					n++
+				}
+			}
+			sm[y*w+x] = s / float32(n)
+		}
+	}
+	reach := int(canalMaxSepMM / canalGridMM)
+	flank := float32(canalFlank * bright)
+	rows := make([][]triplet, h)
+	for y := 0; y < h; y++ {
+		p := sm[y*w : (y+1)*w]
+		for x := 1; x < w-1; x++ {
+			if !(p[x] <= p[x-1] && p[x] < p[x+1]) {
+				continue
+			}
+			l, li := p[x], x
+			for xx := x - 1; xx >= max(0, x-reach); xx-- {
+				if p[xx] > l {
+					l, li = p[xx], xx
+				}
+			}
+			r, ri := p[x], x
+			for xx := x + 1; xx < min(w, x+reach); xx++ {
+				if p[xx] > r {
+					r, ri = p[xx], xx
+				}
+			}
+			lo := min(l, r)
+			sep := float64(ri-li) * canalGridMM
+			if lo < flank || p[x] > lo*(1-canalDip) || sep < canalMinSepMM || sep > canalMaxSepMM {
+				continue
+			}
+			rows[y] = append(rows[y], triplet{mid: float64(x) * canalGridMM, sep: sep, flank: float64(lo) / bright, ratio: float64(p[x] / lo)})
+		}
+	}
+	// Longest chain: rows with a crossing, each within the drift of a
+	// crossing at most canalGapMM above it.
+	type node struct {
+		count    int
+		prevY    int
+		prevI    int
+		triplet  triplet
+		hasChain bool
+	}
+	gap := int(canalGapMM / canalGridMM)
+	chains := make([][]node, h)
+	bestY, bestI, bestN := -1, -1, 0
+	for y := 0; y < h; y++ {
+		chains[y] = make([]node, len(rows[y]))
+		for i, t := range rows[y] {
+			nd := node{count: 1, prevY: -1, prevI: -1, triplet: t}
+			for dy := 1; dy <= gap+1 && y-dy >= 0; dy++ {
+				for j, pt := range rows[y-dy] {
+					if math.Abs(pt.mid-t.mid) > canalDriftMM*float64(dy)+1 {
+						continue
+					}
+					if c := chains[y-dy][j].count + 1; c > nd.count {
+						nd.count, nd.prevY, nd.prevI = c, y-dy, j
+					}
+				}
+			}
+			chains[y][i] = nd
+			if nd.count > bestN {
+				bestY, bestI, bestN = y, i, nd.count
+			}
+		}
+	}
+	if bestN == 0 {
+		return canalCue{}
+	}
+	var seps, mids, flanks, ratios []float64
+	for y, i := bestY, bestI; y >= 0; {
+		nd := chains[y][i]
+		seps = append(seps, nd.triplet.sep)
+		mids = append(mids, nd.triplet.mid)
+		flanks = append(flanks, nd.triplet.flank)
+		ratios = append(ratios, nd.triplet.ratio)
+		y, i = nd.prevY, nd.prevI
+	}
+	return canalCue{ColumnMM: float64(bestN) * canalGridMM, DepthMM: median(seps), APmm: median(mids), Flank: median(flanks), Ratio: median(ratios)}
+}
+
+func median(v []float64) float64 {
+	if len(v) == 0 {
+		return 0
+	}
+	s := append([]float64(nil), v...)
+	sort.Float64s(s)
+	return s[len(s)/2]
+}
