@@ -30,21 +30,23 @@ type Score struct {
 // Result is the outcome of scoring one study. Its JSON form is the public
 // result contract (DESIGN.md); field names follow the proto's snake_case.
 type Result struct {
-	ResultID             string            `json:"result_id"`
-	CreatedAt            time.Time         `json:"created_at"`
-	StudyInstanceUID     string            `json:"study_instance_uid"`
-	SeriesInstanceUID    string            `json:"series_instance_uid"`
-	CenterSOPInstanceUID string            `json:"center_sop_instance_uid"`
-	Slices               []SliceScore      `json:"slices"`
-	SeriesCandidates     []SeriesCandidate `json:"series_candidates"`
-	Model                ModelInfo         `json:"model"`
-	RawOutput            float64           `json:"raw_output"`
-	Probability          float64           `json:"probability"`
-	CalibratedProb       float64           `json:"calibrated_probability"`
-	CalibrationMethod    string            `json:"calibration_method"`
-	Threshold            float64           `json:"threshold"`
-	Decision             string            `json:"decision"`
-	QualityFlags         []string          `json:"quality_flags"`
+	ResultID             string       `json:"result_id"`
+	CreatedAt            time.Time    `json:"created_at"`
+	StudyInstanceUID     string       `json:"study_instance_uid"`
+	SeriesInstanceUID    string       `json:"series_instance_uid"`
+	CenterSOPInstanceUID string       `json:"center_sop_instance_uid"`
+	Slices               []SliceScore `json:"slices"`
+	// MidlineConfidence is the confidence of the midline pick, 0 to 1.
+	MidlineConfidence float64           `json:"midline_confidence"`
+	SeriesCandidates  []SeriesCandidate `json:"series_candidates"`
+	Model             ModelInfo         `json:"model"`
+	RawOutput         float64           `json:"raw_output"`
+	Probability       float64           `json:"probability"`
+	CalibratedProb    float64           `json:"calibrated_probability"`
+	CalibrationMethod string            `json:"calibration_method"`
+	Threshold         float64           `json:"threshold"`
+	Decision          string            `json:"decision"`
+	QualityFlags      []string          `json:"quality_flags"`
 	// Explanation is set when the Pipeline has an Explainer.
 	Explanation *Explanation       `json:"explanation,omitempty"`
 	Notice      string             `json:"notice"`

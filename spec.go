@@ -64,8 +64,10 @@ type Prepared struct {
 	CenterSOPInstanceUID string
 	Candidates           []SeriesCandidate
 	Slices               []SliceScore
-	Input                *Tensor
-	QualityFlags         []string
+	// MidlineConfidence is the confidence of the midline pick, 0 to 1.
+	MidlineConfidence float64
+	Input             *Tensor
+	QualityFlags      []string
 	// TimingsMS holds per-step durations (read excluded).
 	TimingsMS map[string]float64
 }

@@ -64,6 +64,7 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 		CenterSOPInstanceUID: sl.Instances[sl.Center].SOPInstanceUID,
 		Candidates:           cands,
 		Slices:               sl.Scores,
+		MidlineConfidence:    sl.Confidence,
 		Input:                tensor,
 		QualityFlags:         flags,
 		TimingsMS:            timings,

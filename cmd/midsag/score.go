@@ -204,8 +204,8 @@ func printSummary(w io.Writer, r *midsag.Result) {
 			center = i
 		}
 	}
-	fmt.Fprintf(w, "midline      slice %d of %d (instance %d); stack %s\n",
-		center+1, len(r.Slices), r.Slices[center].InstanceNumber, strings.Join(stack, ","))
+	fmt.Fprintf(w, "midline      slice %d of %d (instance %d), confidence %.2f; stack %s\n",
+		center+1, len(r.Slices), r.Slices[center].InstanceNumber, r.MidlineConfidence, strings.Join(stack, ","))
 	fmt.Fprintf(w, "model        %s %s (sha256 %.12s)\n", r.Model.Name, r.Model.Version, r.Model.SHA256)
 	fmt.Fprintf(w, "probability  %.4g uncalibrated, %.4g calibrated (%s)\n", r.Probability, r.CalibratedProb, r.CalibrationMethod)
 	fmt.Fprintf(w, "decision     %s (threshold %.2f)\n", r.Decision, r.Threshold)

@@ -658,6 +658,10 @@ type Result struct {
 	Notice                string             `protobuf:"bytes,16,opt,name=notice,proto3" json:"notice,omitempty"`
 	TimingsMs             map[string]float64 `protobuf:"bytes,17,rep,name=timings_ms,json=timingsMs,proto3" json:"timings_ms,omitempty" protobuf_key:"bytes,1,opt,name=key" protobuf_val:"fixed64,2,opt,name=value"`
 	Explanation           *Explanation       `protobuf:"bytes,18,opt,name=explanation,proto3" json:"explanation,omitempty"`
+	// midline_confidence is the confidence of the midline pick, 0 to 1: the
+	// combined weight of the centre slice and its neighbours times the
+	// symmetry evidence; below 0.6 the result carries midline_uncertain.
+	MidlineConfidence float64 `protobuf:"fixed64,19,opt,name=midline_confidence,json=midlineConfidence,proto3" json:"midline_confidence,omitempty"`
 	// version counts result versions of the same study from 1.
 	Version int32 `protobuf:"varint,30,opt,name=version,proto3" json:"version,omitempty"`
 	// status is pending, running, done, rejected or failed.
@@ -825,6 +829,13 @@ func (x *Result) GetExplanation() *Explanation {
 		return x.Explanation
 	}
 	return nil
+}
+
+func (x *Result) GetMidlineConfidence() float64 {
+	if x != nil {
+		return x.MidlineConfidence
+	}
+	return 0
 }
 
 func (x *Result) GetVersion() int32 {
@@ -1338,7 +1349,7 @@ const file_midsag_v1_midsag_proto_rawDesc = "" +
 	"\adefault\x18\x04 \x01(\bR\adefault\x12\x16\n" +
 	"\x06labels\x18\x05 \x03(\tR\x06labels\x12!\n" +
 	"\fintended_use\x18\x06 \x01(\tR\vintendedUse\x12\x16\n" +
-	"\x06source\x18\a \x01(\tR\x06source\"\xd9\a\n" +
+	"\x06source\x18\a \x01(\tR\x06source\"\x88\b\n" +
 	"\x06Result\x12\x1b\n" +
 	"\tresult_id\x18\x01 \x01(\tR\bresultId\x12\x1d\n" +
 	"\n" +
@@ -1361,7 +1372,8 @@ const file_midsag_v1_midsag_proto_rawDesc = "" +
 	"\x06notice\x18\x10 \x01(\tR\x06notice\x12?\n" +
 	"\n" +
 	"timings_ms\x18\x11 \x03(\v2 .midsag.v1.Result.TimingsMsEntryR\ttimingsMs\x128\n" +
-	"\vexplanation\x18\x12 \x01(\v2\x16.midsag.v1.ExplanationR\vexplanation\x12\x18\n" +
+	"\vexplanation\x18\x12 \x01(\v2\x16.midsag.v1.ExplanationR\vexplanation\x12-\n" +
+	"\x12midline_confidence\x18\x13 \x01(\x01R\x11midlineConfidence\x12\x18\n" +
 	"\aversion\x18\x1e \x01(\x05R\aversion\x12\x16\n" +
 	"\x06status\x18\x1f \x01(\tR\x06status\x12\x16\n" +
 	"\x06reason\x18  \x01(\tR\x06reason\x12\x18\n" +
