@@ -162,7 +162,9 @@ func TestSeriesProtocolTable(t *testing.T) {
 				in.DiffusionBValue, in.HasDiffusionBValue = 1000, true
 			}, false, "Diffusion b-value 1000", ""},
 		{"echo-planar by Scanning Sequence", "PS3.3 C.8.3.1 Scanning Sequence EP", "sag t2",
-			func(in *midsag.Instance) { in.ScanningSequence, in.RepetitionTime, in.EchoTime = []string{"SE", "EP"}, 4000, 90 },
+			func(in *midsag.Instance) {
+				in.ScanningSequence, in.RepetitionTime, in.EchoTime = []string{"SE", "EP"}, 4000, 90
+			},
 			false, "echo-planar: Scanning Sequence SE\\EP", ""},
 		{"echo-planar by Sequence Name", "Siemens sequence name, as in dcm_qa_ts", "sag t2",
 			func(in *midsag.Instance) { in.SequenceName, in.RepetitionTime, in.EchoTime = "*ep_b0", 4000, 90 },
