@@ -22,10 +22,20 @@ const (
 	ReasonNoSagittalT2         Reason = "no_sagittal_t2_series"
 	ReasonTooFewSlices         Reason = "too_few_slices"
 	ReasonInconsistentGeometry Reason = "inconsistent_geometry"
-	ReasonModelInputMismatch   Reason = "model_input_mismatch"
-	ReasonBadModel             Reason = "bad_model"
-	ReasonUnknownModel         Reason = "unknown_model"
-	ReasonOverloaded           Reason = "overloaded"
+	// ReasonIncompleteSeries refuses a series with slices missing inside
+	// its slab: a gap along the slice normal that is a whole multiple of
+	// the series' spacing. Slices missing only at an end are scored with
+	// the quality flag series_incomplete instead.
+	ReasonIncompleteSeries Reason = "incomplete_series"
+	// ReasonDuplicateInstance refuses an input holding two instances with
+	// the same SOP Instance UID (and frame) but different headers or pixel
+	// data: the archive is inconsistent and either could be the right one.
+	// Identical resends are dropped silently.
+	ReasonDuplicateInstance  Reason = "duplicate_instance"
+	ReasonModelInputMismatch Reason = "model_input_mismatch"
+	ReasonBadModel           Reason = "bad_model"
+	ReasonUnknownModel       Reason = "unknown_model"
+	ReasonOverloaded         Reason = "overloaded"
 	// ReasonBadTable refuses a CSV table for evaluation or calibration: a
 	// missing column, a value that is not a number, an unknown label.
 	ReasonBadTable Reason = "bad_table"

@@ -32,8 +32,10 @@ type Instance struct {
 	// ImagePosition is Image Position (Patient) (0020,0032) in mm.
 	ImagePosition [3]float64
 	HasGeometry   bool
-	// PixelSpacing is (row spacing, column spacing) in mm, PS3.3 10.7.1.3.
+	// PixelSpacing is (row spacing, column spacing) in mm, PS3.3 10.7.1.3;
+	// HasPixelSpacing is false when Pixel Spacing (0028,0030) is absent.
 	PixelSpacing         [2]float64
+	HasPixelSpacing      bool
 	SliceThickness       float64
 	SpacingBetweenSlices float64
 

@@ -276,6 +276,7 @@ func (p *Preprocessor) instance(ds dicom.Dataset) (*midsag.Instance, error) {
 	}
 	if ps := a.floats(tag.PixelSpacing); len(ps) == 2 {
 		copy(inst.PixelSpacing[:], ps)
+		inst.HasPixelSpacing = true
 	}
 	if inst.BitsStored == 0 {
 		inst.BitsStored = inst.BitsAllocated

@@ -276,6 +276,7 @@ func readRealSeries(t *testing.T, root string, globs ...string) *midsag.Study {
 			if err != nil {
 				t.Fatalf("%s: %v", p, err)
 			}
+			in.Source = p
 			insts = append(insts, in)
 		}
 	}
