@@ -1,11 +1,15 @@
 package preprocess
 
 import (
+	"bytes"
 	"math"
+	"os"
+	"path/filepath"
 	"strings"
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/testtool"
 )
 
 // withoutFiles returns the study's only series without the instances
@@ -182,5 +186,68 @@ func TestSortSlicesRefusesBadPlane(t *testing.T) {
 	se := protocolSeries("1.2.12", "sag t2", 6, func(in *midsag.Instance) { in.PixelSpacing = [2]float64{} })
 	if _, err := SortSlices(se); err != nil {
 		t.Errorf("absent Pixel Spacing: %v", err)
+	}
+}
+
+// TestDedupe reads a real file (shared/realdata Toshiba slice 1) twice
+// under two names, which is a resend and dropped, and once more after
+// DCMTK's dcmodify changed its Echo Time, which keeps the SOP Instance UID
+// and is refused as duplicate_instance naming the UID.
+func TestDedupe(t *testing.T) {
+	real := seriesRealdata(t)
+	src := filepath.Join(real, "vendor/dcm_qa_toshiba/In/Galan/6006_DTI_SAG_30d/0001.dcm")
+	data, err := os.ReadFile(src)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	changed := filepath.Join(dir, "changed.dcm")
+	if err := os.WriteFile(changed, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	testtool.Run(t, "dcmodify", "-nb", "-m", "(0018,0081)=95", changed)
+	pre := New(Options{})
+	read := func(name string, b []byte) *midsag.Instance {
+		in, err := pre.Read(name, bytes.NewReader(b))
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		in.Source = name
+		return in
+	}
+	a, b := read("a/0001.dcm", data), read("b/0001.dcm", data)
+	out, err := Dedupe([]*midsag.Instance{a, b})
+	if err != nil || len(out) != 1 || out[0] != a {
+		t.Fatalf("identical resend: %d kept, %v; want the first kept", len(out), err)
+	}
+	cb, err := os.ReadFile(changed)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := read("changed.dcm", cb)
+	if c.SOPInstanceUID != a.SOPInstanceUID || c.EchoTime != 95 {
+		t.Fatalf("dcmodify result: UID %s TE %v", c.SOPInstanceUID, c.EchoTime)
+	}
+	_, err = Dedupe([]*midsag.Instance{a, b, c})
+	if !isReason(err, midsag.ReasonDuplicateInstance) {
+		t.Fatalf("different content: %v, want duplicate_instance", err)
+	}
+	for _, want := range []string{a.SOPInstanceUID, "header attributes differ", "a/0001.dcm", "changed.dcm"} {
+		if !strings.Contains(err.Error(), want) {
+			t.Errorf("message %q lacks %q", err, want)
+		}
+	}
+	// Same header, other pixel bytes.
+	d := read("d.dcm", data)
+	d.PixelData = append([]byte(nil), d.PixelData...)
+	d.PixelData[0] ^= 1
+	if _, err := Dedupe([]*midsag.Instance{a, d}); !isReason(err, midsag.ReasonDuplicateInstance) || !strings.Contains(err.Error(), "pixel data differs") {
+		t.Errorf("different pixels: %v", err)
+	}
+	// Frames of one multi-frame instance share the UID and are not duplicates.
+	f0, f1 := *a, *a
+	f1.Frame = 1
+	if out, err := Dedupe([]*midsag.Instance{&f0, &f1}); err != nil || len(out) != 2 {
+		t.Errorf("two frames of one instance: %d kept, %v", len(out), err)
 	}
 }
