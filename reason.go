@@ -24,7 +24,17 @@ const (
 	ReasonInconsistentGeometry Reason = "inconsistent_geometry"
 	// ReasonMidlineNotInSlab refuses a series whose slices do not hold the
 	// patient's midsagittal plane, by the midline cues' evidence.
-	ReasonMidlineNotInSlab   Reason = "midline_not_in_slab"
+	ReasonMidlineNotInSlab Reason = "midline_not_in_slab"
+	// ReasonIncompleteSeries refuses a series with slices missing inside
+	// its slab: a gap along the slice normal that is a whole multiple of
+	// the series' spacing. Slices missing only at an end are scored with
+	// the quality flag series_incomplete instead.
+	ReasonIncompleteSeries Reason = "incomplete_series"
+	// ReasonDuplicateInstance refuses an input holding two instances with
+	// the same SOP Instance UID (and frame) but different headers or pixel
+	// data: the archive is inconsistent and either could be the right one.
+	// Identical resends are dropped silently.
+	ReasonDuplicateInstance  Reason = "duplicate_instance"
 	ReasonModelInputMismatch Reason = "model_input_mismatch"
 	ReasonBadModel           Reason = "bad_model"
 	ReasonUnknownModel       Reason = "unknown_model"

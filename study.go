@@ -18,6 +18,12 @@ type Instance struct {
 	InstanceNumber    int
 	// ImageType is Image Type (0008,0008), e.g. ORIGINAL\PRIMARY\M.
 	ImageType []string
+	// DerivationDescription is Derivation Description (0008,2111) and
+	// DerivationCodes the "scheme:value" codes of the Derivation Code
+	// Sequence (0008,9215), e.g. "DCM:113040" (Lossy Compression); they say
+	// how a DERIVED image was derived (PS3.3 C.7.6.1.1.3).
+	DerivationDescription string
+	DerivationCodes       []string
 
 	// ImageOrientation is Image Orientation (Patient) (0020,0037): row then
 	// column direction cosines. HasGeometry is false when it or Image
@@ -26,8 +32,10 @@ type Instance struct {
 	// ImagePosition is Image Position (Patient) (0020,0032) in mm.
 	ImagePosition [3]float64
 	HasGeometry   bool
-	// PixelSpacing is (row spacing, column spacing) in mm, PS3.3 10.7.1.3.
+	// PixelSpacing is (row spacing, column spacing) in mm, PS3.3 10.7.1.3;
+	// HasPixelSpacing is false when Pixel Spacing (0028,0030) is absent.
 	PixelSpacing         [2]float64
+	HasPixelSpacing      bool
 	SliceThickness       float64
 	SpacingBetweenSlices float64
 
@@ -48,6 +56,9 @@ type Instance struct {
 	SequenceName      string
 	PulseSequenceName string
 	EchoPulseSequence string
+	// EchoPlanarPulseSequence is Echo Planar Pulse Sequence (0018,9018):
+	// YES or NO (PS3.3 C.8.13.5.1).
+	EchoPlanarPulseSequence string
 	// DiffusionBValue is Diffusion b-value (0018,9087) in s/mm2;
 	// HasDiffusionBValue tells an absent value from b = 0.
 	DiffusionBValue    float64
@@ -55,6 +66,9 @@ type Instance struct {
 	// LossyImageCompression is Lossy Image Compression (0028,2110): "00"
 	// or "01" (PS3.3 C.7.6.1.1.5).
 	LossyImageCompression string
+	// LossyImageCompressionMethod is (0028,2114), e.g. ISO_10918_1 or
+	// ISO_15444_1 (PS3.3 C.7.6.1.1.5.1).
+	LossyImageCompressionMethod []string
 	// AcquisitionNumber is (0020,0012); ImagesInAcquisition is Images in
 	// Acquisition (0020,1002), zero when absent.
 	AcquisitionNumber   int

@@ -147,3 +147,52 @@ func TestShardFNV1a(t *testing.T) {
 		}
 	}
 }
+
+// TestDiscoverFollowsLinks discovers a cohort laid out as data-versioning
+// tools do, with real symbolic links: the root is a link, one study is a
+// folder of links to files in an object store, another a link to a study
+// folder, with a link loop back to the root and a dangling link. Both
+// studies are found (the phantom's truth), the loop ends, and the dangling
+// link is counted as unreadable rather than skipped.
+func TestDiscoverFollowsLinks(t *testing.T) {
+	dir := t.TempDir()
+	store := filepath.Join(dir, "store")
+	truths, err := phantom.Generate(store, phantom.Options{Studies: 2, Seed: 22, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	cohortDir := filepath.Join(dir, "cohort")
+	link := func(target, name string) {
+		t.Helper()
+		if err := os.MkdirAll(filepath.Dir(name), 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.Symlink(target, name); err != nil {
+			t.Fatal(err)
+		}
+	}
+	files0, _ := filepath.Glob(filepath.Join(store, truths[0].Study, "*"))
+	for _, f := range files0 {
+		link(f, filepath.Join(cohortDir, "a", filepath.Base(f)))
+	}
+	link(filepath.Join(store, truths[1].Study), filepath.Join(cohortDir, "b"))
+	link(cohortDir, filepath.Join(cohortDir, "a", "loop"))
+	link(filepath.Join(store, "gone.dcm"), filepath.Join(cohortDir, "a", "zz-missing.dcm"))
+	rootLink := filepath.Join(dir, "cohort-link")
+	link(cohortDir, rootLink)
+
+	st, err := Open(t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	hr := &countingHeaders{pre: preprocess.New(preprocess.Options{})}
+	d, err := st.Discover(context.Background(), rootLink, hr, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files1, _ := filepath.Glob(filepath.Join(store, truths[1].Study, "*"))
+	if d.Studies != 2 || d.Files != len(files0)+len(files1)+1 || d.Refused[ReasonUnreadable] != 1 {
+		t.Errorf("discovery %+v; want 2 studies, %d files, 1 unreadable (the dangling link)", d, len(files0)+len(files1)+1)
+	}
+}

@@ -72,8 +72,11 @@ type fileInfo struct {
 // Discover walks root (folders and zip archives, any layout), reads the
 // header of every file not already in the index with the same size and
 // modification time, and records each file's Study Instance UID or the
-// reason it was refused. Hidden files and folders, and the store's own
-// folder, are skipped. Unreadable files are recorded, never fatal.
+// reason it was refused. Symbolic links to files and folders are followed,
+// each folder walked once (inputs.Walk); the size and time recorded are
+// the link target's. Hidden files and folders, and the store's own
+// folder, are skipped. Unreadable files and broken links are recorded as
+// unreadable, never fatal.
 func (s *Store) Discover(ctx context.Context, root string, hr HeaderReader, workers int) (*Discovery, error) {
 	gen, err := s.nextGen(ctx)
 	if err != nil {
@@ -87,35 +90,18 @@ func (s *Store) Discover(ctx context.Context, root string, hr HeaderReader, work
 		batch = batch[:0]
 		return err
 	}
-	err = filepath.WalkDir(root, func(path string, e fs.DirEntry, err error) error {
+	ownInfo, ownErr := os.Stat(s.dir)
+	skip := func(path string, info fs.FileInfo) bool {
+		if ownErr == nil && os.SameFile(info, ownInfo) {
+			return true
+		}
+		abs, _ := filepath.Abs(path)
+		return abs == own
+	}
+	err = inputs.Walk(root, skip, func(path string, info fs.FileInfo, err error) error {
 		if err != nil {
-			if path == root {
-				return err
-			}
-			// An unreadable folder is recorded like an unreadable file.
-			batch = append(batch, fileInfo{path: path, size: -1})
-			if e != nil && e.IsDir() {
-				return filepath.SkipDir
-			}
-			return nil
-		}
-		if path != root && inputs.Hidden(e.Name()) {
-			if e.IsDir() {
-				return filepath.SkipDir
-			}
-			return nil
-		}
-		if e.IsDir() {
-			if abs, _ := filepath.Abs(path); abs == own {
-				return filepath.SkipDir
-			}
-			return nil
-		}
-		if !e.Type().IsRegular() {
-			return nil
-		}
-		info, err := e.Info()
-		if err != nil {
+			// An unreadable folder or a broken link is recorded like an
+			// unreadable file, never skipped silently.
 			batch = append(batch, fileInfo{path: path, size: -1})
 		} else {
 			batch = append(batch, fileInfo{path: path, size: info.Size(), mtime: info.ModTime().UnixNano()})

@@ -10,7 +10,6 @@ package inputs
 import (
 	"archive/zip"
 	"bytes"
-	"fmt"
 	"io"
 	"io/fs"
 	"os"
@@ -50,8 +49,11 @@ func File(path string) midsag.Source {
 }
 
 // Collect expands paths into one source per file: files as given, folders
-// walked recursively in name order, and zip archives opened entry by
-// entry. The returned function closes the archives. A missing path or
+// walked recursively in name order following symbolic links (see Walk),
+// and zip archives opened entry by entry. An entry of a folder that
+// cannot be read, such as a broken link, becomes a source whose Open
+// returns a ReasonNoInput refusal naming it, so it is reported rather than
+// skipped silently. The returned function closes the archives. A missing path or
 // nothing found is ReasonNoInput, an unreadable archive ReasonNotDICOM,
 // one with too many entries ReasonTooLarge.
 func Collect(paths []string) ([]midsag.Source, func(), error) {
@@ -74,29 +76,23 @@ func Collect(paths []string) ([]midsag.Source, func(), error) {
 			return fail(midsag.Reject(midsag.ReasonNoInput, "cannot open input", err))
 		}
 		if st.IsDir() {
-			var files []string
-			err := filepath.WalkDir(p, func(path string, d fs.DirEntry, err error) error {
+			var files []midsag.Source
+			err := Walk(p, nil, func(path string, _ fs.FileInfo, err error) error {
 				if err != nil {
-					return err
-				}
-				if path != p && Hidden(d.Name()) {
-					if d.IsDir() {
-						return filepath.SkipDir
-					}
+					// Reported through the source: reading it gives the
+					// refusal, which Pipeline.Read counts as a skipped file.
+					refusal := midsag.Reject(midsag.ReasonNoInput, "cannot read "+path, err)
+					files = append(files, midsag.Source{Name: path, Open: func() (io.ReadCloser, error) { return nil, refusal }})
 					return nil
 				}
-				if d.Type().IsRegular() {
-					files = append(files, path)
-				}
+				files = append(files, File(path))
 				return nil
 			})
 			if err != nil {
-				return fail(fmt.Errorf("walk %s: %w", p, err))
+				return fail(midsag.Reject(midsag.ReasonNoInput, "cannot read folder "+p, err))
 			}
-			sort.Strings(files)
-			for _, f := range files {
-				out = append(out, File(f))
-			}
+			sort.Slice(files, func(i, j int) bool { return files[i].Name < files[j].Name })
+			out = append(out, files...)
 			continue
 		}
 		if !zipFile(p) {

@@ -102,3 +102,80 @@ func TestRules(t *testing.T) {
 		t.Error("Hidden or IsZip disagree with their definitions")
 	}
 }
+
+// TestCollectFollowsLinks lays a cohort out as data-versioning tools do,
+// with real symbolic links in a temporary folder: a study folder that is
+// a link, a folder of file links into an object store, a link loop back
+// to the root and a dangling link. Every file is found once per path, the
+// loop ends, and the dangling link becomes a source whose Open gives a
+// no_input refusal naming it.
+func TestCollectFollowsLinks(t *testing.T) {
+	dir := t.TempDir()
+	objects := filepath.Join(dir, "objects")
+	write(t, filepath.Join(objects, "aa"), []byte("one"))
+	write(t, filepath.Join(objects, "bb"), []byte("two"))
+	write(t, filepath.Join(dir, "real", "s1", "IM1"), []byte("three"))
+	root := filepath.Join(dir, "cohort")
+	links := map[string]string{
+		filepath.Join(root, "s1"):            filepath.Join(dir, "real", "s1"),
+		filepath.Join(root, "s2", "IM1"):     filepath.Join(objects, "aa"),
+		filepath.Join(root, "s2", "IM2"):     filepath.Join(objects, "bb"),
+		filepath.Join(root, "s2", "loop"):    root,
+		filepath.Join(root, "s2", "missing"): filepath.Join(objects, "cc"),
+	}
+	for link, target := range links {
+		if err := os.MkdirAll(filepath.Dir(link), 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.Symlink(target, link); err != nil {
+			t.Fatal(err)
+		}
+	}
+	// The root given as a link to the cohort folder.
+	rootLink := filepath.Join(dir, "cohort-link")
+	if err := os.Symlink(root, rootLink); err != nil {
+		t.Fatal(err)
+	}
+	srcs, done, err := Collect([]string{rootLink})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer done()
+	var names []string
+	var broken error
+	for _, s := range srcs {
+		rel, _ := filepath.Rel(rootLink, s.Name)
+		names = append(names, rel)
+		rc, err := s.Open()
+		if err != nil {
+			broken = err
+			continue
+		}
+		rc.Close()
+	}
+	want := []string{"s1/IM1", "s2/IM1", "s2/IM2", "s2/missing"}
+	if !slices.Equal(names, want) {
+		t.Errorf("sources %v, want %v", names, want)
+	}
+	if r, ok := midsag.ReasonOf(broken); !ok || r != midsag.ReasonNoInput || !strings.Contains(broken.Error(), "missing") ||
+		!strings.Contains(broken.Error(), "broken symbolic link") {
+		t.Errorf("dangling link: %v, want a no_input refusal naming it", broken)
+	}
+	// A link loop alone is walked once and ends.
+	loopRoot := filepath.Join(dir, "loop")
+	if err := os.MkdirAll(loopRoot, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	write(t, filepath.Join(loopRoot, "IM"), []byte("x"))
+	if err := os.Symlink(loopRoot, filepath.Join(loopRoot, "again")); err != nil {
+		t.Fatal(err)
+	}
+	srcs, done2, err := Collect([]string{loopRoot})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer done2()
+	if len(srcs) != 1 {
+		t.Errorf("loop: %d sources, want 1", len(srcs))
+	}
+}

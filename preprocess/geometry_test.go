@@ -59,7 +59,7 @@ func TestSortSlicesRefusesBadGeometry(t *testing.T) {
 	if _, err := SortSlices(mixed); !isReason(err, midsag.ReasonInconsistentGeometry) {
 		t.Errorf("mixed orientations: %v", err)
 	}
-	gap := &midsag.Series{Instances: []*midsag.Instance{mk(0, sag), mk(3, sag), mk(6, sag), mk(12, sag)}}
+	gap := &midsag.Series{Instances: []*midsag.Instance{mk(0, sag), mk(3, sag), mk(6, sag), mk(10.5, sag)}}
 	if _, err := SortSlices(gap); !isReason(err, midsag.ReasonInconsistentGeometry) {
 		t.Errorf("uneven gap: %v", err)
 	}

@@ -54,6 +54,16 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 	}
 	flags = append(flags, sflags...)
 	flags = append(flags, sl.Flags...)
+	if comp := CheckCompleteness(sl); len(comp.Flags) > 0 {
+		// A partial series is never scored as complete: the flag goes on
+		// the result and the evidence into the picked series' reasons.
+		flags = append(flags, comp.Flags...)
+		for i := range cands {
+			if cands[i].Picked {
+				cands[i].Reasons = append(cands[i].Reasons, comp.Notes...)
+			}
+		}
+	}
 	if _, clamped := StackIndices(sl.Center, len(sl.Instances), spec); clamped && !slices.Contains(flags, FlagMidlineAtSlabEdge) {
 		// The stack needs slices beyond the slab's edge.
 		flags = append(flags, FlagMidlineAtSlabEdge)

@@ -208,43 +208,47 @@ func metaHeader(ts string) []byte {
 func (p *Preprocessor) instance(ds dicom.Dataset) (*midsag.Instance, error) {
 	a := attrs{ds: ds}
 	inst := &midsag.Instance{
-		SOPClassUID:           a.str(tag.SOPClassUID),
-		SOPInstanceUID:        a.str(tag.SOPInstanceUID),
-		StudyInstanceUID:      a.str(tag.StudyInstanceUID),
-		SeriesInstanceUID:     a.str(tag.SeriesInstanceUID),
-		Modality:              a.str(tag.Modality),
-		SeriesNumber:          a.int(tag.SeriesNumber, 0),
-		SeriesDescription:     a.str(tag.SeriesDescription),
-		InstanceNumber:        a.int(tag.InstanceNumber, 0),
-		ImageType:             a.strs(tag.ImageType),
-		SliceThickness:        a.float(tag.SliceThickness, 0),
-		SpacingBetweenSlices:  a.float(tag.SpacingBetweenSlices, 0),
-		RepetitionTime:        a.float(tag.RepetitionTime, 0),
-		EchoTime:              a.float(tag.EchoTime, 0),
-		InversionTime:         a.float(tag.InversionTime, 0),
-		ScanningSequence:      a.strs(tag.ScanningSequence),
-		SequenceVariant:       a.strs(tag.SequenceVariant),
-		MagneticField:         a.float(tag.MagneticFieldStrength, 0),
-		MRAcquisitionType:     strings.ToUpper(a.str(tag.MRAcquisitionType)),
-		FlipAngle:             a.float(tag.FlipAngle, 0),
-		SequenceName:          a.str(tag.SequenceName),
-		PulseSequenceName:     a.str(tag.PulseSequenceName),
-		EchoPulseSequence:     strings.ToUpper(a.str(tag.EchoPulseSequence)),
-		LossyImageCompression: a.str(tag.LossyImageCompression),
-		AcquisitionNumber:     a.int(tag.AcquisitionNumber, 0),
-		ImagesInAcquisition:   a.int(tag.ImagesInAcquisition, 0),
-		Rows:                  a.int(tag.Rows, 0),
-		Columns:               a.int(tag.Columns, 0),
-		NumberOfFrames:        a.int(tag.NumberOfFrames, 1),
-		SamplesPerPixel:       a.int(tag.SamplesPerPixel, 1),
-		BitsAllocated:         a.int(tag.BitsAllocated, 0),
-		BitsStored:            a.int(tag.BitsStored, 0),
-		HighBit:               a.int(tag.HighBit, -1),
-		PixelRepresentation:   a.int(tag.PixelRepresentation, 0),
-		Photometric:           strings.TrimSpace(a.str(tag.PhotometricInterpretation)),
-		RescaleSlope:          a.float(tag.RescaleSlope, 1),
-		RescaleIntercept:      a.float(tag.RescaleIntercept, 0),
-		PlanarConfiguration:   a.int(tag.PlanarConfiguration, 0),
+		SOPClassUID:                 a.str(tag.SOPClassUID),
+		SOPInstanceUID:              a.str(tag.SOPInstanceUID),
+		StudyInstanceUID:            a.str(tag.StudyInstanceUID),
+		SeriesInstanceUID:           a.str(tag.SeriesInstanceUID),
+		Modality:                    a.str(tag.Modality),
+		SeriesNumber:                a.int(tag.SeriesNumber, 0),
+		SeriesDescription:           a.str(tag.SeriesDescription),
+		InstanceNumber:              a.int(tag.InstanceNumber, 0),
+		ImageType:                   a.strs(tag.ImageType),
+		DerivationDescription:       a.str(tag.DerivationDescription),
+		DerivationCodes:             a.codes(tag.DerivationCodeSequence),
+		SliceThickness:              a.float(tag.SliceThickness, 0),
+		SpacingBetweenSlices:        a.float(tag.SpacingBetweenSlices, 0),
+		RepetitionTime:              a.float(tag.RepetitionTime, 0),
+		EchoTime:                    a.float(tag.EchoTime, 0),
+		InversionTime:               a.float(tag.InversionTime, 0),
+		ScanningSequence:            a.strs(tag.ScanningSequence),
+		SequenceVariant:             a.strs(tag.SequenceVariant),
+		MagneticField:               a.float(tag.MagneticFieldStrength, 0),
+		MRAcquisitionType:           strings.ToUpper(a.str(tag.MRAcquisitionType)),
+		FlipAngle:                   a.float(tag.FlipAngle, 0),
+		SequenceName:                a.str(tag.SequenceName),
+		PulseSequenceName:           a.str(tag.PulseSequenceName),
+		EchoPulseSequence:           strings.ToUpper(a.str(tag.EchoPulseSequence)),
+		LossyImageCompression:       a.str(tag.LossyImageCompression),
+		LossyImageCompressionMethod: a.strs(tag.LossyImageCompressionMethod),
+		EchoPlanarPulseSequence:     strings.ToUpper(a.str(tag.EchoPlanarPulseSequence)),
+		AcquisitionNumber:           a.int(tag.AcquisitionNumber, 0),
+		ImagesInAcquisition:         a.int(tag.ImagesInAcquisition, 0),
+		Rows:                        a.int(tag.Rows, 0),
+		Columns:                     a.int(tag.Columns, 0),
+		NumberOfFrames:              a.int(tag.NumberOfFrames, 1),
+		SamplesPerPixel:             a.int(tag.SamplesPerPixel, 1),
+		BitsAllocated:               a.int(tag.BitsAllocated, 0),
+		BitsStored:                  a.int(tag.BitsStored, 0),
+		HighBit:                     a.int(tag.HighBit, -1),
+		PixelRepresentation:         a.int(tag.PixelRepresentation, 0),
+		Photometric:                 strings.TrimSpace(a.str(tag.PhotometricInterpretation)),
+		RescaleSlope:                a.float(tag.RescaleSlope, 1),
+		RescaleIntercept:            a.float(tag.RescaleIntercept, 0),
+		PlanarConfiguration:         a.int(tag.PlanarConfiguration, 0),
 	}
 	if inst.SOPInstanceUID == "" {
 		return nil, midsag.Rejectf(midsag.ReasonNotDICOM, "no SOP Instance UID (0008,0018)")
@@ -272,6 +276,7 @@ func (p *Preprocessor) instance(ds dicom.Dataset) (*midsag.Instance, error) {
 	}
 	if ps := a.floats(tag.PixelSpacing); len(ps) == 2 {
 		copy(inst.PixelSpacing[:], ps)
+		inst.HasPixelSpacing = true
 	}
 	if inst.BitsStored == 0 {
 		inst.BitsStored = inst.BitsAllocated
@@ -330,6 +335,31 @@ func (a attrs) strs(t tag.Tag) []string {
 		return out
 	}
 	return nil
+}
+
+// codes returns "scheme:value" for each item of a code sequence (PS3.3
+// 8.8: Code Value (0008,0100), Coding Scheme Designator (0008,0102)).
+func (a attrs) codes(t tag.Tag) []string {
+	e, err := a.ds.FindElementByTag(t)
+	if err != nil {
+		return nil
+	}
+	items, ok := e.Value.GetValue().([]*dicom.SequenceItemValue)
+	if !ok {
+		return nil
+	}
+	var out []string
+	for _, it := range items {
+		elems, ok := it.GetValue().([]*dicom.Element)
+		if !ok {
+			continue
+		}
+		item := attrs{ds: dicom.Dataset{Elements: elems}}
+		if v := item.str(tag.CodeValue); v != "" {
+			out = append(out, item.str(tag.CodingSchemeDesignator)+":"+v)
+		}
+	}
+	return out
 }
 
 func (a attrs) str(t tag.Tag) string {

@@ -18,15 +18,26 @@ const (
 	// 54.7 degrees off axis; common practice); midsag is stricter so that
 	// oblique reformats are not taken for the target.
 	SagittalMaxAngleDeg = 30.0
-	// T2MinTR and T2MinTE (ms): long TR and long TE make a spin-echo image
-	// T2-weighted; T1MaxTR and T1MaxTE mark T1 weighting (common practice
-	// for 1.5 T and 3 T; textbook ranges vary by a few tens of ms).
-	T2MinTR = 2000.0
-	T2MinTE = 80.0
-	T1MaxTR = 1000.0
-	T1MaxTE = 30.0
-	// IntermediateMinTE (ms): long-TR images with TE between this and
-	// T2MinTE are intermediate weighted, still CSF-bright (common practice).
+	// T2MinTE (ms): an echo time this long is what makes a spin-echo or
+	// turbo spin echo image T2-weighted; TR only has to be long enough
+	// for longitudinal recovery (common practice for 1.5 T and 3 T;
+	// textbook ranges vary by a few tens of ms). T2MinTR is the usual TR
+	// of a 2D T2 series; T2LowTR is the shortest TR that still counts as
+	// T2-weighted with a long TE in 2D, scored lower (from memory: 2D TSE
+	// T2 at 3 T is run with TR down to about 1500 ms). T2Min3DTR is the
+	// shortest TR of a 3D variable-flip-angle turbo spin echo T2 series
+	// (SPACE, CUBE, VISTA-like: TR 1000 to 2000 ms with TE 100 to 150 ms
+	// is common practice; the long echo train, not the TR, sets the
+	// contrast). T1MaxTR and T1MaxTE mark T1 weighting (common practice).
+	T2MinTR   = 2000.0
+	T2LowTR   = 1000.0
+	T2Min3DTR = 500.0
+	T2MinTE   = 80.0
+	T1MaxTR   = 1000.0
+	T1MaxTE   = 30.0
+	// IntermediateMinTE (ms): images with a TR of at least T2LowTR (2D) or
+	// T2Min3DTR (3D) and a TE between this and T2MinTE are intermediate
+	// weighted, still CSF-bright (common practice).
 	IntermediateMinTE = 60.0
 	// STIRMaxTI (ms): inversion recovery with a TI below this nulls fat
 	// (STIR; about 150 ms at 1.5 T, from memory); longer TIs null fluid
@@ -41,6 +52,38 @@ var (
 	descSag   = regexp.MustCompile(`(?i)sag`)
 	descOther = regexp.MustCompile(`(?i)(^|[^a-z])(ax|axial|tra|cor|coronal)([^a-z]|$)`)
 	descLoc   = regexp.MustCompile(`(?i)loc|scout|survey|plan`)
+	// descDiffusion and descEPI read series descriptions; vendors name
+	// diffusion and echo-planar series this way (common practice).
+	descDiffusion = regexp.MustCompile(`(?i)(^|[^a-z])(dwi|dti|diff|diffusion|tensor|adc|trace|resolve)`)
+	descEPI       = regexp.MustCompile(`(?i)(^|[^a-z])(epi|ep2d|bold|fmri)`)
+	descFieldMap  = regexp.MustCompile(`(?i)field[ _]?map|fmap|(^|[^a-z0-9])b0([^a-z0-9]|$)`)
+	// seqEPI reads Sequence Name (0018,0024) and Pulse Sequence Name
+	// (0018,9005): Siemens names echo-planar sequences "*epfid2d1_64",
+	// "*ep_b1000", "ep2d_diff", Toshiba "SEEPI2D", GE "epi2" (from memory;
+	// the Siemens and Toshiba names are in the real files under
+	// shared/realdata).
+	seqEPI = regexp.MustCompile(`(?i)^\*?ep|epi|ep2d`)
+)
+
+// Image Type (0008,0008) values that exclude a series. PS3.3 C.8.13.1.1.1
+// lists DIFFUSION, ADC, TRACE, FA, EADC and the complex components PHASE,
+// REAL and IMAGINARY for Enhanced MR; single-frame scanners put the same
+// words (Siemens: DIFFUSION, ADC, TRACEW, FA and P for phase, from memory)
+// in value 3 and beyond.
+var (
+	imageTypeDiffusion  = []string{"DIFFUSION", "ADC", "EADC", "TRACE", "TRACEW", "FA", "ISOTROPIC", "DWI"}
+	imageTypeFieldMap   = []string{"FIELD_MAP", "FIELDMAP", "B0 MAP", "B0MAP", "B0", "FM", "P", "PHASE", "PHASE MAP", "REAL", "IMAGINARY", "VELOCITY"}
+	imageTypeReformat   = []string{"MPR", "CSA MPR", "CSAPARALLEL", "CSA RESAMPLED", "REFORMATTED", "RESAMPLED", "PROJECTION IMAGE", "MIP", "MINIP", "MNIP", "CSA MIP", "SUBTRACTION", "MOSAIC", "CURVED", "MAX_IP", "MIN_IP", "T1_MAP", "T2_MAP"}
+	compressionWords    = regexp.MustCompile(`(?i)compress|jpeg|j2k|lossless|lossy|reversible|irreversible`)
+	lossyTransferSyntax = map[string]string{
+		// PS3.5 A.4: processes that discard information. JPEG-LS and JPEG
+		// 2000 may also be lossless; those count as lossy unless Lossy
+		// Image Compression (0028,2110) says 00.
+		"1.2.840.10008.1.2.4.50": "JPEG baseline",
+		"1.2.840.10008.1.2.4.51": "JPEG extended",
+		"1.2.840.10008.1.2.4.81": "JPEG-LS near-lossless",
+		"1.2.840.10008.1.2.4.91": "JPEG 2000",
+	}
 )
 
 // candidate is a series with its score while picking.
@@ -52,7 +95,9 @@ type candidate struct {
 	// refusal can say too_few_slices rather than no_sagittal_t2_series.
 	fewSlices bool
 	stir      bool
-	reasons   []string
+	// lossy marks a series whose pixels went through lossy compression.
+	lossy   bool
+	reasons []string
 }
 
 func (c *candidate) add(points float64, format string, args ...any) {
@@ -133,6 +178,9 @@ func PickSeries(st *midsag.Study, minSlices int) (*midsag.Series, []midsag.Serie
 	if best.score < 6 {
 		flags = append(flags, "series_pick_weak")
 	}
+	if best.lossy {
+		flags = append(flags, "lossy_compressed")
+	}
 	return best.series, out, flags, nil
 }
 
@@ -166,14 +214,8 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 	if first.Modality != "" && first.Modality != "MR" {
 		c.exclude("modality %s, not MR", first.Modality)
 	}
-	for _, t := range first.ImageType {
-		switch strings.ToUpper(t) {
-		case "LOCALIZER":
-			c.exclude("Image Type says LOCALIZER")
-		case "DERIVED":
-			c.exclude("Image Type says DERIVED (a reformat or computed image)")
-		}
-	}
+	c.judgeDerivation(first)
+	c.judgeContrast(se)
 	if first.NumberOfFrames > 1 {
 		c.exclude("multi-frame instances (%d frames) are not read as slices", first.NumberOfFrames)
 	}
@@ -188,7 +230,7 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 			c.exclude("not sagittal: slice normal %.1f deg from the left-right axis (limit %.0f)", ang, SagittalMaxAngleDeg)
 		}
 	}
-	tr, te, ti := first.RepetitionTime, first.EchoTime, first.InversionTime
+	ti := first.InversionTime
 	ir := ti > 0 || hasAny(first.ScanningSequence, "IR")
 	switch {
 	case ir && (ti == 0 || ti < STIRMaxTI):
@@ -197,24 +239,7 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 	case ir:
 		c.exclude("inversion recovery with TI %.0f ms: fluid-nulled (FLAIR-like)", ti)
 	}
-	t2ish := false
-	switch {
-	case tr == 0 || te == 0:
-		c.add(0, "weighting unknown: TR %.0f ms, TE %.0f ms", tr, te)
-		if descT2.MatchString(se.Description) {
-			t2ish = true
-		}
-	case tr >= T2MinTR && te >= T2MinTE:
-		t2ish = true
-		c.add(4, "T2-weighted: TR %.0f ms >= %.0f and TE %.0f ms >= %.0f", tr, T2MinTR, te, T2MinTE)
-	case tr >= T2MinTR && te >= IntermediateMinTE:
-		t2ish = true
-		c.add(2, "intermediate/T2-weighted: TR %.0f ms, TE %.0f ms", tr, te)
-	case tr <= T1MaxTR && te <= T1MaxTE:
-		c.add(-4, "T1-weighted: TR %.0f ms <= %.0f and TE %.0f ms <= %.0f", tr, T1MaxTR, te, T1MaxTE)
-	default:
-		c.add(-2, "neither T2- nor T1-weighted: TR %.0f ms, TE %.0f ms", tr, te)
-	}
+	t2ish := c.judgeWeighting(se, first)
 	if hasAny(first.SequenceVariant, "MP") {
 		c.add(-1, "magnetization-prepared sequence (Sequence Variant MP)")
 	}
@@ -255,6 +280,177 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 		c.add(-0.25, "description %q suggests another plane", d)
 	}
 	return c
+}
+
+// judgeWeighting scores the contrast from TE first, then TR (PS3.3
+// C.8.3.1: Repetition Time (0018,0080), Echo Time (0018,0081)), and
+// reports whether the series counts as T2-weighted.
+func (c *candidate) judgeWeighting(se *midsag.Series, in *midsag.Instance) bool {
+	tr, te := in.RepetitionTime, in.EchoTime
+	is3D := in.MRAcquisitionType == "3D"
+	minTR := T2LowTR
+	if is3D {
+		minTR = T2Min3DTR
+	}
+	switch {
+	case te == 0:
+		c.add(0, "weighting unknown: no Echo Time (TR %.0f ms)", tr)
+		return descT2.MatchString(se.Description)
+	case te >= T2MinTE && tr == 0:
+		c.add(3, "T2-weighted by TE %.0f ms >= %.0f (no Repetition Time)", te, T2MinTE)
+		return true
+	case te >= T2MinTE && is3D && tr >= T2Min3DTR:
+		c.add(4, "T2-weighted: 3D acquisition, TE %.0f ms >= %.0f, TR %.0f ms >= %.0f (variable flip angle TSE)", te, T2MinTE, tr, T2Min3DTR)
+		return true
+	case te >= T2MinTE && tr >= T2MinTR:
+		c.add(4, "T2-weighted: TE %.0f ms >= %.0f and TR %.0f ms >= %.0f", te, T2MinTE, tr, T2MinTR)
+		return true
+	case te >= T2MinTE && tr >= T2LowTR:
+		c.add(3, "T2-weighted by TE %.0f ms >= %.0f; TR %.0f ms is short for 2D but >= %.0f", te, T2MinTE, tr, T2LowTR)
+		return true
+	case te >= T2MinTE:
+		c.add(1, "long TE %.0f ms with short TR %.0f ms: T2-weighted by TE, with some T1 weighting", te, tr)
+		return true
+	case te >= IntermediateMinTE && (tr == 0 || tr >= minTR):
+		c.add(2, "intermediate/T2-weighted: TE %.0f ms, TR %.0f ms", te, tr)
+		return true
+	case te <= T1MaxTE && tr > 0 && tr <= T1MaxTR:
+		c.add(-4, "T1-weighted: TR %.0f ms <= %.0f and TE %.0f ms <= %.0f", tr, T1MaxTR, te, T1MaxTE)
+	case te <= T1MaxTE && tr >= T2MinTR:
+		c.add(-2, "proton density weighted: TR %.0f ms, short TE %.0f ms <= %.0f", tr, te, T1MaxTE)
+	default:
+		c.add(-2, "neither T2- nor T1-weighted: TR %.0f ms, TE %.0f ms", tr, te)
+	}
+	return false
+}
+
+// judgeDerivation excludes localizers and derived images, except those
+// whose only derivation is compression, and notes lossy compression.
+// PS3.3 C.7.6.1.1.2: value 1 of Image Type is ORIGINAL or DERIVED;
+// C.7.6.1.1.5: Lossy Image Compression (0028,2110) 01 means the image has
+// been lossy compressed at some point, and an encoder that compresses
+// lossily marks the result DERIVED (C.7.6.1.1.3, Derivation Description;
+// CID 7203 code 113040 "Lossy Compression", as in pydicom-data's
+// MR2_J2KI.dcm).
+func (c *candidate) judgeDerivation(in *midsag.Instance) {
+	if hasAny(in.ImageType, "LOCALIZER") {
+		c.exclude("Image Type says LOCALIZER")
+	}
+	lossyFlag := in.LossyImageCompression == "01"
+	tsName, lossyTS := lossyTransferSyntax[in.TransferSyntaxUID]
+	lossyTS = lossyTS && (in.LossyImageCompression != "00" || tsName == "JPEG baseline" || tsName == "JPEG extended")
+	if len(in.ImageType) > 0 && strings.EqualFold(strings.TrimSpace(in.ImageType[0]), "DERIVED") {
+		if kw := firstOf(in.ImageType, imageTypeReformat); kw != "" {
+			c.exclude("Image Type DERIVED with %s: a reformat or projection, not an acquired slice", kw)
+		} else if compressionOnly(in) {
+			c.reasons = append(c.reasons, "Image Type DERIVED only by compression (Lossy Image Compression "+
+				orNone(in.LossyImageCompression)+", Derivation Description "+fmt.Sprintf("%q", in.DerivationDescription)+"): accepted as acquired")
+		} else {
+			c.exclude("Image Type says DERIVED (a reformat or computed image) and nothing says compression was the only derivation")
+		}
+	}
+	switch {
+	case lossyFlag:
+		c.lossy = true
+		c.reasons = append(c.reasons, "lossy compressed (Lossy Image Compression 01)")
+	case lossyTS:
+		c.lossy = true
+		c.reasons = append(c.reasons, "lossy compressed ("+tsName+" transfer syntax)")
+	}
+}
+
+// compressionOnly reports whether a DERIVED image says its derivation was
+// compression: Lossy Image Compression 01, the Lossy Compression code, or
+// a Derivation Description about compression.
+func compressionOnly(in *midsag.Instance) bool {
+	if in.LossyImageCompression == "01" {
+		return true
+	}
+	for _, code := range in.DerivationCodes {
+		if code == "DCM:113040" {
+			return true
+		}
+	}
+	return in.DerivationDescription != "" && compressionWords.MatchString(in.DerivationDescription)
+}
+
+// judgeContrast excludes diffusion, echo-planar, gradient-echo and
+// field-map series. Every instance is looked at, since a diffusion series
+// mixes b = 0 and b > 0 images.
+func (c *candidate) judgeContrast(se *midsag.Series) {
+	seen := map[string]bool{}
+	once := func(key, format string, args ...any) {
+		if !seen[key] {
+			seen[key] = true
+			c.exclude(format, args...)
+		}
+	}
+	for _, in := range se.Instances {
+		// PS3.3 C.8.13.1.1.1 and vendor practice: Image Type names the
+		// diffusion images and maps; a b = 0 image of such a series is
+		// still part of a diffusion acquisition.
+		if kw := firstOf(in.ImageType, imageTypeDiffusion); kw != "" {
+			once("diffusion", "diffusion: Image Type says %s", kw)
+		}
+		// PS3.3 C.8.13.5.9: Diffusion b-value (0018,9087) in s/mm2.
+		if in.HasDiffusionBValue && in.DiffusionBValue > 0 {
+			once("diffusion", "diffusion: Diffusion b-value %.0f s/mm2", in.DiffusionBValue)
+		}
+		if kw := firstOf(in.ImageType, imageTypeFieldMap); kw != "" {
+			once("fieldmap", "field map or phase image: Image Type says %s", kw)
+		}
+		// PS3.3 C.8.3.1: Scanning Sequence (0018,0020) EP is echo planar;
+		// C.8.13.5.1: Echo Planar Pulse Sequence (0018,9018) YES.
+		switch {
+		case hasAny(in.ScanningSequence, "EP"):
+			once("epi", "echo-planar: Scanning Sequence %s", strings.Join(in.ScanningSequence, "\\"))
+		case in.EchoPlanarPulseSequence == "YES":
+			once("epi", "echo-planar: Echo Planar Pulse Sequence YES")
+		case seqEPI.MatchString(in.SequenceName):
+			once("epi", "echo-planar: Sequence Name %q", in.SequenceName)
+		case seqEPI.MatchString(in.PulseSequenceName):
+			once("epi", "echo-planar: Pulse Sequence Name %q", in.PulseSequenceName)
+		}
+		// PS3.3 C.8.3.1: GR without SE is a gradient echo, T2*- rather
+		// than T2-weighted; C.8.13.5.1: Echo Pulse Sequence GRADIENT.
+		switch {
+		case in.EchoPulseSequence == "GRADIENT":
+			once("gre", "gradient echo (Echo Pulse Sequence GRADIENT): T2*-weighted, not T2")
+		case hasAny(in.ScanningSequence, "GR") && !hasAny(in.ScanningSequence, "SE"):
+			once("gre", "gradient echo (Scanning Sequence %s without SE): T2*-weighted, not T2", strings.Join(in.ScanningSequence, "\\"))
+		}
+	}
+	d := se.Description
+	if descDiffusion.MatchString(d) {
+		once("diffusion", "diffusion: description %q", d)
+	}
+	if descEPI.MatchString(d) {
+		once("epi", "echo-planar: description %q", d)
+	}
+	if descFieldMap.MatchString(d) {
+		once("fieldmap", "field map: description %q", d)
+	}
+}
+
+// firstOf returns the first of vals (trimmed, case-insensitive) that is in
+// want, or "".
+func firstOf(vals, want []string) string {
+	for _, v := range vals {
+		v = strings.ToUpper(strings.TrimSpace(v))
+		for _, w := range want {
+			if v == w {
+				return v
+			}
+		}
+	}
+	return ""
+}
+
+func orNone(s string) string {
+	if s == "" {
+		return "absent"
+	}
+	return s
 }
 
 func hasAny(vals []string, want string) bool {

@@ -107,6 +107,7 @@ func HTTPStatus(r midsag.Reason) int {
 	case midsag.ReasonNoInput, midsag.ReasonTruncated, midsag.ReasonBadPixelData, midsag.ReasonMultipleStudies:
 		return http.StatusBadRequest
 	case midsag.ReasonNoSagittalT2, midsag.ReasonTooFewSlices, midsag.ReasonInconsistentGeometry,
+		midsag.ReasonIncompleteSeries, midsag.ReasonDuplicateInstance, midsag.ReasonMidlineNotInSlab,
 		midsag.ReasonModelInputMismatch, midsag.ReasonBadModel:
 		return http.StatusUnprocessableEntity
 	}
@@ -119,6 +120,7 @@ func GRPCCode(r midsag.Reason) codes.Code {
 	case midsag.ReasonOverloaded:
 		return codes.ResourceExhausted
 	case midsag.ReasonNoSagittalT2, midsag.ReasonTooFewSlices, midsag.ReasonInconsistentGeometry,
+		midsag.ReasonIncompleteSeries, midsag.ReasonDuplicateInstance, midsag.ReasonMidlineNotInSlab,
 		midsag.ReasonModelInputMismatch, midsag.ReasonBadModel:
 		return codes.FailedPrecondition
 	}
