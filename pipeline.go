@@ -187,6 +187,7 @@ func (p *Pipeline) Score(ctx context.Context, instances []*Instance) (*Result, e
 		StudyInstanceUID:     prep.StudyInstanceUID,
 		SeriesInstanceUID:    prep.SeriesInstanceUID,
 		CenterSOPInstanceUID: prep.CenterSOPInstanceUID,
+		CenterFrameNumber:    prep.CenterFrameNumber,
 		Slices:               prep.Slices,
 		SeriesCandidates:     prep.Candidates,
 		Model:                p.Model.Info(),

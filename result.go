@@ -30,21 +30,24 @@ type Score struct {
 // Result is the outcome of scoring one study. Its JSON form is the public
 // result contract (DESIGN.md); field names follow the proto's snake_case.
 type Result struct {
-	ResultID             string            `json:"result_id"`
-	CreatedAt            time.Time         `json:"created_at"`
-	StudyInstanceUID     string            `json:"study_instance_uid"`
-	SeriesInstanceUID    string            `json:"series_instance_uid"`
-	CenterSOPInstanceUID string            `json:"center_sop_instance_uid"`
-	Slices               []SliceScore      `json:"slices"`
-	SeriesCandidates     []SeriesCandidate `json:"series_candidates"`
-	Model                ModelInfo         `json:"model"`
-	RawOutput            float64           `json:"raw_output"`
-	Probability          float64           `json:"probability"`
-	CalibratedProb       float64           `json:"calibrated_probability"`
-	CalibrationMethod    string            `json:"calibration_method"`
-	Threshold            float64           `json:"threshold"`
-	Decision             string            `json:"decision"`
-	QualityFlags         []string          `json:"quality_flags"`
+	ResultID             string    `json:"result_id"`
+	CreatedAt            time.Time `json:"created_at"`
+	StudyInstanceUID     string    `json:"study_instance_uid"`
+	SeriesInstanceUID    string    `json:"series_instance_uid"`
+	CenterSOPInstanceUID string    `json:"center_sop_instance_uid"`
+	// CenterFrameNumber is the centre slice's 1-based frame when it is a
+	// frame of a multi-frame instance (PS3.3 C.7.6.6); omitted otherwise.
+	CenterFrameNumber int               `json:"center_frame_number,omitempty"`
+	Slices            []SliceScore      `json:"slices"`
+	SeriesCandidates  []SeriesCandidate `json:"series_candidates"`
+	Model             ModelInfo         `json:"model"`
+	RawOutput         float64           `json:"raw_output"`
+	Probability       float64           `json:"probability"`
+	CalibratedProb    float64           `json:"calibrated_probability"`
+	CalibrationMethod string            `json:"calibration_method"`
+	Threshold         float64           `json:"threshold"`
+	Decision          string            `json:"decision"`
+	QualityFlags      []string          `json:"quality_flags"`
 	// Explanation is set when the Pipeline has an Explainer.
 	Explanation *Explanation       `json:"explanation,omitempty"`
 	Notice      string             `json:"notice"`
@@ -113,4 +116,8 @@ type ExplanationPicture struct {
 type ImageRef struct {
 	SOPClassUID    string
 	SOPInstanceUID string
+	// FrameNumber is the 1-based frame of a multi-frame image, written as
+	// Referenced Frame Number (0008,1160) (PS3.3 Table 10-3); 0 for a
+	// single-frame image.
+	FrameNumber int
 }

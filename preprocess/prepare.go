@@ -41,6 +41,9 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 	if err := PickSlices(sl); err != nil {
 		return nil, fmt.Errorf("series %s: %w", se.SeriesInstanceUID, err)
 	}
+	for i, in := range sl.Instances {
+		sl.Scores[i].FrameNumber = in.FrameNumber()
+	}
 	lap("pick_slices")
 	tensor, sflags, err := Stack(sl, spec)
 	if err != nil {
@@ -59,6 +62,7 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 		StudyInstanceUID:     st.StudyInstanceUID,
 		SeriesInstanceUID:    se.SeriesInstanceUID,
 		CenterSOPInstanceUID: sl.Instances[sl.Center].SOPInstanceUID,
+		CenterFrameNumber:    sl.Instances[sl.Center].FrameNumber(),
 		Candidates:           cands,
 		Slices:               sl.Scores,
 		Input:                tensor,
