@@ -51,28 +51,32 @@ func FramesAsSlices(sopClassUID string) bool {
 	return sopClassUID == EnhancedMRImageStorage || sopClassUID == LegacyConvertedEnhancedMRImageStorage
 }
 
-// Frames returns one Instance per frame of a multi-frame instance read
-// with its functional groups (PerFrame set), each a copy of in with the
-// frame's attributes, Frame set to its 0-based index and PerFrame nil.
+// Frames returns one Instance per frame of a multi-frame Enhanced MR or
+// Legacy Converted Enhanced MR instance, each a copy of in with the
+// frame's attributes from PerFrame (the top-level ones when the file has
+// no functional groups), Frame set to its 0-based index and PerFrame nil.
 // The copies share in's pixel data: no pixel byte is copied. Any other
-// instance is returned alone, unchanged.
+// instance, and a frame already expanded, is returned alone, unchanged.
 func (in *Instance) Frames() []*Instance {
-	if len(in.PerFrame) == 0 {
+	if in.expanded || !FramesAsSlices(in.SOPClassUID) || (in.NumberOfFrames <= 1 && len(in.PerFrame) == 0) {
 		return []*Instance{in}
 	}
-	out := make([]*Instance, len(in.PerFrame))
-	for i := range in.PerFrame {
-		f := &in.PerFrame[i]
+	out := make([]*Instance, max(in.NumberOfFrames, len(in.PerFrame)))
+	for i := range out {
 		c := *in
 		c.PerFrame = nil
 		c.Frame = i
-		c.ImageOrientation, c.ImagePosition, c.HasGeometry = f.ImageOrientation, f.ImagePosition, f.HasGeometry
-		c.PixelSpacing, c.SliceThickness, c.SpacingBetweenSlices = f.PixelSpacing, f.SliceThickness, f.SpacingBetweenSlices
-		c.RepetitionTime, c.EchoTime, c.InversionTime, c.FlipAngle = f.RepetitionTime, f.EchoTime, f.InversionTime, f.FlipAngle
-		c.DiffusionBValue, c.HasDiffusionBValue = f.DiffusionBValue, f.HasDiffusionBValue
-		c.ImageType = f.ImageType
-		c.RescaleSlope, c.RescaleIntercept = f.RescaleSlope, f.RescaleIntercept
-		c.StackID, c.InStackPosition, c.DimensionIndex = f.StackID, f.InStackPosition, f.DimensionIndex
+		c.expanded = true
+		if i < len(in.PerFrame) {
+			f := &in.PerFrame[i]
+			c.ImageOrientation, c.ImagePosition, c.HasGeometry = f.ImageOrientation, f.ImagePosition, f.HasGeometry
+			c.PixelSpacing, c.SliceThickness, c.SpacingBetweenSlices = f.PixelSpacing, f.SliceThickness, f.SpacingBetweenSlices
+			c.RepetitionTime, c.EchoTime, c.InversionTime, c.FlipAngle = f.RepetitionTime, f.EchoTime, f.InversionTime, f.FlipAngle
+			c.DiffusionBValue, c.HasDiffusionBValue = f.DiffusionBValue, f.HasDiffusionBValue
+			c.ImageType = f.ImageType
+			c.RescaleSlope, c.RescaleIntercept = f.RescaleSlope, f.RescaleIntercept
+			c.StackID, c.InStackPosition, c.DimensionIndex = f.StackID, f.InStackPosition, f.DimensionIndex
+		}
 		out[i] = &c
 	}
 	return out

@@ -85,6 +85,9 @@ type Instance struct {
 	// Offset Table (7FE0,0001) or the Basic Offset Table (PS3.5 A.4);
 	// nil when the table is empty or the pixel data is native.
 	FrameOffsets []uint64
+	// expanded marks an Instance made by Frames, so that it is never
+	// expanded again.
+	expanded bool
 
 	SamplesPerPixel           int
 	BitsAllocated, BitsStored int
