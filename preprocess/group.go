@@ -20,7 +20,7 @@ import (
 // time, b-value and Frame Type: one such file may hold several stacks or
 // contrasts (PS3.3 C.7.6.16.2.2, C.8.13), and each is judged on its own.
 // The parts keep the Series Instance UID; their descriptions name the
-// split, e.g. "SAG T2 [stack 2]".
+// split in numbers, e.g. "SAG T2 [stack 2, TE 90 ms]".
 func Group(instances []*midsag.Instance) []*midsag.Study {
 	studies := map[string]*midsag.Study{}
 	series := map[string]*midsag.Series{}
@@ -170,26 +170,13 @@ func labelParts(parts map[string][]*part) {
 	}
 }
 
-// planeName names a frame's plane by the largest component of its normal
-// (the usual convention, common practice), with the normal itself.
+// planeName names a frame's plane by its normal. Only numbers: words
+// such as "sagittal" or "plane" would feed the description cues of series
+// picking.
 func planeName(in *midsag.Instance) string {
 	if !in.HasGeometry {
-		return "no plane"
+		return "no position"
 	}
 	n := Normal(in)
-	name := "sagittal"
-	switch {
-	case abs(n[1]) > abs(n[0]) && abs(n[1]) >= abs(n[2]):
-		name = "coronal"
-	case abs(n[2]) > abs(n[0]) && abs(n[2]) > abs(n[1]):
-		name = "axial"
-	}
-	return fmt.Sprintf("%s plane, normal (%.2f, %.2f, %.2f)", name, n[0], n[1], n[2])
-}
-
-func abs(x float64) float64 {
-	if x < 0 {
-		return -x
-	}
-	return x
+	return fmt.Sprintf("normal (%.2f, %.2f, %.2f)", n[0], n[1], n[2])
 }
