@@ -188,6 +188,7 @@ func (p *Pipeline) Score(ctx context.Context, instances []*Instance) (*Result, e
 		SeriesInstanceUID:    prep.SeriesInstanceUID,
 		CenterSOPInstanceUID: prep.CenterSOPInstanceUID,
 		MidlineConfidence:    prep.MidlineConfidence,
+		CenterFrameNumber:    prep.CenterFrameNumber,
 		Slices:               prep.Slices,
 		SeriesCandidates:     prep.Candidates,
 		Model:                p.Model.Info(),

@@ -30,12 +30,15 @@ type Score struct {
 // Result is the outcome of scoring one study. Its JSON form is the public
 // result contract (DESIGN.md); field names follow the proto's snake_case.
 type Result struct {
-	ResultID             string       `json:"result_id"`
-	CreatedAt            time.Time    `json:"created_at"`
-	StudyInstanceUID     string       `json:"study_instance_uid"`
-	SeriesInstanceUID    string       `json:"series_instance_uid"`
-	CenterSOPInstanceUID string       `json:"center_sop_instance_uid"`
-	Slices               []SliceScore `json:"slices"`
+	ResultID             string    `json:"result_id"`
+	CreatedAt            time.Time `json:"created_at"`
+	StudyInstanceUID     string    `json:"study_instance_uid"`
+	SeriesInstanceUID    string    `json:"series_instance_uid"`
+	CenterSOPInstanceUID string    `json:"center_sop_instance_uid"`
+	// CenterFrameNumber is the centre slice's 1-based frame when it is a
+	// frame of a multi-frame instance (PS3.3 C.7.6.6); omitted otherwise.
+	CenterFrameNumber int          `json:"center_frame_number,omitempty"`
+	Slices            []SliceScore `json:"slices"`
 	// MidlineConfidence is the confidence of the midline pick, 0 to 1.
 	MidlineConfidence float64           `json:"midline_confidence"`
 	SeriesCandidates  []SeriesCandidate `json:"series_candidates"`
@@ -115,4 +118,8 @@ type ExplanationPicture struct {
 type ImageRef struct {
 	SOPClassUID    string
 	SOPInstanceUID string
+	// FrameNumber is the 1-based frame of a multi-frame image, written as
+	// Referenced Frame Number (0008,1160) (PS3.3 Table 10-3); 0 for a
+	// single-frame image.
+	FrameNumber int
 }

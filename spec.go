@@ -34,7 +34,11 @@ type Tensor struct {
 
 // SliceScore is one slice of the picked series with its midline score.
 type SliceScore struct {
-	SOPInstanceUID string  `json:"sop_instance_uid"`
+	SOPInstanceUID string `json:"sop_instance_uid"`
+	// FrameNumber is the slice's 1-based frame in a multi-frame instance
+	// (PS3.3 C.7.6.6), so that SOP Instance UID and frame name the slice;
+	// 0 (omitted) for a single-frame instance.
+	FrameNumber    int     `json:"frame_number,omitempty"`
 	InstanceNumber int     `json:"instance_number"`
 	PositionMM     float64 `json:"position_mm"`
 	MidlineScore   float64 `json:"midline_score"`
@@ -62,8 +66,11 @@ type Prepared struct {
 	StudyInstanceUID     string
 	SeriesInstanceUID    string
 	CenterSOPInstanceUID string
-	Candidates           []SeriesCandidate
-	Slices               []SliceScore
+	// CenterFrameNumber is the centre slice's 1-based frame in a
+	// multi-frame instance; 0 for a single-frame instance.
+	CenterFrameNumber int
+	Candidates        []SeriesCandidate
+	Slices            []SliceScore
 	// MidlineConfidence is the confidence of the midline pick, 0 to 1.
 	MidlineConfidence float64
 	Input             *Tensor

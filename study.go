@@ -83,8 +83,26 @@ type Instance struct {
 	// StackID and InStackPosition are Stack ID (0020,9056) and In-Stack
 	// Position Number (0020,9057) of the frame's Frame Content (PS3.3
 	// C.7.6.16.2.2); empty and zero for single-frame instances.
-	StackID                   string
-	InStackPosition           int
+	StackID         string
+	InStackPosition int
+	// DimensionIndex is Dimension Index Values (0020,9157) of the frame's
+	// Frame Content (PS3.3 C.7.6.16.2.2); nil for single-frame instances.
+	DimensionIndex []int
+	// PerFrame holds, for a multi-frame Enhanced MR or Legacy Converted
+	// Enhanced MR instance as read, the attributes of each frame from its
+	// Shared and Per-frame Functional Groups (PS3.3 C.7.6.16), in frame
+	// order. Frames expands the instance into one Instance per frame;
+	// the expanded Instances have PerFrame nil.
+	PerFrame []FrameAttrs
+	// FrameOffsets are the byte offsets of each frame's first fragment
+	// item, relative to the first fragment's item tag, from the Extended
+	// Offset Table (7FE0,0001) or the Basic Offset Table (PS3.5 A.4);
+	// nil when the table is empty or the pixel data is native.
+	FrameOffsets []uint64
+	// expanded marks an Instance made by Frames, so that it is never
+	// expanded again.
+	expanded bool
+
 	SamplesPerPixel           int
 	BitsAllocated, BitsStored int
 	HighBit                   int

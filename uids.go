@@ -29,6 +29,9 @@ const (
 	MRImageStorage               = "1.2.840.10008.5.1.4.1.1.4"
 	EnhancedMRImageStorage       = "1.2.840.10008.5.1.4.1.1.4.1"
 	SecondaryCaptureImageStorage = "1.2.840.10008.5.1.4.1.1.7"
+	// LegacyConvertedEnhancedMRImageStorage holds single-frame MR images
+	// converted into one multi-frame instance (PS3.3 A.71).
+	LegacyConvertedEnhancedMRImageStorage = "1.2.840.10008.5.1.4.1.1.4.4"
 )
 
 // ImplementationClassUID identifies midsag's DICOM implementation in

@@ -74,10 +74,16 @@ func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 	pt := e.Picture.Patient
 	var items [][]element
 	for _, s := range e.Picture.Sources {
-		items = append(items, []element{
+		item := []element{
 			str(0x00081150, "UI", s.SOPClassUID),
 			str(0x00081155, "UI", s.SOPInstanceUID),
-		})
+		}
+		if s.FrameNumber > 0 {
+			// Referenced Frame Number names the frame of a multi-frame
+			// source (PS3.3 Table 10-3, Image SOP Instance Reference Macro).
+			item = append(item, str(0x00081160, "IS", strconv.Itoa(s.FrameNumber)))
+		}
+		items = append(items, item)
 	}
 	date, tm := o.Now.Format("20060102"), o.Now.Format("150405")
 	ds := []element{

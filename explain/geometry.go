@@ -15,13 +15,22 @@ func (o *Occlusion) Explain(ctx context.Context, m midsag.Model, prep *midsag.Pr
 	if prep == nil || prep.Input == nil {
 		return nil, errors.New("explain: no prepared input")
 	}
-	byUID := make(map[string]*midsag.Instance, len(instances))
-	for _, in := range instances {
-		byUID[in.SOPInstanceUID] = in
+	// A slice is a SOP Instance UID and, for a frame of a multi-frame
+	// instance, its frame number: the frames of one instance each have
+	// their own plane (PS3.3 C.7.6.16).
+	type sliceKey struct {
+		uid   string
+		frame int
 	}
-	center := byUID[prep.CenterSOPInstanceUID]
+	byKey := make(map[sliceKey]*midsag.Instance, len(instances))
+	for _, src := range instances {
+		for _, in := range src.Frames() {
+			byKey[sliceKey{in.SOPInstanceUID, in.FrameNumber()}] = in
+		}
+	}
+	center := byKey[sliceKey{prep.CenterSOPInstanceUID, prep.CenterFrameNumber}]
 	if center == nil {
-		return nil, fmt.Errorf("explain: centre slice %s is not among the instances", prep.CenterSOPInstanceUID)
+		return nil, fmt.Errorf("explain: centre slice %s (frame %d) is not among the instances", prep.CenterSOPInstanceUID, prep.CenterFrameNumber)
 	}
 	mp, err := o.Compute(ctx, m, prep.Input, raw)
 	if err != nil {
@@ -36,10 +45,10 @@ func (o *Occlusion) Explain(ctx context.Context, m midsag.Model, prep *midsag.Pr
 	row, col := g.toSlice(ty, tx)
 	pr, pc := int(math.Round(row)), int(math.Round(col))
 
-	sources := []midsag.ImageRef{{SOPClassUID: center.SOPClassUID, SOPInstanceUID: center.SOPInstanceUID}}
+	sources := []midsag.ImageRef{{SOPClassUID: center.SOPClassUID, SOPInstanceUID: center.SOPInstanceUID, FrameNumber: center.FrameNumber()}}
 	for _, sl := range prep.Slices {
-		if in := byUID[sl.SOPInstanceUID]; sl.InStack && in != nil && in != center {
-			sources = append(sources, midsag.ImageRef{SOPClassUID: in.SOPClassUID, SOPInstanceUID: in.SOPInstanceUID})
+		if in := byKey[sliceKey{sl.SOPInstanceUID, sl.FrameNumber}]; sl.InStack && in != nil && in != center {
+			sources = append(sources, midsag.ImageRef{SOPClassUID: in.SOPClassUID, SOPInstanceUID: in.SOPInstanceUID, FrameNumber: in.FrameNumber()})
 		}
 	}
 	method := "occlusion"

@@ -29,7 +29,10 @@ type element struct {
 	u32  []uint32  // UL
 	raw  []byte    // OB
 	frag [][]byte  // encapsulated pixel data fragments (PS3.5 A.4)
+	bot  []uint32  // Basic Offset Table of frag; empty when nil
 	f64  []float64 // FD
+	// items are the items of an SQ element, each a dataset.
+	items []dataset
 }
 
 // dataset collects elements in any order; encode sorts them by tag as
@@ -133,7 +136,10 @@ func (e *encoder) element(el element) error {
 		e.header(el.tag, "OB", 0xFFFFFFFF)
 		e.u16(0xFFFE)
 		e.u16(0xE000)
-		e.u32(0)
+		e.u32(uint32(4 * len(el.bot)))
+		for _, o := range el.bot {
+			e.u32(o)
+		}
 		for _, f := range el.frag {
 			e.u16(0xFFFE)
 			e.u16(0xE000)
@@ -143,6 +149,29 @@ func (e *encoder) element(el element) error {
 			if len(f)%2 == 1 {
 				e.buf.WriteByte(0)
 			}
+		}
+		e.u16(0xFFFE)
+		e.u16(0xE0DD)
+		e.u32(0)
+	case el.vr == "SQ":
+		// Undefined-length sequence of undefined-length items, each ended
+		// by an Item Delimitation Item, the sequence by a Sequence
+		// Delimitation Item (PS3.5 7.5.2).
+		e.header(el.tag, "SQ", 0xFFFFFFFF)
+		for _, it := range el.items {
+			e.u16(0xFFFE)
+			e.u16(0xE000)
+			e.u32(0xFFFFFFFF)
+			sorted := append(dataset(nil), it...)
+			sort.SliceStable(sorted, func(i, j int) bool { return sorted[i].tag < sorted[j].tag })
+			for _, c := range sorted {
+				if err := e.element(c); err != nil {
+					return err
+				}
+			}
+			e.u16(0xFFFE)
+			e.u16(0xE00D)
+			e.u32(0)
 		}
 		e.u16(0xFFFE)
 		e.u16(0xE0DD)

@@ -11,7 +11,7 @@ import (
 	"github.com/midsag/midsag/preprocess/codec"
 )
 
-// Decode returns the first frame of inst in modality units: the stored
+// Decode returns frame inst.Frame of inst in modality units: the stored
 // value masked to Bits Stored, sign-extended for Pixel Representation 1,
 // Rescale Slope and Intercept applied (PS3.3 C.11.1.1.2), and MONOCHROME1
 // inverted so that higher always means brighter. Colour images are reduced
@@ -39,16 +39,19 @@ func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 			inst.BitsStored, inst.HighBit, inst.BitsAllocated)
 	}
 	n := rows * cols * spp
+	frame, err := frameBytes(inst)
+	if err != nil {
+		return nil, err
+	}
 	var raw []int32
-	var err error
 	switch ts {
 	case midsag.ImplicitVRLittleEndian, midsag.ExplicitVRLittleEndian, midsag.DeflatedExplicitVRLittleEndian:
-		raw, err = native(inst.PixelData, n, inst.BitsAllocated, binary.LittleEndian)
+		raw, err = native(frame, n, inst.BitsAllocated, binary.LittleEndian)
 	case midsag.ExplicitVRBigEndian:
-		raw, err = native(inst.PixelData, n, inst.BitsAllocated, binary.BigEndian)
+		raw, err = native(frame, n, inst.BitsAllocated, binary.BigEndian)
 	case midsag.RLELossless:
 		var b []byte
-		b, err = codec.DecodeRLE(firstFrame(inst), rows, cols, spp, inst.BitsAllocated)
+		b, err = codec.DecodeRLE(frame, rows, cols, spp, inst.BitsAllocated)
 		if err == nil {
 			// RLE Lossless always decodes to planar configuration 0
 			// with samples little-endian (PS3.5 G.2).
@@ -56,10 +59,10 @@ func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 			inst = withPlanar(inst, 0)
 		}
 	case midsag.JPEGLossless, midsag.JPEGLosslessSV1:
-		raw, err = jpegLossless(firstFrame(inst), rows, cols, spp)
+		raw, err = jpegLossless(frame, rows, cols, spp)
 		inst = withPlanar(inst, 0)
 	case midsag.JPEGBaseline8Bit:
-		raw, err = jpegBaseline(firstFrame(inst), rows, cols, spp)
+		raw, err = jpegBaseline(frame, rows, cols, spp)
 		inst = withPlanar(inst, 0)
 	}
 	if err != nil {
@@ -74,16 +77,61 @@ func withPlanar(inst *midsag.Instance, pc int) *midsag.Instance {
 	return &c
 }
 
-// firstFrame returns the fragments of the first frame. For a single-frame
-// image every fragment belongs to it (PS3.5 A.4).
-func firstFrame(inst *midsag.Instance) []byte {
-	if len(inst.Fragments) == 1 {
-		return inst.Fragments[0]
+// frameBytes returns the stored bytes of frame inst.Frame: for native
+// pixel data the frame's slice of the value, frames being stored one after
+// another (PS3.5 8.1.1); for encapsulated pixel data the frame's fragments
+// (PS3.5 A.4), found by the Extended or Basic Offset Table when it has one
+// entry per frame, or one fragment per frame when there are as many
+// fragments as frames. A single frame owns every fragment.
+func frameBytes(inst *midsag.Instance) ([]byte, error) {
+	frames := max(inst.NumberOfFrames, 1)
+	if inst.Frame < 0 || inst.Frame >= frames {
+		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "frame %d asked of an image with %d frames", inst.Frame+1, frames)
 	}
-	if inst.NumberOfFrames > 1 && len(inst.Fragments) > 0 {
-		return inst.Fragments[0]
+	if len(inst.Fragments) == 0 {
+		size := inst.Rows * inst.Columns * inst.SamplesPerPixel * (inst.BitsAllocated / 8)
+		start, end := inst.Frame*size, (inst.Frame+1)*size
+		if end > len(inst.PixelData) {
+			return nil, midsag.Rejectf(midsag.ReasonTruncated, "pixel data has %d bytes; frame %d of %d needs bytes %d to %d",
+				len(inst.PixelData), inst.Frame+1, frames, start, end)
+		}
+		return inst.PixelData[start:end], nil
 	}
-	return bytes.Join(inst.Fragments, nil)
+	if frames == 1 {
+		if len(inst.Fragments) == 1 {
+			return inst.Fragments[0], nil
+		}
+		return bytes.Join(inst.Fragments, nil), nil
+	}
+	if len(inst.FrameOffsets) == frames {
+		// Item offsets: each fragment item is an 8-byte tag and length
+		// followed by its value (PS3.5 A.4, 7.5).
+		index := make(map[uint64]int, len(inst.Fragments)+1)
+		var at uint64
+		for k, f := range inst.Fragments {
+			index[at] = k
+			at += 8 + uint64(len(f))
+		}
+		index[at] = len(inst.Fragments)
+		first, ok1 := index[inst.FrameOffsets[inst.Frame]]
+		last := len(inst.Fragments)
+		ok2 := true
+		if inst.Frame+1 < frames {
+			last, ok2 = index[inst.FrameOffsets[inst.Frame+1]]
+		}
+		if !ok1 || !ok2 || last <= first {
+			return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "the offset table entry of frame %d does not start a fragment", inst.Frame+1)
+		}
+		if last-first == 1 {
+			return inst.Fragments[first], nil
+		}
+		return bytes.Join(inst.Fragments[first:last], nil), nil
+	}
+	if len(inst.Fragments) == frames {
+		return inst.Fragments[inst.Frame], nil
+	}
+	return nil, midsag.Rejectf(midsag.ReasonBadPixelData,
+		"%d fragments for %d frames and no offset table: the frame boundaries are unknown (PS3.5 A.4)", len(inst.Fragments), frames)
 }
 
 // native reads n stored values of bitsAllocated bits each. The values are

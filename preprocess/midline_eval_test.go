@@ -36,8 +36,8 @@ type evalOutcome struct {
 // evalTally counts outcomes for one family.
 type evalTally struct {
 	inSlab, exact, near, flagged, refused, baseExact, baseNear int
-	missing, missingRefused, missingFlagged, missingUnflagged    int
-	wrongUnflagged                                               int
+	missing, missingRefused, missingFlagged, missingUnflagged  int
+	wrongUnflagged                                             int
 }
 
 func (t *evalTally) add(o evalOutcome) {

@@ -19,6 +19,10 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 		timings[name] = float64(time.Since(t).Microseconds()) / 1000
 		t = time.Now()
 	}
+	instances, err := Dedupe(instances)
+	if err != nil {
+		return nil, err
+	}
 	studies := Group(instances)
 	switch {
 	case len(studies) == 0:
@@ -41,6 +45,9 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 	}
 	if err := PickSlices(sl); err != nil {
 		return nil, fmt.Errorf("series %s: %w", se.SeriesInstanceUID, err)
+	}
+	for i, in := range sl.Instances {
+		sl.Scores[i].FrameNumber = in.FrameNumber()
 	}
 	lap("pick_slices")
 	tensor, sflags, err := Stack(sl, spec)
@@ -72,6 +79,7 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 		StudyInstanceUID:     st.StudyInstanceUID,
 		SeriesInstanceUID:    se.SeriesInstanceUID,
 		CenterSOPInstanceUID: sl.Instances[sl.Center].SOPInstanceUID,
+		CenterFrameNumber:    sl.Instances[sl.Center].FrameNumber(),
 		Candidates:           cands,
 		Slices:               sl.Scores,
 		MidlineConfidence:    sl.Confidence,

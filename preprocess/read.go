@@ -145,6 +145,9 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 		return nil, err
 	}
 	inst.TransferSyntaxUID = m.transferSyntax
+	if len(inst.Fragments) > 0 {
+		inst.FrameOffsets = offsetTable(ds, body, !implicit)
+	}
 	return inst, nil
 }
 
@@ -289,6 +292,9 @@ func (p *Preprocessor) instance(ds dicom.Dataset) (*midsag.Instance, error) {
 	}
 	if inst.NumberOfFrames > p.opts.Limits.MaxFrames {
 		return nil, midsag.Rejectf(midsag.ReasonTooLarge, "%d frames, above the limit of %d", inst.NumberOfFrames, p.opts.Limits.MaxFrames)
+	}
+	if err := frameGroups(a, inst); err != nil {
+		return nil, err
 	}
 	if e, err := ds.FindElementByTag(tag.PixelData); err == nil {
 		if info, ok := e.Value.GetValue().(dicom.PixelDataInfo); ok {

@@ -216,8 +216,8 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 	}
 	c.judgeDerivation(first)
 	c.judgeContrast(se)
-	if first.NumberOfFrames > 1 {
-		c.exclude("multi-frame instances (%d frames) are not read as slices", first.NumberOfFrames)
+	if first.NumberOfFrames > 1 && !midsag.FramesAsSlices(first.SOPClassUID) {
+		c.exclude("multi-frame instances (%d frames) of SOP Class %s are not read as slices; only Enhanced MR and Legacy Converted Enhanced MR frames are", first.NumberOfFrames, first.SOPClassUID)
 	}
 	if !first.HasGeometry {
 		c.exclude("no Image Orientation/Position (Patient)")

@@ -200,12 +200,19 @@ func printSummary(w io.Writer, r *midsag.Result) {
 		if s.InStack {
 			stack = append(stack, fmt.Sprint(i+1))
 		}
-		if s.SOPInstanceUID == r.CenterSOPInstanceUID {
+		if s.SOPInstanceUID == r.CenterSOPInstanceUID && s.FrameNumber == r.CenterFrameNumber {
 			center = i
 		}
 	}
-	fmt.Fprintf(w, "midline      slice %d of %d (instance %d), confidence %.2f; stack %s\n",
-		center+1, len(r.Slices), r.Slices[center].InstanceNumber, r.MidlineConfidence, strings.Join(stack, ","))
+	where := "no centre slice listed"
+	if center >= 0 {
+		where = fmt.Sprintf("instance %d", r.Slices[center].InstanceNumber)
+		if f := r.Slices[center].FrameNumber; f > 0 {
+			where += fmt.Sprintf(", frame %d", f)
+		}
+	}
+	fmt.Fprintf(w, "midline      slice %d of %d (%s), confidence %.2f; stack %s\n",
+		center+1, len(r.Slices), where, r.MidlineConfidence, strings.Join(stack, ","))
 	fmt.Fprintf(w, "model        %s %s (sha256 %.12s)\n", r.Model.Name, r.Model.Version, r.Model.SHA256)
 	fmt.Fprintf(w, "probability  %.4g uncalibrated, %.4g calibrated (%s)\n", r.Probability, r.CalibratedProb, r.CalibrationMethod)
 	fmt.Fprintf(w, "decision     %s (threshold %.2f)\n", r.Decision, r.Threshold)
