@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"fmt"
+	"image"
 	"image/color"
 	"image/jpeg"
 
@@ -44,9 +45,14 @@ func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "bits stored %d and high bit %d do not fit %d bits allocated",
 			inst.BitsStored, inst.HighBit, inst.BitsAllocated)
 	}
-	sh := frameShape{rows: rows, cols: cols, spp: spp, bitsAllocated: inst.BitsAllocated}
+	sh := frameShape{rows: rows, cols: cols, spp: spp, bitsAllocated: inst.BitsAllocated, photometric: inst.Photometric}
 	var raw []int32
 	var err error
+	if inst.Photometric == "YBR_FULL_422" && frameDecoders[ts].decode == nil {
+		// Native YBR_FULL_422 stores two luminance samples per chroma
+		// pair (PS3.3 C.7.6.3.1.2), which the readers here do not unpack.
+		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "uncompressed YBR_FULL_422 pixel data is not read; convert it to RGB first")
+	}
 	switch ts {
 	case midsag.ImplicitVRLittleEndian, midsag.ExplicitVRLittleEndian, midsag.DeflatedExplicitVRLittleEndian:
 		raw, err = native(inst.PixelData, sh, binary.LittleEndian)
@@ -76,7 +82,10 @@ func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 
 // frameShape is what the DICOM header says one frame holds (PS3.3
 // C.7.6.3).
-type frameShape struct{ rows, cols, spp, bitsAllocated int }
+type frameShape struct {
+	rows, cols, spp, bitsAllocated int
+	photometric                    string
+}
 
 // samples is the number of stored values in one frame.
 func (s frameShape) samples() int { return s.rows * s.cols * s.spp }
@@ -289,6 +298,14 @@ func jpegBaseline(frame []byte, sh frameShape) ([]int32, error) {
 			i := (y*cols + x) * spp
 			if spp == 1 {
 				out[i] = int32(color.GrayModel.Convert(img.At(b.Min.X+x, b.Min.Y+y)).(color.Gray).Y)
+				continue
+			}
+			if yc, ok := img.(*image.YCbCr); ok && sh.photometric == "RGB" {
+				// RGB in a JPEG frame means the components are R, G and B
+				// with no colour transform (PS3.5 8.2.1); image/jpeg
+				// assumes YCbCr when no Adobe marker says otherwise.
+				yi, ci := yc.YOffset(b.Min.X+x, b.Min.Y+y), yc.COffset(b.Min.X+x, b.Min.Y+y)
+				out[i], out[i+1], out[i+2] = int32(yc.Y[yi]), int32(yc.Cb[ci]), int32(yc.Cr[ci])
 				continue
 			}
 			r, g, bl, _ := img.At(b.Min.X+x, b.Min.Y+y).RGBA()
