@@ -5,6 +5,18 @@ GO       ?= go
 BIN      := bin/midsag
 ORT_LIB  := third_party/onnxruntime/linux-$(shell uname -m | sed -e 's/x86_64/x64/' -e 's/aarch64/arm64/')/libonnxruntime.so.1
 
+# The JPEG 2000 and JPEG-LS decoders are cgo bindings to OpenJPEG and
+# CharLS (Debian libopenjp2-7-dev, libcharls-dev). Each build tag is set
+# when pkg-config finds its library; without them the binary still builds
+# and refuses those transfer syntaxes, naming the package to install.
+# GOFLAGS carries the tags to every go command, the bench scripts' too.
+comma := ,
+CODEC_TAGS := $(strip $(shell pkg-config --exists libopenjp2 2>/dev/null && echo openjpeg) \
+                      $(shell pkg-config --exists charls 2>/dev/null && echo charls))
+ifneq ($(CODEC_TAGS),)
+export GOFLAGS := $(strip $(GOFLAGS) -tags=$(subst $(eval) ,$(comma),$(CODEC_TAGS)))
+endif
+
 .PHONY: all build ort demo test test-long bench vet fmt clean gen-api
 
 all: build
@@ -24,12 +36,17 @@ build: ort
 demo: build
 	./$(BIN) demo --out demo-out
 
-# test runs the default suite (well under 15 minutes on 2 cores). Tests
+# test runs the default suite (well under 15 minutes on 2 cores), then the
+# codec and syntax tests once more without the codec tags, as a machine
+# without the libraries builds them. Tests
 # that compare against DCMTK, dicom3tools or pydicom skip when those are
 # missing unless MIDSAG_REQUIRE_TOOLS=1 (set by .ci/run).
 test: ort
 	$(GO) vet ./...
 	$(GO) test -count=1 -timeout 20m ./...
+	GOFLAGS= MIDSAG_REQUIRE_CODECS= $(GO) test -count=1 \
+	  -run 'TestCodecSyntaxListsMatchBuild|TestCodecRefusesOrDecodesWithoutLibrary|TestUnsupportedSyntaxNamesUID|TestCorruptCodestreams' \
+	  ./preprocess/ ./preprocess/codec/
 
 # test-long adds the soak and scale runs kept out of the default suite.
 test-long: ort

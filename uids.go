@@ -22,6 +22,24 @@ const (
 	JPEGLosslessSV1 = "1.2.840.10008.1.2.4.70"
 	// RLELossless is RLE Lossless (PS3.5 A.4.2, Annex G).
 	RLELossless = "1.2.840.10008.1.2.5"
+	// JPEGExtended12Bit is JPEG Extended (Process 2 & 4), 8- or 12-bit
+	// lossy JPEG (PS3.5 A.4.1).
+	JPEGExtended12Bit = "1.2.840.10008.1.2.4.51"
+	// JPEGLSLossless is JPEG-LS Lossless Image Compression (PS3.5 A.4.3).
+	JPEGLSLossless = "1.2.840.10008.1.2.4.80"
+	// JPEGLSNearLossless is JPEG-LS Lossy (Near-Lossless) Image
+	// Compression (PS3.5 A.4.3).
+	JPEGLSNearLossless = "1.2.840.10008.1.2.4.81"
+	// JPEG2000Lossless is JPEG 2000 Image Compression (Lossless Only)
+	// (PS3.5 A.4.4).
+	JPEG2000Lossless = "1.2.840.10008.1.2.4.90"
+	// JPEG2000 is JPEG 2000 Image Compression, lossless or lossy
+	// (PS3.5 A.4.4).
+	JPEG2000 = "1.2.840.10008.1.2.4.91"
+	// DeflatedImageFrameCompression is Deflated Image Frame Compression:
+	// each frame deflated (RFC 1951) into one fragment (PS3.5 A.4.13,
+	// 8.2.16).
+	DeflatedImageFrameCompression = "1.2.840.10008.1.2.8.1"
 )
 
 // Storage SOP Class UIDs (PS3.4 B.5, PS3.6 Table A-1).

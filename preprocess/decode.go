@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"fmt"
+	"image"
 	"image/color"
 	"image/jpeg"
 
@@ -18,9 +19,15 @@ import (
 // to their mean channel.
 func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 	ts := inst.TransferSyntaxUID
+	if lib, ok := NeedRebuild[ts]; ok {
+		return nil, midsag.Rejectf(midsag.ReasonUnsupportedSyntax, "transfer syntax %s (%s): %s", ts, syntaxNames[ts], lib.Error())
+	}
 	if _, ok := SupportedSyntaxes[ts]; !ok {
 		return nil, midsag.Rejectf(midsag.ReasonUnsupportedSyntax,
 			"transfer syntax %s is not decoded by midsag; convert the files to Explicit VR Little Endian with a general DICOM toolkit first", ts)
+	}
+	if err := refuseJPEGPrecision(inst); err != nil {
+		return nil, err
 	}
 	rows, cols, spp := inst.Rows, inst.Columns, inst.SamplesPerPixel
 	if rows <= 0 || cols <= 0 {
@@ -30,45 +37,192 @@ func Decode(inst *midsag.Instance) (*midsag.Image, error) {
 		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "%d samples per pixel; only 1 or 3 are read", spp)
 	}
 	switch inst.BitsAllocated {
-	case 8, 16:
+	case 1, 8, 16:
 	default:
-		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "bits allocated %d; only 8 and 16 are read", inst.BitsAllocated)
+		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "bits allocated %d; only 1, 8 and 16 are read", inst.BitsAllocated)
 	}
 	if inst.BitsStored < 1 || inst.BitsStored > inst.BitsAllocated || inst.HighBit >= inst.BitsAllocated || inst.HighBit < inst.BitsStored-1 {
 		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "bits stored %d and high bit %d do not fit %d bits allocated",
 			inst.BitsStored, inst.HighBit, inst.BitsAllocated)
 	}
-	n := rows * cols * spp
+	sh := frameShape{rows: rows, cols: cols, spp: spp, bitsAllocated: inst.BitsAllocated, photometric: inst.Photometric}
 	frame, err := frameBytes(inst)
 	if err != nil {
 		return nil, err
 	}
 	var raw []int32
+	if inst.Photometric == "YBR_FULL_422" && frameDecoders[ts].decode == nil {
+		// Native YBR_FULL_422 stores two luminance samples per chroma
+		// pair (PS3.3 C.7.6.3.1.2), which the readers here do not unpack.
+		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "uncompressed YBR_FULL_422 pixel data is not read; convert it to RGB first")
+	}
 	switch ts {
 	case midsag.ImplicitVRLittleEndian, midsag.ExplicitVRLittleEndian, midsag.DeflatedExplicitVRLittleEndian:
-		raw, err = native(frame, n, inst.BitsAllocated, binary.LittleEndian)
+		raw, err = native(frame, sh, binary.LittleEndian)
 	case midsag.ExplicitVRBigEndian:
-		raw, err = native(frame, n, inst.BitsAllocated, binary.BigEndian)
-	case midsag.RLELossless:
-		var b []byte
-		b, err = codec.DecodeRLE(frame, rows, cols, spp, inst.BitsAllocated)
-		if err == nil {
-			// RLE Lossless always decodes to planar configuration 0
-			// with samples little-endian (PS3.5 G.2).
-			raw, err = native(b, n, inst.BitsAllocated, binary.LittleEndian)
+		raw, err = native(frame, sh, binary.BigEndian)
+	default:
+		fd, ok := frameDecoders[ts]
+		if !ok {
+			return nil, midsag.Rejectf(midsag.ReasonUnsupportedSyntax, "transfer syntax %s has no frame decoder in this binary", ts)
+		}
+		if fd.minBits > inst.BitsAllocated {
+			return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "bits allocated %d cannot hold %s data", inst.BitsAllocated, syntaxNames[ts])
+		}
+		raw, err = fd.decode(frame, sh)
+		if fd.interleaved {
 			inst = withPlanar(inst, 0)
 		}
-	case midsag.JPEGLossless, midsag.JPEGLosslessSV1:
-		raw, err = jpegLossless(frame, rows, cols, spp)
-		inst = withPlanar(inst, 0)
-	case midsag.JPEGBaseline8Bit:
-		raw, err = jpegBaseline(frame, rows, cols, spp)
-		inst = withPlanar(inst, 0)
 	}
 	if err != nil {
+		if me := midsag.RefusalOf(err); me != nil {
+			return nil, me
+		}
 		return nil, midsag.Reject(midsag.ReasonBadPixelData, "cannot decode pixel data", err)
 	}
 	return toImage(inst, raw), nil
+}
+
+// frameShape is what the DICOM header says one frame holds (PS3.3
+// C.7.6.3).
+type frameShape struct {
+	rows, cols, spp, bitsAllocated int
+	photometric                    string
+}
+
+// samples is the number of stored values in one frame.
+func (s frameShape) samples() int { return s.rows * s.cols * s.spp }
+
+// bytes is the size of one native frame; with Bits Allocated 1 the bits
+// are packed and the frame is padded to a whole byte (PS3.5 8.1.1).
+func (s frameShape) bytes() int { return (s.samples()*s.bitsAllocated + 7) / 8 }
+
+func (s frameShape) expect() codec.Expect {
+	return codec.Expect{Rows: s.rows, Cols: s.cols, Components: s.spp, BitsAllocated: s.bitsAllocated}
+}
+
+// frameDecoder decodes one encapsulated frame (PS3.5 A.4) to its stored
+// values. The multi-frame selector hands it one frame's bytes.
+type frameDecoder struct {
+	decode func(frame []byte, sh frameShape) ([]int32, error)
+	// interleaved is set when the decoder returns colour samples
+	// interleaved by pixel whatever Planar Configuration says.
+	interleaved bool
+	// minBits is the least Bits Allocated the encoding can hold.
+	minBits int
+}
+
+// frameDecoders maps each encapsulated transfer syntax to its decoder.
+// JPEG 2000 and JPEG-LS are here in every build; without their codecs
+// Decode refuses them earlier through NeedRebuild.
+var frameDecoders = map[string]frameDecoder{
+	midsag.RLELossless:                   {decodeRLEFrame, true, 8},
+	midsag.JPEGLossless:                  {jpegLossless, true, 8},
+	midsag.JPEGLosslessSV1:               {jpegLossless, true, 8},
+	midsag.JPEGBaseline8Bit:              {jpegBaseline, true, 8},
+	midsag.JPEGExtended12Bit:             {jpegBaseline, true, 8},
+	midsag.DeflatedImageFrameCompression: {deflatedFrame, false, 1},
+	midsag.JPEGLSLossless:                {jpegLS, true, 8},
+	midsag.JPEGLSNearLossless:            {jpegLS, true, 8},
+	midsag.JPEG2000Lossless:              {jpeg2000, true, 8},
+	midsag.JPEG2000:                      {jpeg2000, true, 8},
+}
+
+// decodeRLEFrame decodes RLE Lossless, which always decodes to planar
+// configuration 0 with samples little-endian (PS3.5 G.2).
+func decodeRLEFrame(frame []byte, sh frameShape) ([]int32, error) {
+	b, err := codec.DecodeRLE(frame, sh.rows, sh.cols, sh.spp, sh.bitsAllocated)
+	if err != nil {
+		return nil, err
+	}
+	return native(b, sh, binary.LittleEndian)
+}
+
+// deflatedFrame inflates one frame of Deflated Image Frame Compression
+// to its native bytes, in the Planar Configuration of the header
+// (PS3.5 A.4.13, 8.2.16).
+func deflatedFrame(frame []byte, sh frameShape) ([]int32, error) {
+	b, err := codec.InflateFrame(frame, sh.bytes())
+	if err != nil {
+		return nil, err
+	}
+	return native(b, sh, binary.LittleEndian)
+}
+
+// jpegLS decodes JPEG-LS lossless and near-lossless (PS3.5 A.4.3).
+func jpegLS(frame []byte, sh frameShape) ([]int32, error) {
+	f, err := codec.DecodeJPEGLS(frame, sh.expect())
+	if err != nil {
+		return nil, err
+	}
+	return f.Samples, nil
+}
+
+// jpeg2000 decodes JPEG 2000 Part 1 (PS3.5 A.4.4). Decoded samples are
+// signed when the codestream says so, which toImage's masking and sign
+// extension by Bits Stored and Pixel Representation leave unchanged.
+func jpeg2000(frame []byte, sh frameShape) ([]int32, error) {
+	f, err := codec.DecodeJPEG2000(frame, sh.expect())
+	if err != nil {
+		return nil, err
+	}
+	return f.Samples, nil
+}
+
+// refuseJPEGPrecision refuses JPEG (ITU-T T.81) frames with 12-bit
+// samples, which Go's image/jpeg does not decode. Transfer syntax
+// 1.2.840.10008.1.2.4.51 carries 8- or 12-bit samples (PS3.5 A.4.1), so
+// the frame's SOF precision decides, before any other check can give
+// another reason.
+func refuseJPEGPrecision(inst *midsag.Instance) error {
+	ts := inst.TransferSyntaxUID
+	if ts != midsag.JPEGBaseline8Bit && ts != midsag.JPEGExtended12Bit {
+		return nil
+	}
+	frame, err := frameBytes(inst)
+	if err != nil {
+		return err
+	}
+	p, ok := jpegPrecision(frame)
+	if !ok || p == 8 {
+		return nil
+	}
+	return midsag.Rejectf(midsag.ReasonUnsupportedSyntax,
+		"transfer syntax %s (%s) with %d-bit JPEG samples is not decoded by midsag, whose JPEG decoder reads 8-bit samples only; "+
+			"convert the files to Explicit VR Little Endian first, for example with DCMTK's `dcmdjpeg in.dcm out.dcm` or GDCM's `gdcmconv --raw in.dcm out.dcm`",
+		ts, syntaxNames[ts], p)
+}
+
+// jpegPrecision returns the sample precision P of the first SOF segment
+// of a JPEG stream (ITU-T T.81 B.2.2), walking the marker segments after
+// SOI (B.1.1.4).
+func jpegPrecision(b []byte) (int, bool) {
+	if len(b) < 4 || b[0] != 0xFF || b[1] != 0xD8 {
+		return 0, false
+	}
+	for i := 2; i+4 <= len(b); {
+		if b[i] != 0xFF {
+			return 0, false
+		}
+		m := b[i+1]
+		if m == 0xFF { // fill byte (B.1.1.2)
+			i++
+			continue
+		}
+		length := int(b[i+2])<<8 | int(b[i+3])
+		// SOF0..SOF15 except DHT (C4), JPG (C8) and DAC (CC).
+		if m >= 0xC0 && m <= 0xCF && m != 0xC4 && m != 0xC8 && m != 0xCC {
+			if i+4 >= len(b) {
+				return 0, false
+			}
+			return int(b[i+4]), true
+		}
+		if m == 0xDA || length < 2 {
+			return 0, false
+		}
+		i += 2 + length
+	}
+	return 0, false
 }
 
 func withPlanar(inst *midsag.Instance, pc int) *midsag.Instance {
@@ -134,27 +288,36 @@ func frameBytes(inst *midsag.Instance) ([]byte, error) {
 		"%d fragments for %d frames and no offset table: the frame boundaries are unknown (PS3.5 A.4)", len(inst.Fragments), frames)
 }
 
-// native reads n stored values of bitsAllocated bits each. The values are
-// unmasked; toImage applies Bits Stored and High Bit.
-func native(b []byte, n, bitsAllocated int, bo binary.ByteOrder) ([]int32, error) {
-	bytesPer := bitsAllocated / 8
-	if len(b) < n*bytesPer {
-		return nil, midsag.Rejectf(midsag.ReasonTruncated, "pixel data has %d bytes, %d needed", len(b), n*bytesPer)
+// native reads one frame's stored values. The values are unmasked;
+// toImage applies Bits Stored and High Bit. With Bits Allocated 1 the
+// first pixel is the least significant bit of the first byte (PS3.5
+// 8.1.1, D.2).
+func native(b []byte, sh frameShape, bo binary.ByteOrder) ([]int32, error) {
+	n := sh.samples()
+	if len(b) < sh.bytes() {
+		return nil, midsag.Rejectf(midsag.ReasonTruncated, "pixel data has %d bytes, %d needed", len(b), sh.bytes())
 	}
 	out := make([]int32, n)
-	if bytesPer == 1 {
+	switch sh.bitsAllocated {
+	case 1:
+		for i := range out {
+			out[i] = int32(b[i/8]>>(uint(i)%8)) & 1
+		}
+	case 8:
 		for i := range out {
 			out[i] = int32(b[i])
 		}
-		return out, nil
-	}
-	for i := range out {
-		out[i] = int32(bo.Uint16(b[2*i:]))
+	default:
+		for i := range out {
+			out[i] = int32(bo.Uint16(b[2*i:]))
+		}
 	}
 	return out, nil
 }
 
-func jpegLossless(frame []byte, rows, cols, spp int) ([]int32, error) {
+// jpegLossless decodes JPEG lossless, process 14 (ITU-T T.81 Annex H).
+func jpegLossless(frame []byte, sh frameShape) ([]int32, error) {
+	rows, cols, spp := sh.rows, sh.cols, sh.spp
 	img, err := codec.DecodeJPEGLossless(frame)
 	if err != nil {
 		return nil, err
@@ -169,9 +332,10 @@ func jpegLossless(frame []byte, rows, cols, spp int) ([]int32, error) {
 	return out, nil
 }
 
-// jpegBaseline decodes 8-bit JPEG (ITU-T T.81 process 1) with the
-// standard library.
-func jpegBaseline(frame []byte, rows, cols, spp int) ([]int32, error) {
+// jpegBaseline decodes 8-bit JPEG (ITU-T T.81 processes 1 and 2,
+// baseline and extended sequential) with the standard library.
+func jpegBaseline(frame []byte, sh frameShape) ([]int32, error) {
+	rows, cols, spp := sh.rows, sh.cols, sh.spp
 	img, err := jpeg.Decode(bytes.NewReader(frame))
 	if err != nil {
 		return nil, err
@@ -186,6 +350,14 @@ func jpegBaseline(frame []byte, rows, cols, spp int) ([]int32, error) {
 			i := (y*cols + x) * spp
 			if spp == 1 {
 				out[i] = int32(color.GrayModel.Convert(img.At(b.Min.X+x, b.Min.Y+y)).(color.Gray).Y)
+				continue
+			}
+			if yc, ok := img.(*image.YCbCr); ok && sh.photometric == "RGB" {
+				// RGB in a JPEG frame means the components are R, G and B
+				// with no colour transform (PS3.5 8.2.1); image/jpeg
+				// assumes YCbCr when no Adobe marker says otherwise.
+				yi, ci := yc.YOffset(b.Min.X+x, b.Min.Y+y), yc.COffset(b.Min.X+x, b.Min.Y+y)
+				out[i], out[i+1], out[i+2] = int32(yc.Y[yi]), int32(yc.Cb[ci]), int32(yc.Cr[ci])
 				continue
 			}
 			r, g, bl, _ := img.At(b.Min.X+x, b.Min.Y+y).RGBA()

@@ -132,11 +132,7 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 	if _, err := sc.dataset(0, len(body), 0); err != nil {
 		return nil, err
 	}
-	parseTS := m.transferSyntax
-	if parseTS == midsag.DeflatedExplicitVRLittleEndian {
-		parseTS = midsag.ExplicitVRLittleEndian // already inflated above
-	}
-	ds, err := parseDataset(body, parseTS)
+	ds, err := parseDataset(body, datasetSyntax(m.transferSyntax))
 	if err != nil {
 		return nil, err
 	}
@@ -151,6 +147,20 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 	return inst, nil
 }
 
+// datasetSyntax is the syntax the data set itself is encoded in. Every
+// transfer syntax other than the two uncompressed alternatives encodes
+// the data set in Explicit VR Little Endian (PS3.5 10.1, A.4), and the
+// deflated data set has been inflated before parsing; the parser is given
+// that syntax, so it never meets a UID it does not know (such as Deflated
+// Image Frame Compression, PS3.5 A.4.13), on which it would fail.
+func datasetSyntax(ts string) string {
+	switch ts {
+	case midsag.ImplicitVRLittleEndian, midsag.ExplicitVRBigEndian:
+		return ts
+	}
+	return midsag.ExplicitVRLittleEndian
+}
+
 // parseDataset runs the DICOM parser over a data set body, converting a
 // panic inside it into a refusal. The body is preceded by a minimal file
 // meta information group naming its transfer syntax (PS3.10 7.1): without
@@ -158,8 +168,10 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 // allocates.
 func parseDataset(body []byte, ts string) (ds dicom.Dataset, err error) {
 	defer func() {
-		if r := recover(); r != nil {
-			err = midsag.Rejectf(midsag.ReasonNotDICOM, "the DICOM parser failed on this file: %v", r)
+		// The panic value is Go runtime text, never shown to a person:
+		// the refusal is a fixed sentence.
+		if recover() != nil {
+			err = midsag.Rejectf(midsag.ReasonNotDICOM, "the DICOM parser could not read this file's data set")
 		}
 	}()
 	head := metaHeader(ts)

@@ -1,5 +1,6 @@
 // Package testtool finds the outside reference tools that tests compare
-// against (DCMTK, dicom3tools, pydicom's test files) and skips or fails a
+// against (DCMTK, GDCM, dicom3tools, pydicom's test files, the real DICOM
+// samples beside the checkout) and skips or fails a
 // test when they are missing: tests skip unless MIDSAG_REQUIRE_TOOLS=1,
 // which CI sets after installing them.
 package testtool
@@ -7,6 +8,7 @@ package testtool
 import (
 	"os"
 	"os/exec"
+	"path/filepath"
 	"strings"
 	"testing"
 )
@@ -68,4 +70,53 @@ func Python(t testing.TB, modules ...string) string {
 		missing(t, py+" with "+strings.Join(modules, ", "))
 	}
 	return py
+}
+
+// GDCMConv returns GDCM's gdcmconv (Debian package libgdcm-tools) or
+// skips/fails t.
+func GDCMConv(t testing.TB) string {
+	t.Helper()
+	return Command(t, "gdcmconv")
+}
+
+// RealData returns the folder of real DICOM samples beside the project
+// checkout (../shared/realdata from the module root, see its README.md and
+// FILES.tsv), or the folder MIDSAG_REALDATA names. The samples are not in
+// the repository: without them the test skips, unless MIDSAG_REALDATA is
+// set, when it fails.
+func RealData(t testing.TB) string {
+	t.Helper()
+	if d := os.Getenv("MIDSAG_REALDATA"); d != "" {
+		if _, err := os.Stat(filepath.Join(d, "FILES.tsv")); err != nil {
+			t.Fatalf("MIDSAG_REALDATA=%s has no FILES.tsv: %v", d, err)
+		}
+		return d
+	}
+	dir, err := os.Getwd()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for {
+		if _, err := os.Stat(filepath.Join(dir, "go.mod")); err == nil {
+			d := filepath.Join(dir, "..", "shared", "realdata")
+			if _, err := os.Stat(filepath.Join(d, "FILES.tsv")); err != nil {
+				t.Skipf("real DICOM samples not found at %s; set MIDSAG_REALDATA to their folder", d)
+			}
+			return d
+		}
+		parent := filepath.Dir(dir)
+		if parent == dir {
+			t.Skip("module root not found, so neither are the real DICOM samples beside it")
+		}
+		dir = parent
+	}
+}
+
+// Need skips or fails t, as a missing tool does, when ok is false; what
+// says what is missing and how to get it.
+func Need(t testing.TB, ok bool, what string) {
+	t.Helper()
+	if !ok {
+		missing(t, what)
+	}
 }

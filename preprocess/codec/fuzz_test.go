@@ -69,3 +69,41 @@ func FuzzDecodeJPEGLossless(f *testing.F) {
 		}
 	})
 }
+
+// FuzzDecodeJPEG2000 and FuzzDecodeJPEGLS check that the cgo decoders
+// never crash and that a decoded frame has exactly the announced number
+// of samples. Seeds are pydicom's MR_small frames. In a build without the
+// codec every call returns NotBuiltError.
+// Run with: go test -tags openjpeg -run '^$' -fuzz FuzzDecodeJPEG2000 -fuzztime 30s
+func FuzzDecodeJPEG2000(f *testing.F) { fuzzCodec(f, "MR_small_jp2klossless.dcm", DecodeJPEG2000) }
+
+// FuzzDecodeJPEGLS: see FuzzDecodeJPEG2000.
+// Run with: go test -tags charls -run '^$' -fuzz FuzzDecodeJPEGLS -fuzztime 30s
+func FuzzDecodeJPEGLS(f *testing.F) { fuzzCodec(f, "MR_small_jpeg_ls_lossless.dcm", DecodeJPEGLS) }
+
+func fuzzCodec(f *testing.F, seed string, decode func([]byte, Expect) (*Frame, error)) {
+	im := readImage(f, pydicomFile(f, seed))
+	f.Add(im.encapsulated, uint8(im.rows), uint8(im.cols), uint8(im.spp), uint8(im.bitsAlloc))
+	f.Fuzz(func(t *testing.T, frame []byte, rows, cols, spp, bits uint8) {
+		fr, err := decode(frame, Expect{Rows: int(rows), Cols: int(cols), Components: int(spp), BitsAllocated: int(bits)})
+		if err != nil {
+			return
+		}
+		if len(fr.Samples) != int(rows)*int(cols)*int(spp) {
+			t.Fatalf("decoded %d samples, want %d", len(fr.Samples), int(rows)*int(cols)*int(spp))
+		}
+	})
+}
+
+// FuzzInflateFrame checks that InflateFrame returns exactly size bytes or
+// an error.
+// Run with: go test -run '^$' -fuzz FuzzInflateFrame -fuzztime 30s
+func FuzzInflateFrame(f *testing.F) {
+	f.Add([]byte{0x63, 0x60, 0x00, 0x00}, uint16(2))
+	f.Fuzz(func(t *testing.T, frame []byte, size uint16) {
+		out, err := InflateFrame(frame, int(size))
+		if err == nil && len(out) != int(size) {
+			t.Fatalf("%d bytes, want %d", len(out), size)
+		}
+	})
+}
