@@ -157,7 +157,11 @@ func TestCodecJPEGLSNearLossless(t *testing.T) {
 	if inst.TransferSyntaxUID != midsag.JPEGLSNearLossless {
 		t.Fatalf("dcmcjpls +en wrote %s", inst.TransferSyntaxUID)
 	}
-	f, err := codec.DecodeJPEGLS(firstFrame(inst), codec.Expect{Rows: inst.Rows, Cols: inst.Columns, Components: 1, BitsAllocated: inst.BitsAllocated})
+	frame, err := frameBytes(inst)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := codec.DecodeJPEGLS(frame, codec.Expect{Rows: inst.Rows, Cols: inst.Columns, Components: 1, BitsAllocated: inst.BitsAllocated})
 	if err != nil || f.Near != 3 {
 		t.Fatalf("NEAR %v, err %v; want 3", f, err)
 	}
