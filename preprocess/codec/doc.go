@@ -1,7 +1,11 @@
-// Package codec decodes and encodes the two compressed pixel encodings midsag
-// reads from DICOM: RLE Lossless (PS3.5 Annex G, transfer syntax
-// 1.2.840.10008.1.2.5) and JPEG lossless, process 14 (ITU-T T.81 Annex H,
-// transfer syntaxes 1.2.840.10008.1.2.4.57 and .70).
+// Package codec decodes the compressed pixel encodings midsag reads from
+// DICOM. In pure Go: RLE Lossless (PS3.5 Annex G, transfer syntax
+// 1.2.840.10008.1.2.5), JPEG lossless, process 14 (ITU-T T.81 Annex H,
+// .4.57 and .4.70), both also encoded, and Deflated Image Frame
+// Compression (PS3.5 A.4.13, 1.2.840.10008.1.2.8.1). Through cgo, when
+// built with the tags openjpeg and charls: JPEG 2000 Part 1 with OpenJPEG
+// (.4.90, .4.91) and JPEG-LS with CharLS (.4.80, .4.81); without a tag
+// the decoder returns a *NotBuiltError naming the Debian package.
 //
 // Callers hand in one frame's bytes (fragments already joined) together with
 // the image attributes from the DICOM header, and get native pixel bytes or
