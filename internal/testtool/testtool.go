@@ -79,11 +79,10 @@ func GDCMConv(t testing.TB) string {
 	return Command(t, "gdcmconv")
 }
 
-// RealData returns the folder of real DICOM samples beside the project
-// checkout (../shared/realdata from the module root, see its README.md and
-// FILES.tsv), or the folder MIDSAG_REALDATA names. The samples are not in
-// the repository: without them the test skips, unless MIDSAG_REALDATA is
-// set, when it fails.
+// RealData returns the folder of real DICOM samples: testdata/realdata in
+// the repository (copied from the project's shared/realdata with each
+// origin's licence; FILES.tsv names every file's origin, commit and
+// sha256), or the folder MIDSAG_REALDATA names.
 func RealData(t testing.TB) string {
 	t.Helper()
 	if d := os.Getenv("MIDSAG_REALDATA"); d != "" {
@@ -98,15 +97,15 @@ func RealData(t testing.TB) string {
 	}
 	for {
 		if _, err := os.Stat(filepath.Join(dir, "go.mod")); err == nil {
-			d := filepath.Join(dir, "..", "shared", "realdata")
+			d := filepath.Join(dir, "testdata", "realdata")
 			if _, err := os.Stat(filepath.Join(d, "FILES.tsv")); err != nil {
-				t.Skipf("real DICOM samples not found at %s; set MIDSAG_REALDATA to their folder", d)
+				t.Fatalf("real DICOM samples not found at %s: %v", d, err)
 			}
 			return d
 		}
 		parent := filepath.Dir(dir)
 		if parent == dir {
-			t.Skip("module root not found, so neither are the real DICOM samples beside it")
+			t.Fatal("module root not found, so neither are the real DICOM samples in its testdata")
 		}
 		dir = parent
 	}
