@@ -23,7 +23,7 @@ const (
 	// deep and the canal 12 to 17 mm (from memory), and partial volume
 	// moves the maxima to the middle of each CSF layer.
 	canalMinSepMM = 4.0
-	canalMaxSepMM = 20.0
+	canalMaxSepMM = 14.0
 	// canalFlank is the least CSF brightness, as a fraction of the series'
 	// bright reference (its 99th percentile), and canalDip the least fall
 	// from the darker flank to the cord, as a fraction of that flank

@@ -3,12 +3,14 @@ package preprocess
 import (
 	"bytes"
 	"fmt"
+	"math"
 	"runtime"
 	"sort"
 	"sync"
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/crossphantom"
 	"github.com/midsag/midsag/phantom"
 )
 
@@ -285,4 +287,42 @@ func checkGoals(t *testing.T, family string, tl evalTally) {
 	if tl.wrongUnflagged > 0 {
 		t.Errorf("%s: %d wrong picks carry no flag", family, tl.wrongUnflagged)
 	}
+}
+
+// crossPhantomCases returns n studies of internal/crossphantom, a family
+// written apart from the picker and from package phantom (other anatomy,
+// other layout, slice thickness 1 to 4 mm, lateral-only slabs and partial
+// transfers), with its own truth from the cord centreline's plane.
+func crossPhantomCases(t *testing.T, n int) []evalCase {
+	t.Helper()
+	cfg := crossphantom.DefaultConfig(20261203)
+	cases := make([]evalCase, 0, n)
+	for i := 0; i < n; i++ {
+		files, truth, err := crossphantom.Study(cfg, i)
+		if err != nil {
+			t.Fatal(err)
+		}
+		pf := make([]phantom.File, len(files))
+		for j, f := range files {
+			pf[j] = phantom.File{Name: f.Name, Data: f.Data}
+		}
+		c := evalCase{scenario: fmt.Sprintf("%s %.0f-%.0f mm", truth.Scenario, math.Floor(truth.ThicknessMM), math.Ceil(truth.ThicknessMM)), files: pf, target: truth.SeriesInstanceUID}
+		if truth.InSlab {
+			c.midline = truth.MidlineSOPInstanceUID
+		}
+		cases = append(cases, c)
+	}
+	return cases
+}
+
+// TestMidlineEvaluationCrossPhantom measures the midline picker on the
+// independently written family; nothing of the picker was tuned on it.
+func TestMidlineEvaluationCrossPhantom(t *testing.T) {
+	n := 200
+	if testing.Short() {
+		n = 60
+	}
+	outs := runEval(crossPhantomCases(t, n))
+	tl := reportEval(t, "crossphantom", outs)
+	checkGoals(t, "crossphantom", tl)
 }

@@ -22,10 +22,19 @@ const (
 	// Cue weights of the combined objective and the temperature that
 	// turns it into per-slice weights (tuned on package phantom only;
 	// validated on internal/crossphantom, which was written apart).
-	weightSymmetry = 1.0
-	weightCanal    = 1.0
+	weightSymmetry = 0.5
+	weightCanal    = 0.5
+	// StrongSymmetry is the symmetry, on two or more pairs inside the
+	// canal, from which symmetry leads the pick instead of the canal
+	// column's profile.
+	StrongSymmetry = 0.5
 	weightPrior    = 0.1
-	scoreTemp      = 0.1
+	// weightCentre and centreSigmaSlices weigh the centre of the canal
+	// column profile: the midpoint of the slices where the column reaches
+	// half its longest length, either side of the longest.
+	weightCentre      = 2.0
+	centreSigmaSlices = 0.6
+	scoreTemp         = 0.1
 	// MinConfidence is the least confidence of a pick without the flag
 	// midline_uncertain. Confidence is the combined weight of the picked
 	// slice and its two neighbours times the symmetry evidence, which is
@@ -38,6 +47,9 @@ const (
 	// slices: on package phantom one pair reaches 0.37 on slabs that miss
 	// the midline.
 	onePairEvidence = 0.75
+	// canalEvidence is the evidence of a canal column profile that is
+	// whole inside the slab, when symmetry is weaker.
+	canalEvidence = 0.8
 )
 
 // Midline quality flags.
@@ -111,6 +123,13 @@ func PickSlices(s *Slices) error {
 	for i, c := range canal {
 		anat[i] = c.ColumnMM / maxCol
 	}
+	runLo, runHi, lowIn, highIn := halfMaxRun(anat)
+	centre := (runLo + runHi) / 2
+	if !lowIn || !highIn {
+		// One crossing lies beyond the slab, so the profile's centre is
+		// not known: its peak stands in.
+		centre = float64(argmax(anat))
+	}
 	mid := (s.Positions[0] + s.Positions[n-1]) / 2
 	pos := func(c float64) float64 {
 		i := int(math.Floor(c))
@@ -126,15 +145,31 @@ func PickSlices(s *Slices) error {
 		}
 		return (anat[k/2] + anat[k/2+1]) / 2
 	}
+	// Symmetry leads where it is strong inside the canal; elsewhere the
+	// canal column's profile does. Symmetry counts only where the canal
+	// is: lateral slices of uniform soft tissue mirror each other too.
+	symAt := func(k int) float64 {
+		if pairs[k] == 0 {
+			return 0
+		}
+		return (1 - cost[k]) * anatAt(k)
+	}
+	symLead := false
+	for k := range cost {
+		if c := float64(k) / 2; pairs[k] >= 2 && c >= runLo && c <= runHi && 1-cost[k] >= StrongSymmetry {
+			symLead = true
+		}
+	}
+	wSym, wCentre := weightSymmetry, weightCentre
+	if symLead {
+		wSym, wCentre = weightCentre, weightSymmetry/2
+	}
 	obj := make([]float64, 2*n-1)
 	for k := range obj {
 		c := float64(k) / 2
-		sym := 0.0
-		if pairs[k] > 0 {
-			sym = 1 - cost[k]
-		}
 		prior := -0.5 * math.Pow((pos(c)-mid)/priorSigmaMM, 2)
-		obj[k] = weightSymmetry*sym + weightCanal*anatAt(k) + weightPrior*prior
+		obj[k] = wSym*symAt(k) + weightCanal*anatAt(k) + weightPrior*prior +
+			wCentre*math.Exp(-0.5*math.Pow((c-centre)/centreSigmaSlices, 2))
 	}
 	best := 0
 	for k := range obj {
@@ -178,11 +213,18 @@ func PickSlices(s *Slices) error {
 			evidence *= onePairEvidence
 		}
 	}
+	if lowIn && highIn && float64(s.Center) >= runLo && float64(s.Center) <= runHi {
+		// The canal column's profile is whole inside the slab and the
+		// pick lies within its half-maximum run.
+		evidence = max(evidence, canalEvidence)
+	}
 	evidence *= min(anat[s.Center]/0.5, 1)
 	s.Confidence = round4(mass * evidence)
 	s.Flags = nil
 	uncertain := s.Confidence < MinConfidence
-	if s.Center == 0 || s.Center == n-1 {
+	if s.Center == 0 || s.Center == n-1 || !lowIn || !highIn {
+		// The canal column runs to the slab's edge: the plane may lie at
+		// or beyond it.
 		s.Flags = append(s.Flags, FlagMidlineAtSlabEdge)
 		uncertain = true
 	}
@@ -213,6 +255,65 @@ func PickSlices(s *Slices) error {
 		}
 	}
 	return nil
+}
+
+func argmax(a []float64) int {
+	best := 0
+	for i := range a {
+		if a[i] > a[best] {
+			best = i
+		}
+	}
+	return best
+}
+
+// profileCentre returns the centre of a profile that peaks at 1: the
+// midpoint of its half-maximum crossings either side of the peak, found by
+// linear interpolation (the centre of the full width at half maximum), in
+// slice units. lowIn and highIn are false when the profile is still at or
+// above half its peak at the slab's first or last slice, so that side's
+// crossing, and the centre, are not known.
+func profileCentre(a []float64) (c float64, lowIn, highIn bool) {
+	lo, hi, lowIn, highIn := halfMaxRun(a)
+	return (lo + hi) / 2, lowIn, highIn
+}
+
+// halfMaxRun returns the half-maximum crossings of a profile that peaks
+// at 1, either side of its peak, in slice units; a crossing beyond the
+// slab is reported as the slab's edge with lowIn or highIn false.
+func halfMaxRun(a []float64) (lo, hi float64, lowIn, highIn bool) {
+	n := len(a)
+	p := 0
+	for i := range a {
+		if a[i] > a[p] {
+			p = i
+		}
+	}
+	// The middle of a run of equal peaks.
+	q := p
+	for q+1 < n && a[q+1] == a[p] {
+		q++
+	}
+	lo, hi = float64(p)-0.5, float64(q)+0.5
+	for i := p; i > 0; i-- {
+		if a[i-1] < 0.5 {
+			lo, lowIn = float64(i-1)+(0.5-a[i-1])/(a[i]-a[i-1]), true
+			break
+		}
+	}
+	for i := q; i < n-1; i++ {
+		if a[i+1] < 0.5 {
+			hi, highIn = float64(i)+(a[i]-0.5)/(a[i]-a[i+1]), true
+			break
+		}
+	}
+	if !lowIn {
+		lo = -0.5
+	}
+	if !highIn {
+		hi = float64(n) - 0.5
+	}
+	return lo, hi, lowIn, highIn
 }
 
 // mirrorCost returns, for every candidate centre k/2 (k in 0..2(n-1)), the
