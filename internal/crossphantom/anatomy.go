@@ -202,9 +202,9 @@ func newNeck(r *rand.Rand) *neck {
 	n.fatP = u(5, 16)
 	for s := range 2 {
 		a := u(0.92, 1.08) // slight left/right asymmetry
-		n.musU[s] = 17 * a
-		n.musV[s] = 23 * a
-		n.musC[s] = 19 * u(0.94, 1.06)
+		n.musC[s] = 20 * u(0.95, 1.05)
+		n.musU[s] = (n.musC[s] - 0.9) * a
+		n.musV[s] = 28 * a
 	}
 	n.musCV = n.canP + 20
 	for i := range lutN {
@@ -429,15 +429,22 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	// Canal: the dural sac (CSF around the cord) inside epidural fat.
 	back := n.canP - 0.35*au*au/n.canU
 	if au < n.canU && vc < back && !low {
-		b := n.bulgeAt(weff)
+		// The sac is an ellipse inside the bony canal, so its lateral
+		// recesses are shallow; posterior epidural fat fills the corners.
+		du := n.canU - 0.8
+		dc := (n.canP - 1.2 - n.canA) / 2
+		dv := (n.canP - 1.2 + n.canA) / 2
+		x, y := uc/du, (vc-dc)/dv
+		q := x*x + y*y
+		b := n.bulgeAt(weff) * max(1-x*x, 0)
 		front := -n.canA + b
 		if vc < front {
 			return tAnnulus // the bulging disc
 		}
-		if vc > back-1.5 && vc > 2 {
+		if q >= 1 {
 			return tEpidural
 		}
-		if au > n.canU-1.2 || vc < front+0.5 || vc > back-2.1 {
+		if q > 0.85 || vc < front+0.5 {
 			return tDura
 		}
 		// The cord, flattened where the sac's front comes within reach.
@@ -534,15 +541,22 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	} else if au < 1.2 && vc > base && vc < base+n.spL[6] {
 		return tLigament
 	}
-	// Paraspinal muscles, one mass each side, with a fat plane inside.
+	// Paraspinal muscles, one boxy mass each side reaching to the nuchal
+	// septum, with two curved intermuscular fat planes (from memory: the
+	// semispinalis, splenius and trapezius layers).
 	s := 0
 	if uc > 0 {
 		s = 1
 	}
 	x := (au - n.musC[s]) / n.musU[s]
 	y := (vc - n.musCV) / n.musV[s]
-	if q := x*x + y*y; q < 1 {
-		if q > 0.36 && q < 0.42 {
+	x2, y2 := x*x, y*y
+	if q := x2*x2 + y2*y2; q < 1 {
+		// Fat planes run along the neck between the muscle layers.
+		if d := vc - (n.musCV - 6 + 0.3*au); d > 0 && d < 1.2 {
+			return tFat
+		}
+		if d := vc - (n.musCV + 9 - 0.15*au); d > 0 && d < 1.2 {
 			return tFat
 		}
 		return tMuscle
@@ -662,7 +676,7 @@ func (n *neck) head(uc, vc, au, w float64) tissue {
 	// Cerebellar folia: thin CSF-filled sulci, concentric about the
 	// fourth ventricle.
 	r := math.Hypot(vc-(bsV+bsD+5), h-26)
-	if math.Sin(r*1.3+au*0.2) > 0.88 {
+	if math.Sin(r*0.9+1.5*math.Sin(0.2*au)+1.2*math.Sin(0.13*h)) > 0.94 {
 		return tCSF
 	}
 	return tBrain

@@ -243,7 +243,7 @@ func plan(cfg Config, index int) (*studyPlan, error) {
 	if r.Float64() < 0.15 {
 		col0 = vec{0, 0, 1}
 	}
-	q := rotZ(deg(u(-4, 4))).mul(rotY(deg(u(-3, 3)))).mul(rotX(deg(u(-3, 3))))
+	q := rotZ(deg(u(-4, 4))).mul(rotY(deg(u(-2, 2)))).mul(rotX(deg(u(-3, 3))))
 	s := &series{rows: rows, cols: cols, spacing: pix, thickness: thick, gap: gap}
 	s.row = q.apply(row0)
 	s.col = q.apply(col0)
