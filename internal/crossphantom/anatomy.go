@@ -102,7 +102,7 @@ type neck struct {
 	facetTan     float64     // facet joint slope in the sagittal plane
 	vaU, vaV     float64     // vertebral artery centre
 	vaR          float64
-	stenosis     int     // disc index (below vertebra i) that narrows the canal, -1 none
+	stenosis     int     // the vertebra whose upper disc narrows the canal, -1 none
 	bulge        float64 // its posterior reach into the canal, mm
 	neckU, neckV float64 // skin outline semi-axes
 	neckC        float64 // outline centre, AP
@@ -192,7 +192,7 @@ func newNeck(r *rand.Rand) *neck {
 	n.vaV = -n.canA - u(2, 5)
 	n.vaR = u(1.8, 2.6)
 	if r.Float64() < 0.5 {
-		n.stenosis = 1 + r.IntN(5) // C3-4 to C7-T1
+		n.stenosis = 1 + r.IntN(5) // the disc above vertebra stenosis: C2-C3 to C6-C7
 		n.bulge = u(2, 5.5)
 	}
 	n.neckU = u(52, 66)
