@@ -76,10 +76,14 @@ type neck struct {
 	rot    mat // columns: the neck's u, v, w axes in LPS
 	origin vec
 
-	// Per-w tables (step lutStep from lutW0): the cord axis's lateral
-	// offset (scoliosis-like curve), its AP offset (lordosis) and the AP
-	// slope, so vertebral endplates stay perpendicular to the column.
-	lat, lord, slope []float64
+	// hs is the per-height table, one entry every lutStep from lutW0;
+	// curve is the lateral curve's amplitude.
+	hs    []height
+	curve float64
+	// levels[at(weff)] is the vertebra whose body or lower disc holds
+	// weff; bulges[at(weff)] the stenotic disc's reach there.
+	levels []int8
+	bulges []float64
 
 	// Vertebrae C2..T2: body top and bottom along the column, body half
 	// width (lateral), AP depth, spinous process length and angle.
@@ -98,7 +102,7 @@ type neck struct {
 	facetTan     float64     // facet joint slope in the sagittal plane
 	vaU, vaV     float64     // vertebral artery centre
 	vaR          float64
-	stenosis     int     // disc index (below vertebra i) that narrows the canal, -1 none
+	stenosis     int     // the vertebra whose upper disc narrows the canal, -1 none
 	bulge        float64 // its posterior reach into the canal, mm
 	neckU, neckV float64 // skin outline semi-axes
 	neckC        float64 // outline centre, AP
@@ -111,6 +115,13 @@ type neck struct {
 	prevert      float64 // prevertebral soft tissue thickness
 	nuchalV0     float64 // nuchal ligament posterior border at the occiput
 }
+
+// height is what the neck's shape gives one height w: the cord axis's
+// lateral offset (the scoliosis-like curve) and AP offset (lordosis),
+// the AP slope (so endplates stay perpendicular to the column), and the
+// skin ellipse: inverse squared semi-axes, the smaller semi-axis m and
+// the squared level inside which no point is skin or subcutaneous fat.
+type height struct{ lat, lord, slope, invU2, invV2, invV, m, inner2 float64 }
 
 const (
 	lutW0   = -170.0
@@ -132,15 +143,14 @@ func newNeck(r *rand.Rand) *neck {
 	latA := u(0, 3.5)
 	latL := u(160, 320)
 	latP := u(0, 2*math.Pi)
-	n.lat = make([]float64, lutN)
-	n.lord = make([]float64, lutN)
-	n.slope = make([]float64, lutN)
+	n.hs = make([]height, lutN)
+	n.curve = latA
 	for i := range lutN {
 		w := lutW0 + float64(i)*lutStep
 		g := math.Exp(-(w - lordC) * (w - lordC) / (2 * lordH * lordH))
-		n.lord[i] = -lordD * g
-		n.slope[i] = -lordD * g * (-(w - lordC) / (lordH * lordH))
-		n.lat[i] = latA * math.Sin(2*math.Pi*w/latL+latP)
+		n.hs[i].lord = -lordD * g
+		n.hs[i].slope = -lordD * g * (-(w - lordC) / (lordH * lordH))
+		n.hs[i].lat = latA * math.Sin(2*math.Pi*w/latL+latP)
 	}
 
 	// Vertebral sizes, from memory of adult cervical anatomy: bodies about
@@ -182,7 +192,7 @@ func newNeck(r *rand.Rand) *neck {
 	n.vaV = -n.canA - u(2, 5)
 	n.vaR = u(1.8, 2.6)
 	if r.Float64() < 0.5 {
-		n.stenosis = 1 + r.IntN(5) // C3-4 to C7-T1
+		n.stenosis = 1 + r.IntN(5) // the disc above vertebra stenosis: C2-C3 to C6-C7
 		n.bulge = u(2, 5.5)
 	}
 	n.neckU = u(52, 66)
@@ -192,11 +202,38 @@ func newNeck(r *rand.Rand) *neck {
 	n.fatP = u(5, 16)
 	for s := range 2 {
 		a := u(0.92, 1.08) // slight left/right asymmetry
-		n.musU[s] = 17 * a
-		n.musV[s] = 23 * a
-		n.musC[s] = 19 * u(0.94, 1.06)
+		n.musC[s] = 20 * u(0.95, 1.05)
+		n.musU[s] = (n.musC[s] - 0.9) * a
+		n.musV[s] = 28 * a
 	}
 	n.musCV = n.canP + 20
+	for i := range lutN {
+		w := lutW0 + float64(i)*lutStep
+		nu, nv := n.neckU, n.neckV
+		if w > n.wFM {
+			f := 1 + min(w-n.wFM, 60)/120
+			nu *= f
+			nv *= f
+		}
+		if w < -70 {
+			nu *= 1 + min(-70-w, 60)/40
+		}
+		m := min(nu, nv)
+		inner := 1 - (n.fatP+2)/m
+		h := &n.hs[i]
+		h.invU2, h.invV2, h.invV, h.m, h.inner2 = 1/(nu*nu), 1/(nv*nv), 1/nv, m, inner*inner
+	}
+	n.levels = make([]int8, lutN)
+	n.bulges = make([]float64, lutN)
+	for i := range lutN {
+		w := lutW0 + float64(i)*lutStep
+		n.levels[i] = int8(n.levelSearch(w))
+		if n.stenosis >= 0 {
+			c := (n.bot[n.stenosis-1] + n.top[n.stenosis]) / 2
+			d := (w - c) / 4
+			n.bulges[i] = n.bulge * math.Exp(-d*d)
+		}
+	}
 	n.airU = u(9, 14)
 	n.airV = u(5, 9)
 	n.prevert = u(3, 6)
@@ -219,7 +256,7 @@ func at(w float64) int {
 // cordCentre is the cord axis at height w in the neck frame.
 func (n *neck) cordCentre(w float64) vec {
 	k := at(w)
-	return vec{n.lat[k], n.lord[k], w}
+	return vec{n.hs[k].lat, n.hs[k].lord, w}
 }
 
 // bone returns cortex within 1 mm of a bone's surface and marrow inside;
@@ -235,42 +272,38 @@ func bone(depth float64) tissue {
 // run from the outside in and from the most to the least specific, so
 // most points leave early.
 func (n *neck) tissueAt(u, v, w float64) tissue {
-	k := at(w)
-	uc := u - n.lat[k]
-	vc := v - n.lord[k]
+	ol := &n.hs[at(w)]
+	uc := u - ol.lat
+	vc := v - ol.lord
 	au := math.Abs(uc)
 
 	// Skin outline: an ellipse that widens over the skull and the
-	// shoulders; soft tissue follows the column's lordosis only partly.
-	vo := v - 0.4*n.lord[k] - n.neckC
-	nu, nv := n.neckU, n.neckV
-	if w > n.wFM {
-		f := 1 + math.Min(w-n.wFM, 60)/120
-		nu *= f
-		nv *= f
-	}
-	if w < -70 {
-		nu *= 1 + math.Min(-70-w, 60)/40
-	}
-	e := (uc*uc)/(nu*nu) + (vo*vo)/(nv*nv)
+	// shoulders (per-w table); soft tissue follows the column's lordosis
+	// only partly.
+	vo := v - 0.4*ol.lord - n.neckC
+	e := uc*uc*ol.invU2 + vo*vo*ol.invV2
 	if e >= 1 {
 		return tAir
 	}
-	depth := (1 - math.Sqrt(e)) * math.Min(nu, nv)
-	if depth < 2 {
-		return tSkin
-	}
-	fat := n.fatA
-	if vo > 0 {
-		fat += (n.fatP - n.fatA) * vo / nv
-	}
-	if depth < fat {
-		return tFat
+	// The square root is needed only near the skin: deeper than the
+	// thickest fat layer, e is below inner2.
+	if e > ol.inner2 {
+		depth := (1 - math.Sqrt(e)) * ol.m
+		if depth < 2 {
+			return tSkin
+		}
+		fat := n.fatA
+		if vo > 0 {
+			fat += (n.fatP - n.fatA) * vo * ol.invV
+		}
+		if depth < fat {
+			return tFat
+		}
 	}
 	if w > n.wFM {
 		return n.head(uc, vc, au, w)
 	}
-	weff := w + n.slope[k]*vc
+	weff := w + ol.slope*vc
 	if weff > n.c2top {
 		if t, ok := n.atlas(uc, vc, au, weff); ok {
 			return t
@@ -287,7 +320,10 @@ func (n *neck) tissueAt(u, v, w float64) tissue {
 }
 
 // level is the vertebra whose body or the disc below it holds weff.
-func (n *neck) level(weff float64) int {
+func (n *neck) level(weff float64) int { return int(n.levels[at(weff)]) }
+
+// levelSearch computes level's table.
+func (n *neck) levelSearch(weff float64) int {
 	for i := range nVert {
 		if i+1 < nVert && weff >= n.top[i+1] {
 			return i
@@ -338,7 +374,7 @@ func (n *neck) column(uc, vc, au, weff float64) tissue {
 	if au > n.bw[i]+0.8 {
 		// Transverse process around the artery, at body heights only.
 		if inBody && au < 27 && vc > n.vaV-5 && vc < n.vaV+4 && weff < n.top[i]-2 && weff > n.bot[i]+2 {
-			d := math.Min(math.Min(27-au, vc-(n.vaV-5)), n.vaV+4-vc)
+			d := min(min(27-au, vc-(n.vaV-5)), n.vaV+4-vc)
 			return bone(d)
 		}
 		return tMuscle
@@ -355,7 +391,7 @@ func (n *neck) column(uc, vc, au, weff float64) tissue {
 		}
 		// Depth of a rounded block by its superellipse level, close enough
 		// for a 1 mm cortex.
-		d := (1 - math.Pow(f, 0.25)) * math.Min(math.Min(n.bw[i], n.bd[i]/2), h)
+		d := (1 - math.Pow(f, 0.25)) * min(min(n.bw[i], n.bd[i]/2), h)
 		return bone(d)
 	}
 	if i == nVert-1 {
@@ -381,16 +417,8 @@ func (n *neck) column(uc, vc, au, weff float64) tissue {
 }
 
 // bulgeAt is how far the stenotic disc pushes the canal's front wall
-// back at weff.
-func (n *neck) bulgeAt(weff float64) float64 {
-	if n.stenosis < 0 {
-		return 0
-	}
-	i := n.stenosis
-	c := (n.bot[i-1] + n.top[i]) / 2
-	d := (weff - c) / 4
-	return n.bulge * math.Exp(-d*d)
-}
+// back at weff: a Gaussian bump 4 mm wide about the disc's middle.
+func (n *neck) bulgeAt(weff float64) float64 { return n.bulges[at(weff)] }
 
 // posterior classifies points behind the bodies' back wall: the canal,
 // pedicles, lateral masses and facets, laminae, spinous processes,
@@ -401,15 +429,22 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	// Canal: the dural sac (CSF around the cord) inside epidural fat.
 	back := n.canP - 0.35*au*au/n.canU
 	if au < n.canU && vc < back && !low {
-		b := n.bulgeAt(weff)
+		// The sac is an ellipse inside the bony canal, so its lateral
+		// recesses are shallow; posterior epidural fat fills the corners.
+		du := n.canU - 0.8
+		dc := (n.canP - 1.2 - n.canA) / 2
+		dv := (n.canP - 1.2 + n.canA) / 2
+		x, y := uc/du, (vc-dc)/dv
+		q := x*x + y*y
+		b := n.bulgeAt(weff) * max(1-x*x, 0)
 		front := -n.canA + b
 		if vc < front {
 			return tAnnulus // the bulging disc
 		}
-		if vc > back-1.5 && vc > 2 {
+		if q >= 1 {
 			return tEpidural
 		}
-		if au > n.canU-1.2 || vc < front+0.5 || vc > back-2.1 {
+		if q > 0.85 || vc < front+0.5 {
 			return tDura
 		}
 		// The cord, flattened where the sac's front comes within reach.
@@ -434,7 +469,7 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	inBody := weff <= n.top[i] && weff >= n.bot[i]
 	// Pedicles: the canal's side walls in the upper part of each body.
 	if au >= n.pedIn && au < n.pedIn+4.5 && vc < 1 && inBody && weff > n.bot[i]+0.4*(n.top[i]-n.bot[i]) {
-		return bone(math.Min(au-n.pedIn, n.pedIn+4.5-au))
+		return bone(min(au-n.pedIn, n.pedIn+4.5-au))
 	}
 	// Lateral masses: a column of bone cut by the oblique facet joints.
 	if au >= n.pedIn && au < n.lmOut && vc >= -1 && vc < 11 && !low {
@@ -451,8 +486,8 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 		case g < 1.7:
 			return tCortex
 		}
-		d := math.Min(math.Min(au-n.pedIn, n.lmOut-au), math.Min(vc+1, 11-vc))
-		return bone(math.Min(d, g-0.6))
+		d := min(min(au-n.pedIn, n.lmOut-au), min(vc+1, 11-vc))
+		return bone(min(d, g-0.6))
 	}
 	if au >= n.pedIn && vc < 0 {
 		if low {
@@ -464,7 +499,7 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	if au < n.pedIn+2 && vc >= back && vc < back+3 && !low {
 		mid := (n.top[i]+n.bot[i])/2 - 3
 		if weff > mid-6 && weff < mid+5 {
-			return bone(math.Min(vc-back, back+3-vc) + 0.6)
+			return bone(min(vc-back, back+3-vc) + 0.6)
 		}
 		return tLigament
 	}
@@ -485,7 +520,7 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 				continue
 			}
 			if d := math.Abs(weff - c); d < n.spH[j] {
-				return bone(math.Min(n.spH[j]-d, math.Min(base+n.spL[j]-vc, half-au)) + 0.3)
+				return bone(min(n.spH[j]-d, min(base+n.spL[j]-vc, half-au)) + 0.3)
 			}
 		}
 	}
@@ -494,7 +529,7 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	c7tip := base + n.spL[5]
 	c7w := (n.top[5]+n.bot[5])/2 - 2 - n.spL[5]*n.spTan[5]
 	if w > c7w {
-		t := math.Min((w-c7w)/(n.wFM+15-c7w), 1)
+		t := min((w-c7w)/(n.wFM+15-c7w), 1)
 		border := c7tip + t*(n.nuchalV0-c7tip)
 		half := 0.9
 		if vc > border-5 {
@@ -506,15 +541,22 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	} else if au < 1.2 && vc > base && vc < base+n.spL[6] {
 		return tLigament
 	}
-	// Paraspinal muscles, one mass each side, with a fat plane inside.
+	// Paraspinal muscles, one boxy mass each side reaching to the nuchal
+	// septum, with two curved intermuscular fat planes (from memory: the
+	// semispinalis, splenius and trapezius layers).
 	s := 0
 	if uc > 0 {
 		s = 1
 	}
 	x := (au - n.musC[s]) / n.musU[s]
 	y := (vc - n.musCV) / n.musV[s]
-	if q := x*x + y*y; q < 1 {
-		if q > 0.36 && q < 0.42 {
+	x2, y2 := x*x, y*y
+	if q := x2*x2 + y2*y2; q < 1 {
+		// Fat planes run along the neck between the muscle layers.
+		if d := vc - (n.musCV - 6 + 0.3*au); d > 0 && d < 1.2 {
+			return tFat
+		}
+		if d := vc - (n.musCV + 9 - 0.15*au); d > 0 && d < 1.2 {
 			return tFat
 		}
 		return tMuscle
@@ -551,7 +593,7 @@ func (n *neck) atlas(uc, vc, au, weff float64) (tissue, bool) {
 		if h < 2.5 {
 			return tFacet, true
 		}
-		return bone(math.Min(math.Min(au-10, 22-au), math.Min(h-2.5, 15-h))), true
+		return bone(min(min(au-10, 22-au), min(h-2.5, 15-h))), true
 	}
 	// Posterior arch with its midline tubercle.
 	cv := n.canP + 4.5
@@ -583,13 +625,13 @@ func (n *neck) head(uc, vc, au, w float64) tissue {
 	h := w - n.wFM
 	// Brainstem continues the cord, widening into the medulla and pons.
 	bsV := -1.0 - 0.1*h
-	bsU := n.cordU * (1.3 + math.Min(h, 40)/40)
-	bsD := n.cordV * (1.4 + math.Min(h, 40)/40)
+	bsU := n.cordU * (1.3 + min(h, 40)/40)
+	bsD := n.cordV * (1.4 + min(h, 40)/40)
 	// Clivus: a bar of bone rising anteriorly from the basion.
 	vd := -n.canA - n.bd[0]/2 + 1
 	cl := vd - 2 - h*0.55
 	if au < 13 && vc < cl+5 && vc > cl-5 && h < 45 {
-		return bone(math.Min(5-math.Abs(vc-cl), 13-au))
+		return bone(min(5-math.Abs(vc-cl), 13-au))
 	}
 	if vc < cl-5 {
 		du := uc / (n.airU * 1.2)
@@ -634,7 +676,7 @@ func (n *neck) head(uc, vc, au, w float64) tissue {
 	// Cerebellar folia: thin CSF-filled sulci, concentric about the
 	// fourth ventricle.
 	r := math.Hypot(vc-(bsV+bsD+5), h-26)
-	if math.Sin(r*1.3+au*0.2) > 0.88 {
+	if math.Sin(r*0.9+1.5*math.Sin(0.2*au)+1.2*math.Sin(0.13*h)) > 0.94 {
 		return tCSF
 	}
 	return tBrain

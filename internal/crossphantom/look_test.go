@@ -37,6 +37,34 @@ func TestLook(t *testing.T) {
 			}
 		}
 	}
+	// The middle file of each distractor series, as written: the last
+	// rows×columns×2 bytes of a file are its Pixel Data.
+	cfg := DefaultConfig(3)
+	cfg.DistractorRate = 1
+	files, tr, err := Study(cfg, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	bySeries := map[string][]File{}
+	for _, f := range files {
+		s := filepath.Dir(f.Name)
+		bySeries[s] = append(bySeries[s], f)
+	}
+	for s, fs := range bySeries {
+		rows, cols := tr.Rows, tr.Columns
+		if len(fs) == 10 {
+			rows, cols = 192, 192 // the axial series
+		}
+		d := fs[len(fs)/2].Data
+		px := make([]uint16, rows*cols)
+		for i := range px {
+			o := len(d) - 2*len(px) + 2*i
+			px[i] = uint16(d[o]) | uint16(d[o+1])<<8
+		}
+		if err := writePNG(filepath.Join(dir, "series_"+s+".png"), px, rows, cols); err != nil {
+			t.Fatal(err)
+		}
+	}
 }
 
 // sliceAt renders one slice whose plane is off mm from the truth plane

@@ -176,7 +176,7 @@ func Study(cfg Config, index int) ([]File, Truth, error) {
 	if err != nil {
 		return nil, Truth{}, err
 	}
-	return pl.emit(cfg)
+	return pl.emit(cfg, true)
 }
 
 // studyPlan is a study drawn but not yet rendered.
@@ -243,7 +243,7 @@ func plan(cfg Config, index int) (*studyPlan, error) {
 	if r.Float64() < 0.15 {
 		col0 = vec{0, 0, 1}
 	}
-	q := rotZ(deg(u(-4, 4))).mul(rotY(deg(u(-3, 3)))).mul(rotX(deg(u(-3, 3))))
+	q := rotZ(deg(u(-4, 4))).mul(rotY(deg(u(-2, 2)))).mul(rotX(deg(u(-3, 3))))
 	s := &series{rows: rows, cols: cols, spacing: pix, thickness: thick, gap: gap}
 	s.row = q.apply(row0)
 	s.col = q.apply(col0)
@@ -290,7 +290,7 @@ func plan(cfg Config, index int) (*studyPlan, error) {
 		SpacingMM:           sp, ThicknessMM: thick, PixelSpacingMM: pix,
 		Rows: rows, Columns: cols,
 		Plane: plane, SlabNormal: s.normal,
-		YawDeg: yaw, RollDeg: roll, CurveMM: maxAbs(nk.lat),
+		YawDeg: yaw, RollDeg: roll, CurveMM: nk.curve,
 	}
 	if nk.stenosis >= 0 {
 		t.StenosisLevel = discNames[nk.stenosis-1]
@@ -299,8 +299,9 @@ func plan(cfg Config, index int) (*studyPlan, error) {
 	return &studyPlan{nk: nk, s: s, p: p, h: h, lay: lay, c: c, t: t, r: r, noise: rng(cfg.Seed, index, 2)}, nil
 }
 
-// emit renders and encodes a planned study.
-func (pl *studyPlan) emit(cfg Config) ([]File, Truth, error) {
+// emit renders and encodes a planned study; without render it only
+// completes the truth, which tests of the layout use.
+func (pl *studyPlan) emit(cfg Config, render bool) ([]File, Truth, error) {
 	nk, s, p, h, lay, c, t, r, noise := pl.nk, pl.s, pl.p, pl.h, pl.lay, pl.c, pl.t, pl.r, pl.noise
 	rows, cols, sp := s.rows, s.cols, s.thickness+s.gap
 	var files []File
@@ -321,8 +322,11 @@ func (pl *studyPlan) emit(cfg Config) ([]File, Truth, error) {
 			inst = lay.acquired - i
 		}
 		uid := newUID(r)
-		s.render(nk, i, noise, px)
-		files = append(files, File{Name: name(p.number), Data: mrInstance(&h, p, s, i, inst, uid, px)})
+		fn := name(p.number) // drawn either way, so UIDs do not depend on render
+		if render {
+			s.render(nk, i, noise, px)
+			files = append(files, File{Name: fn, Data: mrInstance(&h, p, s, i, inst, uid, px)})
+		}
 		d := s.positions[i].sub(c).dot(s.normal)
 		t.SOPInstanceUIDs = append(t.SOPInstanceUIDs, uid)
 		t.InstanceNumbers = append(t.InstanceNumbers, inst)
@@ -335,7 +339,7 @@ func (pl *studyPlan) emit(cfg Config) ([]File, Truth, error) {
 		t.MidlineSOPInstanceUID = t.SOPInstanceUIDs[t.MidlineIndex]
 	}
 
-	if r.Float64() < cfg.DistractorRate {
+	if r.Float64() < cfg.DistractorRate && render {
 		extra, uids := distractors(nk, s, &h, p, r, noise, name)
 		files = append(files, extra...)
 		t.Distractors = uids
@@ -445,6 +449,11 @@ func layout(sc Scenario, sp float64, r *rand.Rand) slab {
 		return slab{acquired: n, sent: n - d, mid: float64(k) + frac}
 	}
 	// Lose the midline: drop past it, leaving at least 3 slices.
+	if lowEnd && before+1 > n-3 {
+		lowEnd = false
+	} else if !lowEnd && after+1 > n-3 {
+		lowEnd = true
+	}
 	if lowEnd {
 		d := pick(max(before+1, minDrop), n-3)
 		return slab{acquired: n, first: d, sent: n - d, mid: float64(k) + frac}
@@ -529,15 +538,6 @@ func distractors(nk *neck, t2 *series, h *mrHeader, t2p *protocol, r *rand.Rand,
 		uids = append(uids, uid)
 	}
 	return files, uids
-}
-
-// maxAbs is the largest magnitude in v.
-func maxAbs(v []float64) float64 {
-	m := 0.0
-	for _, x := range v {
-		m = math.Max(m, math.Abs(x))
-	}
-	return m
 }
 
 // Write generates studies 0 to n-1 of cfg's family under dir, one folder
