@@ -30,6 +30,12 @@ const (
 	// (common practice for "clearly darker"; tuned on package phantom only).
 	canalFlank = 0.75
 	canalDip   = 0.25
+	// canalCordFloor is the least cord to CSF brightness ratio: on T2 the
+	// cord is intermediate grey, brighter than muscle, whose T2 is about
+	// half the cord's (from memory: muscle 35 to 45 ms, cord 70 to 80 ms
+	// at 1.5 T), so a dark band between two bright ones at under a third
+	// of their brightness is muscle between fat planes, not cord.
+	canalCordFloor = 0.33
 	// canalGapMM is the longest stretch a column may be broken for and
 	// still count as one column: a compressed level effaces the CSF over a
 	// disc height or two (a cervical disc is 5 to 6 mm high, from memory).
@@ -163,7 +169,7 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 			}
 			lo := min(l, r)
 			sep := float64(ri-li) * canalGridMM
-			if lo < flank || p[x] > lo*(1-canalDip) || sep < canalMinSepMM || sep > canalMaxSepMM {
+			if lo < flank || p[x] > lo*(1-canalDip) || p[x] < lo*canalCordFloor || sep < canalMinSepMM || sep > canalMaxSepMM {
 				continue
 			}
 			rows[y] = append(rows[y], triplet{mid: float64(x) * canalGridMM, sep: sep, flank: float64(lo) / bright, ratio: float64(p[x] / lo)})

@@ -50,6 +50,11 @@ const (
 	// canalEvidence is the evidence of a canal column profile that is
 	// whole inside the slab, when symmetry is weaker.
 	canalEvidence = 0.8
+	// ambiguousMargin is how close, in slices, an estimate led by the
+	// canal profile may come to the boundary between two slices before
+	// the pick is flagged: the half-maximum centre is good to about a
+	// third of a slice (measured on both phantom families).
+	ambiguousMargin = 0.2
 )
 
 // Midline quality flags.
@@ -222,6 +227,16 @@ func PickSlices(s *Slices) error {
 	s.Confidence = round4(mass * evidence)
 	s.Flags = nil
 	uncertain := s.Confidence < MinConfidence
+	whole := lowIn && highIn
+	switch {
+	case symLead && whole && math.Abs(centre-float64(s.Center)) >= 1:
+		// Symmetry and the canal profile point at different slices.
+		uncertain = true
+	case !symLead && 0.5-math.Abs(est-math.Round(est)) < ambiguousMargin:
+		// The canal profile alone puts the plane near the boundary of
+		// two slices: either could be the nearer.
+		uncertain = true
+	}
 	if s.Center == 0 || s.Center == n-1 || !lowIn || !highIn {
 		// The canal column runs to the slab's edge: the plane may lie at
 		// or beyond it.
