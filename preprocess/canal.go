@@ -49,6 +49,12 @@ const (
 	// (common practice), and chance bright-dark-bright runs in muscle and
 	// fat are a few millimetres long.
 	CanalMinColumnMM = 40.0
+	// CanalMinColumnFraction is the shortest column that counts as the
+	// canal as a fraction of the field of view's superior-inferior
+	// height: a cervical sagittal series is planned on the cervical
+	// spine, so the cord runs through most of the image (common
+	// practice).
+	CanalMinColumnFraction = 0.45
 )
 
 // canalCue is what the canal-column measurement found in one slice.
@@ -58,6 +64,8 @@ type canalCue struct {
 	// distance between its CSF maxima.
 	ColumnMM float64
 	DepthMM  float64
+	// HeightMM is the slice's superior-inferior extent.
+	HeightMM float64
 	// APmm is the median anterior-posterior position of the column.
 	APmm float64
 	// Flank is the median brightness of the column's darker CSF maximum
@@ -128,7 +136,7 @@ type triplet struct {
 // of h x w millimetre pixels.
 func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 	if h < 3 || w < 3 || bright <= 0 {
-		return canalCue{}
+		return canalCue{HeightMM: float64(h) * canalGridMM}
 	}
 	// Smooth over three rows: the column runs superior-inferior, noise
 	// does not.
@@ -208,7 +216,7 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 		}
 	}
 	if bestN == 0 {
-		return canalCue{}
+		return canalCue{HeightMM: float64(h) * canalGridMM}
 	}
 	var seps, mids, flanks, ratios []float64
 	for y, i := bestY, bestI; y >= 0; {
@@ -219,7 +227,7 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 		ratios = append(ratios, nd.triplet.ratio)
 		y, i = nd.prevY, nd.prevI
 	}
-	return canalCue{ColumnMM: float64(bestN) * canalGridMM, DepthMM: median(seps), APmm: median(mids), Flank: median(flanks), Ratio: median(ratios)}
+	return canalCue{HeightMM: float64(h) * canalGridMM, ColumnMM: float64(bestN) * canalGridMM, DepthMM: median(seps), APmm: median(mids), Flank: median(flanks), Ratio: median(ratios)}
 }
 
 func median(v []float64) float64 {

@@ -115,14 +115,15 @@ func PickSlices(s *Slices) error {
 	n := len(s.Instances)
 	cost, pairs := mirrorCost(s.Images)
 	canal := canalCues(s)
-	maxCol := 0.0
+	maxCol, heightMM := 0.0, 0.0
 	for _, c := range canal {
 		maxCol = max(maxCol, c.ColumnMM)
+		heightMM = max(heightMM, c.HeightMM)
 	}
-	if maxCol < CanalMinColumnMM {
+	if need := max(CanalMinColumnMM, CanalMinColumnFraction*heightMM); maxCol < need {
 		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
-			"no slice of the %d shows the CSF-cord column of the spinal canal over %.0f mm or more (longest %.0f mm): the slab does not hold the midsagittal plane",
-			n, CanalMinColumnMM, maxCol)
+			"no slice of the %d shows the CSF-cord column of the spinal canal over %.0f mm or more (longest %.0f mm of a %.0f mm field of view): the slab does not hold the midsagittal plane",
+			n, need, maxCol, heightMM)
 	}
 	anat := make([]float64, n)
 	for i, c := range canal {
