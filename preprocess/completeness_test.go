@@ -30,7 +30,7 @@ func withoutFiles(st *midsag.Study, names ...string) *midsag.Series {
 }
 
 // TestCompletenessOnRealSeries cuts slices out of a real 20-slice series
-// (shared/realdata, Toshiba DTI_SAG_30d: Instance Numbers 1 to 20 in
+// (testdata/realdata, Toshiba DTI_SAG_30d: Instance Numbers 1 to 20 in
 // position order, 3 mm apart, as dcmdump shows) and reads a real Philips
 // series numbered 1, 4, 7 ... 25 (one dynamic of nine slices).
 func TestCompletenessOnRealSeries(t *testing.T) {
@@ -189,7 +189,7 @@ func TestSortSlicesRefusesBadPlane(t *testing.T) {
 	}
 }
 
-// TestDedupe reads a real file (shared/realdata Toshiba slice 1) twice
+// TestDedupe reads a real file (testdata/realdata Toshiba slice 1) twice
 // under two names, which is a resend and dropped, and once more after
 // DCMTK's dcmodify changed its Echo Time, which keeps the SOP Instance UID
 // and is refused as duplicate_instance naming the UID.

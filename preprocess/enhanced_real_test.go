@@ -13,22 +13,13 @@ import (
 	"github.com/midsag/midsag/internal/testtool"
 )
 
-// realdata returns the path of a file under the project's shared real-data
-// folder (../shared/realdata beside the checkout; MIDSAG_REALDATA
-// overrides it), or skips t when it is absent, failing instead under
-// MIDSAG_REQUIRE_TOOLS=1.
+// realdata returns the path of a file under the real DICOM samples
+// (testdata/realdata, see internal/testtool.RealData).
 func realdata(t *testing.T, rel string) string {
 	t.Helper()
-	root := os.Getenv("MIDSAG_REALDATA")
-	if root == "" {
-		root = filepath.Join("..", "..", "shared", "realdata")
-	}
-	p := filepath.Join(root, rel)
+	p := filepath.Join(testtool.RealData(t), rel)
 	if _, err := os.Stat(p); err != nil {
-		if testtool.Required() {
-			t.Fatalf("real data file %s is missing and MIDSAG_REQUIRE_TOOLS=1", p)
-		}
-		t.Skipf("real data file %s is missing", p)
+		t.Fatalf("real data file %s is missing: %v", p, err)
 	}
 	return p
 }

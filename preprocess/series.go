@@ -61,7 +61,7 @@ var (
 	// (0018,9005): Siemens names echo-planar sequences "*epfid2d1_64",
 	// "*ep_b1000", "ep2d_diff", Toshiba "SEEPI2D", GE "epi2" (from memory;
 	// the Siemens and Toshiba names are in the real files under
-	// shared/realdata).
+	// testdata/realdata).
 	seqEPI = regexp.MustCompile(`(?i)^\*?ep|epi|ep2d`)
 )
 

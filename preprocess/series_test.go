@@ -236,25 +236,11 @@ func TestT2NeverRefusedForTROnly(t *testing.T) {
 	}
 }
 
-// seriesRealdata returns the shared real-file folder (shared/realdata
-// beside the checkout, or MIDSAG_REALDATA), skipping the test when it is
-// absent unless MIDSAG_REQUIRE_TOOLS=1.
+// seriesRealdata returns the real DICOM samples folder (testdata/realdata,
+// see internal/testtool.RealData).
 func seriesRealdata(t *testing.T) string {
 	t.Helper()
-	if d := os.Getenv("MIDSAG_REALDATA"); d != "" {
-		return d
-	}
-	dir, _ := filepath.Abs(".")
-	for ; dir != filepath.Dir(dir); dir = filepath.Dir(dir) {
-		if st, err := os.Stat(filepath.Join(dir, "shared", "realdata", "FILES.tsv")); err == nil && !st.IsDir() {
-			return filepath.Join(dir, "shared", "realdata")
-		}
-	}
-	if testtool.Required() {
-		t.Fatal("shared/realdata not found (set MIDSAG_REALDATA)")
-	}
-	t.Skip("shared/realdata not found (set MIDSAG_REALDATA)")
-	return ""
+	return testtool.RealData(t)
 }
 
 // readRealSeries reads files (globs under root) and groups them.
@@ -288,7 +274,7 @@ func readRealSeries(t *testing.T, root string, globs ...string) *midsag.Study {
 }
 
 // TestSeriesReasonsOnRealFiles scores real vendor series nobody on the
-// project wrote (shared/realdata, FILES.tsv names their origins) and
+// project wrote (testdata/realdata, FILES.tsv names their origins) and
 // pydicom's test files; each is refused or accepted for the reason its
 // header gives (values checked with pydicom's dcmread and DCMTK's dcmdump).
 func TestSeriesReasonsOnRealFiles(t *testing.T) {
