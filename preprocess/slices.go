@@ -162,7 +162,12 @@ func PickSlices(s *Slices) error {
 	}
 	symLead := false
 	for k := range cost {
-		if c := float64(k) / 2; pairs[k] >= 2 && c >= runLo && c <= runHi && 1-cost[k] >= StrongSymmetry {
+		c := float64(k) / 2
+		if c < runLo || c > runHi {
+			continue
+		}
+		// One pair, next to the slab's edge, must be stronger.
+		if (pairs[k] >= 2 && 1-cost[k] >= StrongSymmetry) || (pairs[k] == 1 && 1-cost[k] >= StrongSymmetry/onePairEvidence) {
 			symLead = true
 		}
 	}
