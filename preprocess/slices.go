@@ -50,11 +50,17 @@ const (
 	// canalEvidence is the evidence of a canal column profile that is
 	// whole inside the slab, when symmetry is weaker.
 	canalEvidence = 0.8
+	// CanalMinRunMM is the least width, across slices, of the canal
+	// column's half-maximum run for it to count as evidence: the column
+	// shows on every slice through the cord, which is 12 to 14 mm wide
+	// (from memory), so a run narrower than this is a chance structure or
+	// the edge of the canal.
+	CanalMinRunMM = 5.0
 	// ambiguousMargin is how close, in slices, an estimate led by the
 	// canal profile may come to the boundary between two slices before
 	// the pick is flagged: the half-maximum centre is good to about a
 	// third of a slice (measured on both phantom families).
-	ambiguousMargin = 0.2
+	ambiguousMargin = 0.25
 )
 
 // Midline quality flags.
@@ -137,6 +143,10 @@ func PickSlices(s *Slices) error {
 		centre = float64(argmax(anat))
 	}
 	mid := (s.Positions[0] + s.Positions[n-1]) / 2
+	spacing := s.SpacingMM
+	if spacing <= 0 {
+		spacing = 1
+	}
 	pos := func(c float64) float64 {
 		i := int(math.Floor(c))
 		if i >= n-1 {
@@ -224,7 +234,7 @@ func PickSlices(s *Slices) error {
 			evidence *= onePairEvidence
 		}
 	}
-	if lowIn && highIn && float64(s.Center) >= runLo && float64(s.Center) <= runHi {
+	if lowIn && highIn && float64(s.Center) >= runLo && float64(s.Center) <= runHi && (runHi-runLo)*spacing >= CanalMinRunMM {
 		// The canal column's profile is whole inside the slab and the
 		// pick lies within its half-maximum run.
 		evidence = max(evidence, canalEvidence)
@@ -235,7 +245,7 @@ func PickSlices(s *Slices) error {
 	uncertain := s.Confidence < MinConfidence
 	whole := lowIn && highIn
 	switch {
-	case symLead && whole && math.Abs(centre-float64(s.Center)) >= 1:
+	case symLead && whole && math.Abs(centre-float64(s.Center)) >= 0.5:
 		// Symmetry and the canal profile point at different slices.
 		uncertain = true
 	case !symLead && 0.5-math.Abs(est-math.Round(est)) < ambiguousMargin:
