@@ -156,7 +156,9 @@ func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
 func parseDataset(body []byte, ts string) (ds dicom.Dataset, err error) {
 	defer func() {
 		if r := recover(); r != nil {
-			err = midsag.Rejectf(midsag.ReasonNotDICOM, "the DICOM parser failed on this file: %v", r)
+			// The panic's own text is Go runtime detail, not a reason a
+			// person can act on, so the refusal does not repeat it.
+			err = midsag.Rejectf(midsag.ReasonNotDICOM, "the data set is malformed: the DICOM parser could not read it")
 		}
 	}()
 	head := metaHeader(ts)
