@@ -251,3 +251,56 @@ func TestDedupe(t *testing.T) {
 		t.Errorf("two frames of one instance: %d kept, %v", len(out), err)
 	}
 }
+
+// TestNoRuntimeTextOnRealFiles reads every file of shared/realdata and of
+// pydicom's test files, and picks a series and sorts its slices where the
+// read succeeds: every refusal is a *midsag.Error whose message carries no
+// Go runtime text (issue 10 found a nil-pointer panic's text in one).
+func TestNoRuntimeTextOnRealFiles(t *testing.T) {
+	real := seriesRealdata(t)
+	pydicomDir := filepath.Dir(testtool.PydicomFile(t, "MR_small.dcm"))
+	var paths []string
+	for _, root := range []string{real, pydicomDir} {
+		filepath.Walk(root, func(p string, info os.FileInfo, err error) error {
+			if err == nil && info.Mode().IsRegular() {
+				paths = append(paths, p)
+			}
+			return nil
+		})
+	}
+	if len(paths) < 100 {
+		t.Fatalf("only %d files found", len(paths))
+	}
+	bad := []string{"runtime error", "nil pointer", "panic", "goroutine", "invalid memory address", "index out of range"}
+	check := func(p string, err error) {
+		if err == nil {
+			return
+		}
+		if midsag.RefusalOf(err) == nil {
+			t.Errorf("%s: %v is not a refusal", p, err)
+		}
+		for _, b := range bad {
+			if strings.Contains(err.Error(), b) {
+				t.Errorf("%s: message %q carries Go runtime text", p, err)
+			}
+		}
+	}
+	pre := New(Options{Lenient: true})
+	for _, p := range paths {
+		data, err := os.ReadFile(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		in, err := pre.Read(p, bytes.NewReader(data))
+		check(p, err)
+		if err != nil {
+			continue
+		}
+		in.Source = p
+		st := Group([]*midsag.Instance{in})[0]
+		_, _, _, err = PickSeries(st, 1)
+		check(p, err)
+		_, err = SortSlices(st.Series[0])
+		check(p, err)
+	}
+}

@@ -11,6 +11,7 @@ import (
 	"path/filepath"
 	"runtime"
 	"sort"
+	"strings"
 	"sync"
 	"time"
 
@@ -126,7 +127,25 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		}
 		return fmt.Errorf("batch: %w", err)
 	}
+	if sum != nil && sum.Discovery != nil && sum.Discovery.Studies == 0 {
+		return reportRejection(midsag.Rejectf(midsag.ReasonNoInput, "no DICOM study found under %s: %s",
+			root, describeRefused(sum.Discovery)), false, stderr)
+	}
 	return nil
+}
+
+// describeRefused says what discovery saw when it found no study, so an
+// empty or mistyped root is told apart from a folder of unusable files.
+func describeRefused(d *cohort.Discovery) string {
+	if d.Files == 0 {
+		return "no files (hidden files and folders are skipped)"
+	}
+	reasons := make([]string, 0, len(d.Refused))
+	for r, n := range d.Refused {
+		reasons = append(reasons, fmt.Sprintf("%d %s", n, r))
+	}
+	sort.Strings(reasons)
+	return fmt.Sprintf("%d file(s), none with a Study Instance UID (refused: %s)", d.Files, strings.Join(reasons, ", "))
 }
 
 // writeStudyMaps writes res's result.json, heatmap.png and heatmap.dcm
