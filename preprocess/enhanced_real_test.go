@@ -262,3 +262,30 @@ func TestRealEnhancedMRFourFiles(t *testing.T) {
 		t.Fatalf("%d series, first with %d slices; want 1 series of 24 frames", len(st.Series), len(st.Series[0].Instances))
 	}
 }
+
+// TestOtherMultiFrameRefused: a multi-frame instance of a SOP Class other
+// than Enhanced MR and Legacy Converted Enhanced MR is not read as slices,
+// and the candidate says so. The file is pydicom's MR_small.dcm (MR Image
+// Storage) with Number of Frames (0028,0008) set to 2 by DCMTK's dcmodify.
+func TestOtherMultiFrameRefused(t *testing.T) {
+	src := testtool.PydicomFile(t, "MR_small.dcm")
+	mf := filepath.Join(t.TempDir(), "mf.dcm")
+	testtool.Run(t, "dcmconv", src, mf)
+	testtool.Run(t, "dcmodify", "-nb", "-i", "(0028,0008)=2", mf)
+	in, err := readFile(t, New(Options{}), mf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := Group([]*midsag.Instance{in})[0]
+	if len(st.Series) != 1 || len(st.Series[0].Instances) != 1 {
+		t.Fatalf("a multi-frame MR Image Storage instance was expanded: %d series", len(st.Series))
+	}
+	_, cands, _, err := PickSeries(st, 3)
+	if r, _ := midsag.ReasonOf(err); r != midsag.ReasonNoSagittalT2 {
+		t.Fatalf("pick: %v", err)
+	}
+	want := "multi-frame instances (2 frames) of SOP Class " + midsag.MRImageStorage + " are not read as slices"
+	if !strings.Contains(strings.Join(cands[0].Reasons, "; "), want) {
+		t.Errorf("reasons %v lack %q", cands[0].Reasons, want)
+	}
+}
