@@ -64,7 +64,7 @@ func frameGroups(a attrs, inst *midsag.Instance) error {
 		return nil
 	}
 	if len(per) != inst.NumberOfFrames {
-		// PS3.3 C.7.6.16.1.2: one item per frame, in frame order.
+		// One item per frame, in frame order (PS3.3 C.7.6.16).
 		return midsag.Rejectf(midsag.ReasonInconsistentGeometry,
 			"Per-frame Functional Groups Sequence has %d items for %d frames (PS3.3 C.7.6.16)", len(per), inst.NumberOfFrames)
 	}
