@@ -1,6 +1,7 @@
 package preprocess
 
 import (
+	"bytes"
 	"encoding/json"
 	"math"
 	"os"
@@ -11,6 +12,7 @@ import (
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
+	"github.com/midsag/midsag/phantom"
 )
 
 // realdata returns the path of a file under the project's shared real-data
@@ -287,5 +289,43 @@ func TestOtherMultiFrameRefused(t *testing.T) {
 	want := "multi-frame instances (2 frames) of SOP Class " + midsag.MRImageStorage + " are not read as slices"
 	if !strings.Contains(strings.Join(cands[0].Reasons, "; "), want) {
 		t.Errorf("reasons %v lack %q", cands[0].Reasons, want)
+	}
+}
+
+// TestLegacyConvertedKeepsSequenceAttributes: a Legacy Converted Enhanced
+// MR instance made by phantom.ToEnhancedMR carries the source images'
+// Scanning Sequence, Sequence Variant, Sequence Name and MR Acquisition
+// Type in Unassigned Shared Converted Attributes (PS3.3 C.7.6.16.2.25);
+// midsag reads them as the single-frame source's.
+func TestLegacyConvertedKeepsSequenceAttributes(t *testing.T) {
+	files, truth, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 3, Syntaxes: []string{midsag.ExplicitVRLittleEndian}, NoDecoys: true}, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var target []phantom.File
+	var src *midsag.Instance
+	for _, f := range files {
+		in, err := New(Options{}).Read(f.Name, bytes.NewReader(f.Data))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if in.SeriesInstanceUID == truth.TargetSeriesUID {
+			target, src = append(target, f), in
+		}
+	}
+	enh, err := phantom.ToEnhancedMR([][]phantom.File{target}, phantom.EnhancedOptions{SOPClassUID: midsag.LegacyConvertedEnhancedMRImageStorage})
+	if err != nil {
+		t.Fatal(err)
+	}
+	in, err := New(Options{}).Read(enh.Name, bytes.NewReader(enh.Data))
+	if err != nil {
+		t.Fatal(err)
+	}
+	fr := in.Frames()[0]
+	if strings.Join(fr.ScanningSequence, `\`) != strings.Join(src.ScanningSequence, `\`) ||
+		strings.Join(fr.SequenceVariant, `\`) != strings.Join(src.SequenceVariant, `\`) ||
+		fr.SequenceName != src.SequenceName || fr.MRAcquisitionType != src.MRAcquisitionType ||
+		fr.RepetitionTime != src.RepetitionTime || fr.EchoTime != src.EchoTime || fr.FlipAngle != src.FlipAngle {
+		t.Errorf("legacy converted frame %+v\nsource %+v", fr, src)
 	}
 }
