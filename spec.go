@@ -37,8 +37,8 @@ type SliceScore struct {
 	SOPInstanceUID string `json:"sop_instance_uid"`
 	// FrameNumber is the slice's 1-based frame in a multi-frame instance
 	// (PS3.3 C.7.6.6), so that SOP Instance UID and frame name the slice;
-	// 0 (omitted) for a single-frame instance.
-	FrameNumber    int     `json:"frame_number,omitempty"`
+	// 0 for a single-frame instance.
+	FrameNumber    int     `json:"frame_number"`
 	InstanceNumber int     `json:"instance_number"`
 	PositionMM     float64 `json:"position_mm"`
 	MidlineScore   float64 `json:"midline_score"`

@@ -17,4 +17,6 @@
 //
 // or phantom.Generate to write a whole cohort with labels.csv and
 // truth.json. Output is deterministic for a given Seed and study index.
+// ToEnhancedMR converts a study's series into one Enhanced MR or Legacy
+// Converted Enhanced MR multi-frame instance, for testing the frame reader.
 package phantom

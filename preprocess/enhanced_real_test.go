@@ -1,6 +1,7 @@
 package preprocess
 
 import (
+	"bytes"
 	"encoding/json"
 	"math"
 	"os"
@@ -11,6 +12,7 @@ import (
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
+	"github.com/midsag/midsag/phantom"
 )
 
 // realdata returns the path of a file under the real DICOM samples
@@ -251,5 +253,70 @@ func TestRealEnhancedMRFourFiles(t *testing.T) {
 	st := Group(insts)[0]
 	if len(st.Series) != 1 || len(st.Series[0].Instances) != 24 {
 		t.Fatalf("%d series, first with %d slices; want 1 series of 24 frames", len(st.Series), len(st.Series[0].Instances))
+	}
+}
+
+// TestOtherMultiFrameRefused: a multi-frame instance of a SOP Class other
+// than Enhanced MR and Legacy Converted Enhanced MR is not read as slices,
+// and the candidate says so. The file is pydicom's MR_small.dcm (MR Image
+// Storage) with Number of Frames (0028,0008) set to 2 by DCMTK's dcmodify.
+func TestOtherMultiFrameRefused(t *testing.T) {
+	src := testtool.PydicomFile(t, "MR_small.dcm")
+	mf := filepath.Join(t.TempDir(), "mf.dcm")
+	testtool.Run(t, "dcmconv", src, mf)
+	testtool.Run(t, "dcmodify", "-nb", "-i", "(0028,0008)=2", mf)
+	in, err := readFile(t, New(Options{}), mf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := Group([]*midsag.Instance{in})[0]
+	if len(st.Series) != 1 || len(st.Series[0].Instances) != 1 {
+		t.Fatalf("a multi-frame MR Image Storage instance was expanded: %d series", len(st.Series))
+	}
+	_, cands, _, err := PickSeries(st, 3)
+	if r, _ := midsag.ReasonOf(err); r != midsag.ReasonNoSagittalT2 {
+		t.Fatalf("pick: %v", err)
+	}
+	want := "multi-frame instances (2 frames) of SOP Class " + midsag.MRImageStorage + " are not read as slices"
+	if !strings.Contains(strings.Join(cands[0].Reasons, "; "), want) {
+		t.Errorf("reasons %v lack %q", cands[0].Reasons, want)
+	}
+}
+
+// TestLegacyConvertedKeepsSequenceAttributes: a Legacy Converted Enhanced
+// MR instance made by phantom.ToEnhancedMR carries the source images'
+// Scanning Sequence, Sequence Variant, Sequence Name and MR Acquisition
+// Type in Unassigned Shared Converted Attributes (PS3.3 C.7.6.16.2.25);
+// midsag reads them as the single-frame source's.
+func TestLegacyConvertedKeepsSequenceAttributes(t *testing.T) {
+	files, truth, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 3, Syntaxes: []string{midsag.ExplicitVRLittleEndian}, NoDecoys: true}, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var target []phantom.File
+	var src *midsag.Instance
+	for _, f := range files {
+		in, err := New(Options{}).Read(f.Name, bytes.NewReader(f.Data))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if in.SeriesInstanceUID == truth.TargetSeriesUID {
+			target, src = append(target, f), in
+		}
+	}
+	enh, err := phantom.ToEnhancedMR([][]phantom.File{target}, phantom.EnhancedOptions{SOPClassUID: midsag.LegacyConvertedEnhancedMRImageStorage})
+	if err != nil {
+		t.Fatal(err)
+	}
+	in, err := New(Options{}).Read(enh.Name, bytes.NewReader(enh.Data))
+	if err != nil {
+		t.Fatal(err)
+	}
+	fr := in.Frames()[0]
+	if strings.Join(fr.ScanningSequence, `\`) != strings.Join(src.ScanningSequence, `\`) ||
+		strings.Join(fr.SequenceVariant, `\`) != strings.Join(src.SequenceVariant, `\`) ||
+		fr.SequenceName != src.SequenceName || fr.MRAcquisitionType != src.MRAcquisitionType ||
+		fr.RepetitionTime != src.RepetitionTime || fr.EchoTime != src.EchoTime || fr.FlipAngle != src.FlipAngle {
+		t.Errorf("legacy converted frame %+v\nsource %+v", fr, src)
 	}
 }

@@ -64,7 +64,7 @@ func frameGroups(a attrs, inst *midsag.Instance) error {
 		return nil
 	}
 	if len(per) != inst.NumberOfFrames {
-		// PS3.3 C.7.6.16.1.2: one item per frame, in frame order.
+		// One item per frame, in frame order (PS3.3 C.7.6.16).
 		return midsag.Rejectf(midsag.ReasonInconsistentGeometry,
 			"Per-frame Functional Groups Sequence has %d items for %d frames (PS3.3 C.7.6.16)", len(per), inst.NumberOfFrames)
 	}
@@ -88,6 +88,24 @@ func frameGroups(a attrs, inst *midsag.Instance) error {
 	var g geom
 	if hasShared {
 		g = applyGroup(shared, &base, g)
+		// A Legacy Converted image keeps the source images' sequence
+		// attributes, the same for every frame, in Unassigned Shared
+		// Converted Attributes (PS3.3 C.7.6.16.2.25); the top level wins
+		// where it has them.
+		if u, ok := shared.item(tag.UnassignedSharedConvertedAttributesSequence); ok {
+			if len(inst.ScanningSequence) == 0 {
+				inst.ScanningSequence = u.strs(tag.ScanningSequence)
+			}
+			if len(inst.SequenceVariant) == 0 {
+				inst.SequenceVariant = u.strs(tag.SequenceVariant)
+			}
+			if inst.SequenceName == "" {
+				inst.SequenceName = u.str(tag.SequenceName)
+			}
+			if inst.MRAcquisitionType == "" {
+				inst.MRAcquisitionType = strings.ToUpper(u.str(tag.MRAcquisitionType))
+			}
+		}
 	}
 	inst.PerFrame = make([]midsag.FrameAttrs, len(per))
 	for i, it := range per {

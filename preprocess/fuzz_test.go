@@ -8,7 +8,8 @@ import (
 	"github.com/midsag/midsag/internal/testtool"
 )
 
-// FuzzRead feeds arbitrary bytes to Read and Decode: every outcome must be
+// FuzzRead feeds arbitrary bytes to Read and Decode (each frame of a
+// multi-frame instance): every outcome must be
 // an instance or an error, never a panic. Seeds are the first 2 KB of
 // pydicom's test files when present (whole files stall Go's fuzzing
 // engine here at 0 executions per second; their headers are what matters).
@@ -26,6 +27,9 @@ func FuzzRead(f *testing.F) {
 		if err != nil {
 			return
 		}
-		_, _ = Decode(inst)
+		// Every frame of a multi-frame instance, as Group expands it.
+		for _, fr := range inst.Frames() {
+			_, _ = Decode(fr)
+		}
 	})
 }

@@ -57,6 +57,15 @@ func (s *scanner) dataset(off, end, depth int) (int, error) {
 		hdr := 8
 		if s.explicit && group != 0xFFFE {
 			vr = string(s.data[off+4 : off+6])
+			if vr == "OV" || vr == "SV" || vr == "UV" {
+				// The DICOM parser (v1.1.0) reads these 64-bit VRs with a
+				// 2-byte length, but they have the 4-byte one (PS3.5 Table
+				// 7.1-1), so it would lose its place, for example at the
+				// Extended Offset Table (7FE0,0001). Relabelled OB, same
+				// header layout, the value is read as bytes. The data set
+				// is midsag's own copy of the stream.
+				s.data[off+4], s.data[off+5] = 'O', 'B'
+			}
 			if longVR[vr] {
 				if off+12 > limit {
 					return 0, midsag.Rejectf(midsag.ReasonTruncated, "element header at byte %d runs past the end", off)

@@ -658,10 +658,14 @@ type Result struct {
 	Notice                string             `protobuf:"bytes,16,opt,name=notice,proto3" json:"notice,omitempty"`
 	TimingsMs             map[string]float64 `protobuf:"bytes,17,rep,name=timings_ms,json=timingsMs,proto3" json:"timings_ms,omitempty" protobuf_key:"bytes,1,opt,name=key" protobuf_val:"fixed64,2,opt,name=value"`
 	Explanation           *Explanation       `protobuf:"bytes,18,opt,name=explanation,proto3" json:"explanation,omitempty"`
-	// midline_confidence is the confidence of the midline pick, 0 to 1: the
-	// combined weight of the centre slice and its neighbours times the
-	// symmetry evidence; below 0.6 the result carries midline_uncertain.
-	MidlineConfidence float64 `protobuf:"fixed64,19,opt,name=midline_confidence,json=midlineConfidence,proto3" json:"midline_confidence,omitempty"`
+	// center_frame_number is the centre slice's 1-based frame when it is a
+	// frame of a multi-frame (Enhanced MR) instance; 0 otherwise.
+	CenterFrameNumber int32 `protobuf:"varint,19,opt,name=center_frame_number,json=centerFrameNumber,proto3" json:"center_frame_number,omitempty"`
+	// midline_confidence is the confidence of the midline pick, 0 to 1:
+	// the combined weight of the centre slice and its neighbours times the
+	// evidence of symmetry or of the canal column; below 0.6 the result
+	// carries midline_uncertain.
+	MidlineConfidence float64 `protobuf:"fixed64,20,opt,name=midline_confidence,json=midlineConfidence,proto3" json:"midline_confidence,omitempty"`
 	// version counts result versions of the same study from 1.
 	Version int32 `protobuf:"varint,30,opt,name=version,proto3" json:"version,omitempty"`
 	// status is pending, running, done, rejected or failed.
@@ -831,6 +835,13 @@ func (x *Result) GetExplanation() *Explanation {
 	return nil
 }
 
+func (x *Result) GetCenterFrameNumber() int32 {
+	if x != nil {
+		return x.CenterFrameNumber
+	}
+	return 0
+}
+
 func (x *Result) GetMidlineConfidence() float64 {
 	if x != nil {
 		return x.MidlineConfidence
@@ -883,7 +894,10 @@ type SliceScore struct {
 	// parts break the midline score into its terms.
 	Parts map[string]float64 `protobuf:"bytes,5,rep,name=parts,proto3" json:"parts,omitempty" protobuf_key:"bytes,1,opt,name=key" protobuf_val:"fixed64,2,opt,name=value"`
 	// in_stack is true for the slices fed to the model.
-	InStack       bool `protobuf:"varint,6,opt,name=in_stack,json=inStack,proto3" json:"in_stack,omitempty"`
+	InStack bool `protobuf:"varint,6,opt,name=in_stack,json=inStack,proto3" json:"in_stack,omitempty"`
+	// frame_number is the slice's 1-based frame in a multi-frame instance;
+	// 0 for a single-frame instance.
+	FrameNumber   int32 `protobuf:"varint,7,opt,name=frame_number,json=frameNumber,proto3" json:"frame_number,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -958,6 +972,13 @@ func (x *SliceScore) GetInStack() bool {
 		return x.InStack
 	}
 	return false
+}
+
+func (x *SliceScore) GetFrameNumber() int32 {
+	if x != nil {
+		return x.FrameNumber
+	}
+	return 0
 }
 
 // SeriesCandidate is one series of the study with its score and reasons.
@@ -1349,7 +1370,7 @@ const file_midsag_v1_midsag_proto_rawDesc = "" +
 	"\adefault\x18\x04 \x01(\bR\adefault\x12\x16\n" +
 	"\x06labels\x18\x05 \x03(\tR\x06labels\x12!\n" +
 	"\fintended_use\x18\x06 \x01(\tR\vintendedUse\x12\x16\n" +
-	"\x06source\x18\a \x01(\tR\x06source\"\x88\b\n" +
+	"\x06source\x18\a \x01(\tR\x06source\"\xb8\b\n" +
 	"\x06Result\x12\x1b\n" +
 	"\tresult_id\x18\x01 \x01(\tR\bresultId\x12\x1d\n" +
 	"\n" +
@@ -1372,8 +1393,9 @@ const file_midsag_v1_midsag_proto_rawDesc = "" +
 	"\x06notice\x18\x10 \x01(\tR\x06notice\x12?\n" +
 	"\n" +
 	"timings_ms\x18\x11 \x03(\v2 .midsag.v1.Result.TimingsMsEntryR\ttimingsMs\x128\n" +
-	"\vexplanation\x18\x12 \x01(\v2\x16.midsag.v1.ExplanationR\vexplanation\x12-\n" +
-	"\x12midline_confidence\x18\x13 \x01(\x01R\x11midlineConfidence\x12\x18\n" +
+	"\vexplanation\x18\x12 \x01(\v2\x16.midsag.v1.ExplanationR\vexplanation\x12.\n" +
+	"\x13center_frame_number\x18\x13 \x01(\x05R\x11centerFrameNumber\x12-\n" +
+	"\x12midline_confidence\x18\x14 \x01(\x01R\x11midlineConfidence\x12\x18\n" +
 	"\aversion\x18\x1e \x01(\x05R\aversion\x12\x16\n" +
 	"\x06status\x18\x1f \x01(\tR\x06status\x12\x16\n" +
 	"\x06reason\x18  \x01(\tR\x06reason\x12\x18\n" +
@@ -1382,7 +1404,7 @@ const file_midsag_v1_midsag_proto_rawDesc = "" +
 	"finishedAt\x1a<\n" +
 	"\x0eTimingsMsEntry\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x14\n" +
-	"\x05value\x18\x02 \x01(\x01R\x05value:\x028\x01\"\xb2\x02\n" +
+	"\x05value\x18\x02 \x01(\x01R\x05value:\x028\x01\"\xd5\x02\n" +
 	"\n" +
 	"SliceScore\x12(\n" +
 	"\x10sop_instance_uid\x18\x01 \x01(\tR\x0esopInstanceUid\x12'\n" +
@@ -1391,7 +1413,8 @@ const file_midsag_v1_midsag_proto_rawDesc = "" +
 	"positionMm\x12#\n" +
 	"\rmidline_score\x18\x04 \x01(\x01R\fmidlineScore\x126\n" +
 	"\x05parts\x18\x05 \x03(\v2 .midsag.v1.SliceScore.PartsEntryR\x05parts\x12\x19\n" +
-	"\bin_stack\x18\x06 \x01(\bR\ainStack\x1a8\n" +
+	"\bin_stack\x18\x06 \x01(\bR\ainStack\x12!\n" +
+	"\fframe_number\x18\a \x01(\x05R\vframeNumber\x1a8\n" +
 	"\n" +
 	"PartsEntry\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x14\n" +
