@@ -37,10 +37,10 @@ type Result struct {
 	CenterSOPInstanceUID string    `json:"center_sop_instance_uid"`
 	// CenterFrameNumber is the centre slice's 1-based frame when it is a
 	// frame of a multi-frame instance (PS3.3 C.7.6.6); 0 otherwise.
-	CenterFrameNumber int               `json:"center_frame_number"`
-	Slices            []SliceScore      `json:"slices"`
+	CenterFrameNumber int          `json:"center_frame_number"`
+	Slices            []SliceScore `json:"slices"`
 	// MidlineConfidence is the confidence of the midline pick, 0 to 1.
-	MidlineConfidence float64 `json:"midline_confidence"`
+	MidlineConfidence float64           `json:"midline_confidence"`
 	SeriesCandidates  []SeriesCandidate `json:"series_candidates"`
 	Model             ModelInfo         `json:"model"`
 	RawOutput         float64           `json:"raw_output"`
