@@ -243,8 +243,18 @@ func frameBytes(inst *midsag.Instance) ([]byte, error) {
 		return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "frame %d asked of an image with %d frames", inst.Frame+1, frames)
 	}
 	if len(inst.Fragments) == 0 {
-		size := inst.Rows * inst.Columns * inst.SamplesPerPixel * (inst.BitsAllocated / 8)
+		samples := inst.Rows * inst.Columns * inst.SamplesPerPixel
+		size := samples * (inst.BitsAllocated / 8)
 		start, end := inst.Frame*size, (inst.Frame+1)*size
+		if inst.BitsAllocated == 1 {
+			// Bits Allocated 1 packs eight samples to a byte and frames
+			// follow each other without padding (PS3.5 8.1.1), so a
+			// frame starts on a byte only when the bits before it do.
+			if inst.Frame*samples%8 != 0 {
+				return nil, midsag.Rejectf(midsag.ReasonBadPixelData, "frame %d of a 1-bit image does not start on a byte boundary", inst.Frame+1)
+			}
+			start, end = inst.Frame*samples/8, ((inst.Frame+1)*samples+7)/8
+		}
 		if end > len(inst.PixelData) {
 			return nil, midsag.Rejectf(midsag.ReasonTruncated, "pixel data has %d bytes; frame %d of %d needs bytes %d to %d",
 				len(inst.PixelData), inst.Frame+1, frames, start, end)

@@ -32,8 +32,9 @@ type batchCohort struct {
 
 // makeBatchCohort writes n studies: n-2 phantom studies (one cut in half,
 // one zipped, one with a stray non-DICOM file), one with only its axial
-// and localizer series, and one whose transfer syntax is rewritten to JPEG 2000, which
-// midsag does not decode; plus a non-DICOM file at the top.
+// and localizer series, and one whose transfer syntax is rewritten to JPEG
+// 2000 Part 2 multi-component, which midsag does not decode; plus a
+// non-DICOM file at the top.
 func makeBatchCohort(t *testing.T, n int) batchCohort {
 	t.Helper()
 	root := t.TempDir()
@@ -103,8 +104,9 @@ func makeBatchCohort(t *testing.T, n int) batchCohort {
 	}
 	c.want[dtr[0].StudyInstanceUID] = "rejected/no_sagittal_t2_series"
 
-	// JPEG 2000 Lossless (PS3.6 Annex A, 1.2.840.10008.1.2.4.90) in place
-	// of JPEG Lossless SV1: same length, so only the UID's bytes change.
+	// JPEG 2000 Part 2 Multi-component Image Compression (Lossless Only)
+	// (PS3.6 Annex A, 1.2.840.10008.1.2.4.92) in place of JPEG Lossless
+	// SV1: same length, so only the UID's bytes change.
 	jdir := t.TempDir()
 	jtr, err := phantom.Generate(jdir, phantom.Options{Studies: 1, Seed: 13, NoDecoys: true, Syntaxes: []string{midsag.JPEGLosslessSV1}})
 	if err != nil {
@@ -116,7 +118,7 @@ func makeBatchCohort(t *testing.T, n int) batchCohort {
 		if err != nil {
 			t.Fatal(err)
 		}
-		b = bytes.Replace(b, []byte("1.2.840.10008.1.2.4.70"), []byte("1.2.840.10008.1.2.4.90"), 1)
+		b = bytes.Replace(b, []byte("1.2.840.10008.1.2.4.70"), []byte("1.2.840.10008.1.2.4.92"), 1)
 		writeFile(t, filepath.Join(root, "site-b", "j2k", filepath.Base(f)), b)
 	}
 	c.want[jtr[0].StudyInstanceUID] = "rejected/unsupported_transfer_syntax"
