@@ -267,7 +267,10 @@ func packagePhantomCases(t *testing.T, n int) []evalCase {
 // from the phantom's slab geometry (PS3.3 C.7.6.2.1.1), not the picker.
 func TestMidlineEvaluationPackagePhantom(t *testing.T) {
 	n := 40
-	if testing.Short() {
+	switch {
+	case os.Getenv("MIDSAG_LONG") != "":
+		n = 100
+	case testing.Short():
 		n = 20
 	}
 	outs := runEval(packagePhantomCases(t, n))
