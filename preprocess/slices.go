@@ -20,25 +20,27 @@ const (
 	// symmetry term compares; averaging down suppresses noise.
 	thumbSize = 96
 	// Cue weights of the combined objective and the temperature that
-	// turns it into per-slice weights (tuned on package phantom only;
-	// validated on internal/crossphantom, which was written apart).
-	weightSymmetry = 0.5
-	weightCanal    = 0.5
-	// StrongSymmetry is the symmetry, on two or more pairs inside the
-	// canal, from which symmetry leads the pick instead of the canal
-	// column's profile.
-	StrongSymmetry = 0.5
-	weightPrior    = 0.1
+	// turns it into per-slice weights. They were set on package phantom,
+	// then changed after a first measurement on internal/crossphantom
+	// (README, "Midline"), so neither family is a clean held-out set.
 	// weightCentre and centreSigmaSlices weigh the centre of the canal
-	// column profile: the midpoint of the slices where the column reaches
-	// half its longest length, either side of the longest.
+	// column's profile: the midpoint of its half-maximum crossings either
+	// side of its peak.
+	weightSymmetry    = 0.5
+	weightCanal       = 0.5
+	weightPrior       = 0.1
 	weightCentre      = 2.0
 	centreSigmaSlices = 0.6
 	scoreTemp         = 0.1
+	// StrongSymmetry is the symmetry, on two or more pairs inside the
+	// canal column's half-maximum run, from which symmetry leads the pick
+	// instead of the canal column's profile.
+	StrongSymmetry = 0.5
 	// MinConfidence is the least confidence of a pick without the flag
 	// midline_uncertain. Confidence is the combined weight of the picked
-	// slice and its two neighbours times the symmetry evidence, which is
-	// full at a symmetry of fullSymmetry or more: on package phantom the
+	// slice and its two neighbours times the evidence: symmetry, full at
+	// fullSymmetry or more, or canalEvidence for a whole canal profile.
+	// On package phantom the
 	// true midline slices score 0.41 to 0.98 with three pairs, and the
 	// best candidates of slabs that miss the midline 0.31 or less.
 	MinConfidence = 0.6
@@ -105,8 +107,12 @@ type Slices struct {
 //   - prior: a weak pull, in millimetres, towards the slab's geometric
 //     centre. The slab is never assumed to be centred on the patient.
 //
-// When no slice shows the canal column, the plane is not in the slab and
-// PickSlices refuses with midline_not_in_slab.
+// The centre of the canal column's profile across the slices leads, unless
+// symmetry inside it is strong; symmetry counts only where the canal is.
+// The pick carries a confidence and the flags midline_uncertain and
+// midline_at_slab_edge when the evidence is weak, disagrees or runs to the
+// slab's edge. When no slice shows the canal column, the plane is not in
+// the slab and PickSlices refuses with midline_not_in_slab.
 func PickSlices(s *Slices) error {
 	if len(s.Images) != len(s.Instances) {
 		s.Images = make([]*midsag.Image, len(s.Instances))
