@@ -58,6 +58,13 @@ const (
 	// (from memory), so a run narrower than this is a chance structure or
 	// the edge of the canal.
 	CanalMinRunMM = 5.0
+	// CanalHalfRunMM is half the usual width, across slices, of the canal
+	// column's half-maximum run: the cord's transverse diameter, 10 to 13
+	// mm in adults (from memory); on internal/crossphantom whole runs
+	// measured 9 to 13.5 mm. It places the plane when the run is cut by
+	// the slab's edge, and a plane so placed more than a slice beyond the
+	// edge slice is refused as midline_not_in_slab.
+	CanalHalfRunMM = 5.25
 	// ambiguousMargin is how close, in slices, an estimate led by the
 	// canal profile may come to the boundary between two slices before
 	// the pick is flagged: the half-maximum centre is good to about a
@@ -143,15 +150,21 @@ func PickSlices(s *Slices) error {
 	}
 	runLo, runHi, lowIn, highIn := halfMaxRun(anat)
 	centre := (runLo + runHi) / 2
-	if !lowIn || !highIn {
-		// One crossing lies beyond the slab, so the profile's centre is
-		// not known: its peak stands in.
-		centre = float64(argmax(anat))
-	}
 	mid := (s.Positions[0] + s.Positions[n-1]) / 2
 	spacing := s.SpacingMM
 	if spacing <= 0 {
 		spacing = 1
+	}
+	halfRun := CanalHalfRunMM / spacing
+	switch {
+	case lowIn && !highIn:
+		// One crossing lies beyond the slab: the centre is half the
+		// canal's usual run from the crossing inside it.
+		centre = runLo + halfRun
+	case highIn && !lowIn:
+		centre = runHi - halfRun
+	case !lowIn && !highIn:
+		centre = float64(argmax(anat))
 	}
 	pos := func(c float64) float64 {
 		i := int(math.Floor(c))
@@ -186,6 +199,11 @@ func PickSlices(s *Slices) error {
 		if (pairs[k] >= 2 && 1-cost[k] >= StrongSymmetry) || (pairs[k] == 1 && 1-cost[k] >= StrongSymmetry/onePairEvidence) {
 			symLead = true
 		}
+	}
+	if !symLead && (centre < -1 || centre > float64(n)) {
+		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
+			"the canal column runs to the slab's edge and its profile puts the midsagittal plane about %.0f mm beyond the edge slice: the slab does not hold the midline",
+			math.Abs(min(centre, 0)+max(centre-float64(n-1), 0))*spacing)
 	}
 	wSym, wCentre := weightSymmetry, weightCentre
 	if symLead {
