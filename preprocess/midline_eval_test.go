@@ -336,7 +336,7 @@ func crossPhantomCases(t *testing.T, n int) []evalCase {
 // independently written family; nothing of the picker was tuned on it.
 //
 // Measured with n = 200 (MIDSAG_LONG=1): exact 87.9%, within one slice
-// 97.9%, 2 of 140 wrong picks unflagged, and of 60 slabs that miss the
+// 97.9%, no wrong pick of 140 unflagged, and of 60 slabs that miss the
 // midline 96.7% refused, 1.7% flagged, 1 unflagged. Before the picker
 // was changed with this family in view (tuned on package phantom only)
 // it scored exact 59.3%, within one 82.9%, and 9 of 60 unflagged.
@@ -350,5 +350,5 @@ func TestMidlineEvaluationCrossPhantom(t *testing.T) {
 	}
 	outs := runEval(crossPhantomCases(t, n))
 	tl := reportEval(t, "crossphantom", outs)
-	checkGoals(t, "crossphantom", tl, goals{exact: 82, near: 95, missingUnflagged: 2, wrongUnflagged: 3})
+	checkGoals(t, "crossphantom", tl, goals{exact: 82, near: 95, missingUnflagged: 2, wrongUnflagged: 1})
 }

@@ -65,11 +65,14 @@ const (
 	// the slab's edge, and a plane so placed more than a slice beyond the
 	// edge slice is refused as midline_not_in_slab.
 	CanalHalfRunMM = 5.25
-	// ambiguousMargin is how close, in slices, an estimate led by the
-	// canal profile may come to the boundary between two slices before
-	// the pick is flagged: the half-maximum centre is good to about a
-	// third of a slice (measured on both phantom families).
-	ambiguousMargin = 0.25
+	// ambiguousMargin and ambiguousMarginMM say how close an estimate led
+	// by the canal profile may come to the boundary between two slices
+	// before the pick is flagged, in slices and in millimetres, whichever
+	// is wider: the half-maximum centre is good to about a third of a
+	// slice on thick slices and to a few tenths of a millimetre on thin
+	// ones (measured on both phantom families).
+	ambiguousMargin   = 0.25
+	ambiguousMarginMM = 0.4
 )
 
 // Midline quality flags.
@@ -272,7 +275,7 @@ func PickSlices(s *Slices) error {
 	case symLead && whole && math.Abs(centre-float64(s.Center)) >= 0.5:
 		// Symmetry and the canal profile point at different slices.
 		uncertain = true
-	case !symLead && 0.5-math.Abs(est-math.Round(est)) < ambiguousMargin:
+	case !symLead && 0.5-math.Abs(est-math.Round(est)) < max(ambiguousMargin, ambiguousMarginMM/spacing):
 		// The canal profile alone puts the plane near the boundary of
 		// two slices: either could be the nearer.
 		uncertain = true
