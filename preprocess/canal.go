@@ -66,12 +66,6 @@ type canalCue struct {
 	DepthMM  float64
 	// HeightMM is the slice's superior-inferior extent.
 	HeightMM float64
-	// APmm is the median anterior-posterior position of the column.
-	APmm float64
-	// Flank is the median brightness of the column's darker CSF maximum
-	// relative to the series' bright reference; Ratio the median cord to
-	// CSF brightness ratio.
-	Flank, Ratio float64
 }
 
 // resampleGrid turns a canonical image (rows superior to inferior, columns
@@ -128,8 +122,7 @@ func brightReference(grids [][]float32) float64 {
 
 // triplet is one bright-dark-bright crossing of a row.
 type triplet struct {
-	mid, sep     float64
-	flank, ratio float64 // darker flank / bright reference; dip / darker flank
+	mid, sep float64
 }
 
 // measureCanal finds the longest continuous CSF-cord-CSF column in a grid
@@ -180,17 +173,14 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 			if lo < flank || p[x] > lo*(1-canalDip) || p[x] < lo*canalCordFloor || sep < canalMinSepMM || sep > canalMaxSepMM {
 				continue
 			}
-			rows[y] = append(rows[y], triplet{mid: float64(x) * canalGridMM, sep: sep, flank: float64(lo) / bright, ratio: float64(p[x] / lo)})
+			rows[y] = append(rows[y], triplet{mid: float64(x) * canalGridMM, sep: sep})
 		}
 	}
 	// Longest chain: rows with a crossing, each within the drift of a
 	// crossing at most canalGapMM above it.
 	type node struct {
-		count    int
-		prevY    int
-		prevI    int
-		triplet  triplet
-		hasChain bool
+		count, prevY, prevI int
+		triplet             triplet
 	}
 	gap := int(canalGapMM / canalGridMM)
 	chains := make([][]node, h)
@@ -218,16 +208,13 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 	if bestN == 0 {
 		return canalCue{HeightMM: float64(h) * canalGridMM}
 	}
-	var seps, mids, flanks, ratios []float64
+	var seps []float64
 	for y, i := bestY, bestI; y >= 0; {
 		nd := chains[y][i]
 		seps = append(seps, nd.triplet.sep)
-		mids = append(mids, nd.triplet.mid)
-		flanks = append(flanks, nd.triplet.flank)
-		ratios = append(ratios, nd.triplet.ratio)
 		y, i = nd.prevY, nd.prevI
 	}
-	return canalCue{HeightMM: float64(h) * canalGridMM, ColumnMM: float64(bestN) * canalGridMM, DepthMM: median(seps), APmm: median(mids), Flank: median(flanks), Ratio: median(ratios)}
+	return canalCue{HeightMM: float64(h) * canalGridMM, ColumnMM: float64(bestN) * canalGridMM, DepthMM: median(seps)}
 }
 
 func median(v []float64) float64 {

@@ -55,7 +55,7 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 		return nil, err
 	}
 	lap("stack")
-	idx, _ := StackIndices(sl.Center, len(sl.Instances), spec)
+	idx, clamped := StackIndices(sl.Center, len(sl.Instances), spec)
 	for _, i := range idx {
 		sl.Scores[i].InStack = true
 	}
@@ -71,7 +71,7 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 			}
 		}
 	}
-	if _, clamped := StackIndices(sl.Center, len(sl.Instances), spec); clamped && !slices.Contains(flags, FlagMidlineAtSlabEdge) {
+	if clamped && !slices.Contains(flags, FlagMidlineAtSlabEdge) {
 		// The stack needs slices beyond the slab's edge.
 		flags = append(flags, FlagMidlineAtSlabEdge)
 	}

@@ -23,13 +23,14 @@ const (
 	// turns it into per-slice weights. They were set on package phantom,
 	// then changed after a first measurement on internal/crossphantom
 	// (README, "Midline"), so neither family is a clean held-out set.
-	// weightCentre and centreSigmaSlices weigh the centre of the canal
-	// column's profile: the midpoint of its half-maximum crossings either
-	// side of its peak.
-	weightSymmetry    = 0.5
+	// weightLead and weightFollow weigh the leading and the other of
+	// symmetry and the canal profile's centre (the midpoint of its
+	// half-maximum crossings, spread by centreSigmaSlices); weightCanal
+	// the canal column's own length and weightPrior the prior.
+	weightLead        = 2.0
+	weightFollow      = 0.5
 	weightCanal       = 0.5
 	weightPrior       = 0.1
-	weightCentre      = 2.0
 	centreSigmaSlices = 0.6
 	scoreTemp         = 0.1
 	// StrongSymmetry is the symmetry, on two or more pairs inside the
@@ -134,91 +135,11 @@ func PickSlices(s *Slices) error {
 			s.Images[i] = img
 		}
 	}
-	n := len(s.Instances)
-	cost, pairs := mirrorCost(s.Images)
-	canal := canalCues(s)
-	maxCol, heightMM := 0.0, 0.0
-	for _, c := range canal {
-		maxCol = max(maxCol, c.ColumnMM)
-		heightMM = max(heightMM, c.HeightMM)
+	m, err := measureMidline(s)
+	if err != nil {
+		return err
 	}
-	if need := max(CanalMinColumnMM, CanalMinColumnFraction*heightMM); maxCol < need {
-		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
-			"no slice of the %d shows the CSF-cord column of the spinal canal over %.0f mm or more (longest %.0f mm of a %.0f mm field of view): the slab does not hold the midsagittal plane",
-			n, need, maxCol, heightMM)
-	}
-	anat := make([]float64, n)
-	for i, c := range canal {
-		anat[i] = c.ColumnMM / maxCol
-	}
-	runLo, runHi, lowIn, highIn := halfMaxRun(anat)
-	centre := (runLo + runHi) / 2
-	mid := (s.Positions[0] + s.Positions[n-1]) / 2
-	spacing := s.SpacingMM
-	if spacing <= 0 {
-		spacing = 1
-	}
-	halfRun := CanalHalfRunMM / spacing
-	switch {
-	case lowIn && !highIn:
-		// One crossing lies beyond the slab: the centre is half the
-		// canal's usual run from the crossing inside it.
-		centre = runLo + halfRun
-	case highIn && !lowIn:
-		centre = runHi - halfRun
-	case !lowIn && !highIn:
-		centre = float64(argmax(anat))
-	}
-	pos := func(c float64) float64 {
-		i := int(math.Floor(c))
-		if i >= n-1 {
-			return s.Positions[n-1]
-		}
-		f := c - float64(i)
-		return s.Positions[i]*(1-f) + s.Positions[i+1]*f
-	}
-	anatAt := func(k int) float64 {
-		if k%2 == 0 {
-			return anat[k/2]
-		}
-		return (anat[k/2] + anat[k/2+1]) / 2
-	}
-	// Symmetry leads where it is strong inside the canal; elsewhere the
-	// canal column's profile does. Symmetry counts only where the canal
-	// is: lateral slices of uniform soft tissue mirror each other too.
-	symAt := func(k int) float64 {
-		if pairs[k] == 0 {
-			return 0
-		}
-		return (1 - cost[k]) * anatAt(k)
-	}
-	symLead := false
-	for k := range cost {
-		c := float64(k) / 2
-		if c < runLo || c > runHi {
-			continue
-		}
-		// One pair, next to the slab's edge, must be stronger.
-		if (pairs[k] >= 2 && 1-cost[k] >= StrongSymmetry) || (pairs[k] == 1 && 1-cost[k] >= StrongSymmetry/onePairEvidence) {
-			symLead = true
-		}
-	}
-	if !symLead && (centre < -1 || centre > float64(n)) {
-		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
-			"the canal column runs to the slab's edge and its profile puts the midsagittal plane about %.0f mm beyond the edge slice: the slab does not hold the midline",
-			math.Abs(min(centre, 0)+max(centre-float64(n-1), 0))*spacing)
-	}
-	wSym, wCentre := weightSymmetry, weightCentre
-	if symLead {
-		wSym, wCentre = weightCentre, weightSymmetry/2
-	}
-	obj := make([]float64, 2*n-1)
-	for k := range obj {
-		c := float64(k) / 2
-		prior := -0.5 * math.Pow((pos(c)-mid)/priorSigmaMM, 2)
-		obj[k] = wSym*symAt(k) + weightCanal*anatAt(k) + weightPrior*prior +
-			wCentre*math.Exp(-0.5*math.Pow((c-centre)/centreSigmaSlices, 2))
-	}
+	obj := m.objective()
 	best := 0
 	for k := range obj {
 		if obj[k] > obj[best] {
@@ -234,14 +155,137 @@ func PickSlices(s *Slices) error {
 		}
 	}
 	s.CenterEstimate = est
-	s.Center = min(max(int(math.Round(est)), 0), n-1)
-	// Per-slice weights: a softmax of the objective over whole slices.
+	s.Center = min(max(int(math.Round(est)), 0), m.n-1)
+	w := sliceWeights(obj, m.n)
+	s.Confidence, s.Flags = m.judge(s.Center, est, w)
+	s.Scores = m.scores(s, est, w)
+	return nil
+}
+
+// midlineCues is what the cues measured on one slab.
+type midlineCues struct {
+	n             int
+	positions     []float64
+	spacing       float64
+	cost          []float64 // mirror cost per half-step candidate
+	pairs         []int     // mirror pairs behind each cost
+	canal         []canalCue
+	anat          []float64 // canal column length relative to the longest
+	runLo, runHi  float64   // half-maximum run of anat, in slices
+	lowIn, highIn bool      // whether each crossing lies inside the slab
+	centre        float64   // the canal profile's estimate of the plane
+	symLead       bool      // symmetry inside the run is strong and leads
+}
+
+// measureMidline measures the cues and refuses a slab that does not hold
+// the midsagittal plane.
+func measureMidline(s *Slices) (*midlineCues, error) {
+	n := len(s.Instances)
+	m := &midlineCues{n: n, positions: s.Positions, spacing: s.SpacingMM}
+	if m.spacing <= 0 {
+		m.spacing = 1
+	}
+	m.cost, m.pairs = mirrorCost(s.Images)
+	m.canal = canalCues(s)
+	maxCol, heightMM := 0.0, 0.0
+	for _, c := range m.canal {
+		maxCol = max(maxCol, c.ColumnMM)
+		heightMM = max(heightMM, c.HeightMM)
+	}
+	if need := max(CanalMinColumnMM, CanalMinColumnFraction*heightMM); maxCol < need {
+		return nil, midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
+			"no slice of the %d shows the CSF-cord column of the spinal canal over %.0f mm or more (longest %.0f mm of a %.0f mm field of view): the slab does not hold the midsagittal plane",
+			n, need, maxCol, heightMM)
+	}
+	m.anat = make([]float64, n)
+	for i, c := range m.canal {
+		m.anat[i] = c.ColumnMM / maxCol
+	}
+	m.runLo, m.runHi, m.lowIn, m.highIn = halfMaxRun(m.anat)
+	halfRun := CanalHalfRunMM / m.spacing
+	switch {
+	case m.lowIn && m.highIn:
+		m.centre = (m.runLo + m.runHi) / 2
+	case m.lowIn:
+		// One crossing lies beyond the slab: the centre is half the
+		// canal's usual run from the crossing inside it.
+		m.centre = m.runLo + halfRun
+	case m.highIn:
+		m.centre = m.runHi - halfRun
+	default:
+		m.centre = float64(argmax(m.anat))
+	}
+	for k := range m.cost {
+		c := float64(k) / 2
+		if c < m.runLo || c > m.runHi {
+			continue
+		}
+		// One pair, next to the slab's edge, must be stronger.
+		if sym := 1 - m.cost[k]; (m.pairs[k] >= 2 && sym >= StrongSymmetry) || (m.pairs[k] == 1 && sym >= StrongSymmetry/onePairEvidence) {
+			m.symLead = true
+		}
+	}
+	if !m.symLead && (m.centre < -1 || m.centre > float64(n)) {
+		return nil, midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
+			"the canal column runs to the slab's edge and its profile puts the midsagittal plane about %.0f mm beyond the edge slice: the slab does not hold the midline",
+			math.Abs(min(m.centre, 0)+max(m.centre-float64(n-1), 0))*m.spacing)
+	}
+	return m, nil
+}
+
+// mid is the slab's geometric centre along the normal, in mm.
+func (m *midlineCues) mid() float64 { return (m.positions[0] + m.positions[m.n-1]) / 2 }
+
+// pos is the position along the normal, in mm, of fractional slice c.
+func (m *midlineCues) pos(c float64) float64 {
+	i := int(math.Floor(c))
+	if i >= m.n-1 {
+		return m.positions[m.n-1]
+	}
+	f := c - float64(i)
+	return m.positions[i]*(1-f) + m.positions[i+1]*f
+}
+
+// anatAt is the canal cue at half-step candidate k.
+func (m *midlineCues) anatAt(k int) float64 {
+	if k%2 == 0 {
+		return m.anat[k/2]
+	}
+	return (m.anat[k/2] + m.anat[k/2+1]) / 2
+}
+
+// objective scores every half-step candidate centre. The leading cue
+// (symmetry when it is strong inside the canal, else the canal profile's
+// centre) weighs weightLead, the other weightFollow. Symmetry counts only
+// where the canal is: lateral slices of uniform soft tissue mirror each
+// other too.
+func (m *midlineCues) objective() []float64 {
+	wSym, wCentre := weightFollow, weightLead
+	if m.symLead {
+		wSym, wCentre = weightLead, weightFollow/2
+	}
+	obj := make([]float64, 2*m.n-1)
+	for k := range obj {
+		c := float64(k) / 2
+		sym := 0.0
+		if m.pairs[k] > 0 {
+			sym = (1 - m.cost[k]) * m.anatAt(k)
+		}
+		prior := -0.5 * math.Pow((m.pos(c)-m.mid())/priorSigmaMM, 2)
+		obj[k] = wSym*sym + weightCanal*m.anatAt(k) + weightPrior*prior +
+			wCentre*math.Exp(-0.5*math.Pow((c-m.centre)/centreSigmaSlices, 2))
+	}
+	return obj
+}
+
+// sliceWeights is a softmax of the objective over whole slices.
+func sliceWeights(obj []float64, n int) []float64 {
 	w := make([]float64, n)
-	var sum float64
 	top := obj[0]
 	for i := range w {
 		top = max(top, obj[2*i])
 	}
+	var sum float64
 	for i := range w {
 		w[i] = math.Exp((obj[2*i] - top) / scoreTemp)
 		sum += w[i]
@@ -249,70 +293,80 @@ func PickSlices(s *Slices) error {
 	for i := range w {
 		w[i] /= sum
 	}
+	return w
+}
+
+// judge returns the pick's confidence and its midline flags.
+func (m *midlineCues) judge(center int, est float64, w []float64) (float64, []string) {
 	mass := 0.0
-	for i := max(0, s.Center-1); i <= min(n-1, s.Center+1); i++ {
+	for i := max(0, center-1); i <= min(m.n-1, center+1); i++ {
 		mass += w[i]
 	}
 	evidence := 0.0
-	if k := 2 * s.Center; pairs[k] > 0 {
-		evidence = min(max((1-cost[k])/fullSymmetry, 0), 1)
-		if pairs[k] == 1 {
+	if k := 2 * center; m.pairs[k] > 0 {
+		evidence = min(max((1-m.cost[k])/fullSymmetry, 0), 1)
+		if m.pairs[k] == 1 {
 			// One pair, one slice from the edge, is weaker evidence.
 			evidence *= onePairEvidence
 		}
 	}
-	if lowIn && highIn && float64(s.Center) >= runLo && float64(s.Center) <= runHi && (runHi-runLo)*spacing >= CanalMinRunMM {
+	whole := m.lowIn && m.highIn
+	if c := float64(center); whole && c >= m.runLo && c <= m.runHi && (m.runHi-m.runLo)*m.spacing >= CanalMinRunMM {
 		// The canal column's profile is whole inside the slab and the
 		// pick lies within its half-maximum run.
 		evidence = max(evidence, canalEvidence)
 	}
-	evidence *= min(anat[s.Center]/0.5, 1)
-	s.Confidence = round4(mass * evidence)
-	s.Flags = nil
-	uncertain := s.Confidence < MinConfidence
-	whole := lowIn && highIn
+	evidence *= min(m.anat[center]/0.5, 1)
+	confidence := round4(mass * evidence)
+	uncertain := confidence < MinConfidence
 	switch {
-	case symLead && whole && math.Abs(centre-float64(s.Center)) >= 0.5:
+	case m.symLead && whole && math.Abs(m.centre-float64(center)) >= 0.5:
 		// Symmetry and the canal profile point at different slices.
 		uncertain = true
-	case !symLead && 0.5-math.Abs(est-math.Round(est)) < max(ambiguousMargin, ambiguousMarginMM/spacing):
+	case !m.symLead && 0.5-math.Abs(est-math.Round(est)) < max(ambiguousMargin, ambiguousMarginMM/m.spacing):
 		// The canal profile alone puts the plane near the boundary of
 		// two slices: either could be the nearer.
 		uncertain = true
 	}
-	if s.Center == 0 || s.Center == n-1 || !lowIn || !highIn {
+	var flags []string
+	if center == 0 || center == m.n-1 || !whole {
 		// The canal column runs to the slab's edge: the plane may lie at
 		// or beyond it.
-		s.Flags = append(s.Flags, FlagMidlineAtSlabEdge)
+		flags = append(flags, FlagMidlineAtSlabEdge)
 		uncertain = true
 	}
 	if uncertain {
-		s.Flags = append(s.Flags, FlagMidlineUncertain)
+		flags = append(flags, FlagMidlineUncertain)
 	}
-	s.Scores = make([]midsag.SliceScore, n)
+	return confidence, flags
+}
+
+// scores reports every cue per slice with its value.
+func (m *midlineCues) scores(s *Slices, est float64, w []float64) []midsag.SliceScore {
+	out := make([]midsag.SliceScore, m.n)
 	for i, in := range s.Instances {
 		k := 2 * i
 		parts := map[string]float64{
-			"canal_column_mm": round2(canal[i].ColumnMM),
-			"canal_depth_mm":  round2(canal[i].DepthMM),
-			"canal":           round4(anat[i]),
-			"symmetry_pairs":  float64(pairs[k]),
-			"center_prior":    round4(math.Exp(-0.5 * math.Pow((s.Positions[i]-mid)/priorSigmaMM, 2))),
-			"distance_mm":     round2(s.Positions[i] - pos(est)),
+			"canal_column_mm": round2(m.canal[i].ColumnMM),
+			"canal_depth_mm":  round2(m.canal[i].DepthMM),
+			"canal":           round4(m.anat[i]),
+			"symmetry_pairs":  float64(m.pairs[k]),
+			"center_prior":    round4(math.Exp(-0.5 * math.Pow((m.positions[i]-m.mid())/priorSigmaMM, 2))),
+			"distance_mm":     round2(m.positions[i] - m.pos(est)),
 			"distance_slices": round2(float64(i) - est),
 		}
-		if pairs[k] > 0 {
-			parts["symmetry"] = round4(1 - cost[k])
+		if m.pairs[k] > 0 {
+			parts["symmetry"] = round4(1 - m.cost[k])
 		}
-		s.Scores[i] = midsag.SliceScore{
+		out[i] = midsag.SliceScore{
 			SOPInstanceUID: in.SOPInstanceUID,
 			InstanceNumber: in.InstanceNumber,
-			PositionMM:     round2(s.Positions[i]),
+			PositionMM:     round2(m.positions[i]),
 			MidlineScore:   round4(w[i]),
 			Parts:          parts,
 		}
 	}
-	return nil
+	return out
 }
 
 func argmax(a []float64) int {
@@ -323,17 +377,6 @@ func argmax(a []float64) int {
 		}
 	}
 	return best
-}
-
-// profileCentre returns the centre of a profile that peaks at 1: the
-// midpoint of its half-maximum crossings either side of the peak, found by
-// linear interpolation (the centre of the full width at half maximum), in
-// slice units. lowIn and highIn are false when the profile is still at or
-// above half its peak at the slab's first or last slice, so that side's
-// crossing, and the centre, are not known.
-func profileCentre(a []float64) (c float64, lowIn, highIn bool) {
-	lo, hi, lowIn, highIn := halfMaxRun(a)
-	return (lo + hi) / 2, lowIn, highIn
 }
 
 // halfMaxRun returns the half-maximum crossings of a profile that peaks
