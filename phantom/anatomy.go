@@ -118,71 +118,33 @@ func newNeck(r *rand.Rand, compressLevel int) *neck {
 
 // at returns the tissue at local point (x, y, z).
 func (n *neck) at(x, y, z float64) tissue {
-	ey := (y - n.neckY) / n.neckA
-	ex := x / n.neckB
-	r2 := ex*ex + ey*ey
-	if r2 >= 1 {
-		return tAir
-	}
-	fat := n.fatAnt
-	if y > n.neckY {
-		fat = n.fatPost
-	}
-	if inner := 1 - fat/n.neckA; r2 > inner*inner {
-		return tFat
+	if t, ok := n.skin(x, y); ok {
+		return t
 	}
 	ax := math.Abs(x)
 	ys := y - n.lord*z*z
 	wall := -n.canalA - 1 // posterior wall of the vertebral bodies
 
-	// Protrusion front at this (x, z): the nearest disc's bulge.
 	t := (2*n.period - z) / n.period
 	k := int(math.Floor(t + 0.5))
 	dz := z - (2-float64(k))*n.period
-	front := wall
-	if k >= 0 && k < len(n.bulge) && ax < n.bulgeW {
-		hz := n.discH/2 + 1.5
-		if b := n.bulge[k]; b > 0 && math.Abs(dz) < hz {
-			gx := 1 - (x*x)/(n.bulgeW*n.bulgeW)
-			gz := 1 - (dz*dz)/(hz*hz)
-			front = wall + b*gx*gz
-		}
-	}
+	front := n.protrusionFront(x, ax, dz, k, wall)
 	if ys > wall && ys < front {
 		if n.osteo {
 			return tCortex
 		}
 		return tHerniated
 	}
-
-	// Canal, CSF and cord.
-	cx, cy := x/n.canalB, ys/n.canalA
-	if cx*cx+cy*cy < 1 {
-		if ax < n.cordB {
-			h := n.cordA * math.Sqrt(1-(x*x)/(n.cordB*n.cordB))
-			lo, hi := n.cordY-h, n.cordY+h
-			if front > lo {
-				// The protrusion flattens the cord and pushes it back.
-				push := front - lo
-				lo = front + 0.2
-				hi = math.Min(hi+0.35*push, n.canalA*math.Sqrt(1-cx*cx)-0.3)
-			}
-			if ys > lo && ys < hi {
-				return tCord
-			}
-		}
-		return tCSF
+	if cx, cy := x/n.canalB, ys/n.canalA; cx*cx+cy*cy < 1 {
+		return n.canal(x, ax, ys, cx, front)
 	}
-
 	if z > n.skullZ {
 		return n.skull(ax, ys)
 	}
-
 	// Vertebral arteries in the transverse foramina, lateral only.
 	if dx, dy := ax-n.vertX, ys-n.vertY; dx*dx+dy*dy < 2.5*2.5 && z < n.c2TopZ {
 		return tVessel
 	}
-
 	v := int(math.Floor(t)) + 1 // vertebra containing z (0 = C2)
 	if t < 0 {
 		v = 0
@@ -191,8 +153,7 @@ func (n *neck) at(x, y, z float64) tissue {
 	if ys < wall && ys > wall-n.bodyAP {
 		yb := (ys - wall + n.bodyAP/2) / (n.bodyAP / 2)
 		xb := x / n.bodyW
-		q := xb*xb*xb*xb + yb*yb*yb*yb
-		if q < 1 {
+		if q := xb*xb*xb*xb + yb*yb*yb*yb; q < 1 {
 			if tt := n.bodyTissue(q, ax, v, k, dz, z); tt != tAir {
 				return tt
 			}
@@ -200,34 +161,96 @@ func (n *neck) at(x, y, z float64) tissue {
 	} else if ys >= wall && ys < wall+1 && ax < 8 {
 		return tCortex // posterior longitudinal ligament
 	}
-
 	// Posterior elements of vertebra v.
 	if tt := n.posterior(ax, ys, z, v); tt != tAir {
 		return tt
 	}
-
-	// Anterior neck: airway, carotid and jugular, prevertebral tissue.
 	if ys < wall {
-		ax2 := x / n.airB
-		ay2 := (ys - n.airY) / n.airA
-		if ax2*ax2+ay2*ay2 < 1 {
-			return tAir
-		}
-		if dx, dy := ax-20, ys-(n.airY+2); dx*dx+dy*dy < 3.5*3.5 {
-			return tVessel // carotid
-		}
-		if dx, dy := ax-26, ys-(n.airY+4); dx*dx+dy*dy < 5*5 {
-			return tVessel // jugular
-		}
-		if ys > n.airY && ax < n.bodyW+4 {
-			return tSoft
-		}
-		if ax < 10 {
-			return tSoft
-		}
-		return tMuscle
+		return n.anteriorNeck(x, ax, ys)
 	}
-	// Posterior muscles with thin fat planes between them.
+	return n.backMuscles(ax, ys)
+}
+
+// skin returns air outside the neck's ellipse and fat in its
+// subcutaneous rim; ok is false inside.
+func (n *neck) skin(x, y float64) (tissue, bool) {
+	ey := (y - n.neckY) / n.neckA
+	ex := x / n.neckB
+	r2 := ex*ex + ey*ey
+	if r2 >= 1 {
+		return tAir, true
+	}
+	fat := n.fatAnt
+	if y > n.neckY {
+		fat = n.fatPost
+	}
+	if inner := 1 - fat/n.neckA; r2 > inner*inner {
+		return tFat, true
+	}
+	return 0, false
+}
+
+// protrusionFront is the canal's front at this (x, z): the posterior
+// wall of the bodies, pushed back by the nearest disc's bulge.
+func (n *neck) protrusionFront(x, ax, dz float64, k int, wall float64) float64 {
+	if k < 0 || k >= len(n.bulge) || ax >= n.bulgeW {
+		return wall
+	}
+	hz := n.discH/2 + 1.5
+	if b := n.bulge[k]; b > 0 && math.Abs(dz) < hz {
+		gx := 1 - (x*x)/(n.bulgeW*n.bulgeW)
+		gz := 1 - (dz*dz)/(hz*hz)
+		return wall + b*gx*gz
+	}
+	return wall
+}
+
+// canal returns the cord or CSF inside the canal's ellipse (cx is the
+// point's normalised transverse coordinate).
+func (n *neck) canal(x, ax, ys, cx, front float64) tissue {
+	if ax >= n.cordB {
+		return tCSF
+	}
+	h := n.cordA * math.Sqrt(1-(x*x)/(n.cordB*n.cordB))
+	lo, hi := n.cordY-h, n.cordY+h
+	if front > lo {
+		// The protrusion flattens the cord and pushes it back.
+		push := front - lo
+		lo = front + 0.2
+		hi = math.Min(hi+0.35*push, n.canalA*math.Sqrt(1-cx*cx)-0.3)
+	}
+	if ys > lo && ys < hi {
+		return tCord
+	}
+	return tCSF
+}
+
+// anteriorNeck classifies the neck in front of the bodies: airway,
+// carotid and jugular, prevertebral tissue.
+func (n *neck) anteriorNeck(x, ax, ys float64) tissue {
+	ax2 := x / n.airB
+	ay2 := (ys - n.airY) / n.airA
+	if ax2*ax2+ay2*ay2 < 1 {
+		return tAir
+	}
+	if dx, dy := ax-20, ys-(n.airY+2); dx*dx+dy*dy < 3.5*3.5 {
+		return tVessel // carotid
+	}
+	if dx, dy := ax-26, ys-(n.airY+4); dx*dx+dy*dy < 5*5 {
+		return tVessel // jugular
+	}
+	if ys > n.airY && ax < n.bodyW+4 {
+		return tSoft
+	}
+	if ax < 10 {
+		return tSoft
+	}
+	return tMuscle
+}
+
+// backMuscles classifies the posterior neck: muscles with thin fat
+// planes between them and the nuchal ligament in the midline.
+func (n *neck) backMuscles(ax, ys float64) tissue {
 	if ys > n.canalA && ax > 4 {
 		if f := ys + 0.5*ax; f-13*math.Floor(f/13) < 1.2 {
 			return tFat
@@ -282,22 +305,37 @@ func (n *neck) posterior(ax, ys, z float64, v int) tissue {
 	dz := z - zc
 	// Lateral masses (articular pillars) at |x| 12-22 mm: parasagittal only.
 	if ax > 12 && ax < 22 && ys > -6 && ys < 8 {
-		if math.Abs(dz) > half+1 && math.Abs(dz) < half+2.2 {
-			return tJoint
-		}
-		if math.Abs(dz) < half+1 {
-			if ax < 13 || ax > 21 || ys < -5 || ys > 7 {
-				return tCortex
-			}
-			return tMarrow
-		}
-		return tAir
+		return lateralMass(ax, ys, dz, half)
 	}
 	// Pedicles join the bodies to the lateral masses.
 	if ax > n.canalB-1 && ax < 13 && ys > -n.canalA-1 && ys < -1 && math.Abs(dz) < half-2 {
 		return tMarrow
 	}
-	// Laminae slope posteriorly and caudally from the lateral masses.
+	if tt := n.lamina(ax, ys, dz, half); tt != tAir {
+		return tt
+	}
+	return n.spinous(ax, ys, dz, v)
+}
+
+// lateralMass returns the articular pillar's marrow, cortex and facet
+// joints at dz from its vertebra's centre (half its height).
+func lateralMass(ax, ys, dz, half float64) tissue {
+	if math.Abs(dz) > half+1 && math.Abs(dz) < half+2.2 {
+		return tJoint
+	}
+	if math.Abs(dz) < half+1 {
+		if ax < 13 || ax > 21 || ys < -5 || ys > 7 {
+			return tCortex
+		}
+		return tMarrow
+	}
+	return tAir
+}
+
+// lamina returns the laminae, which slope posteriorly and caudally from
+// the lateral masses, and the ligamentum flavum between them; tAir
+// elsewhere.
+func (n *neck) lamina(ax, ys, dz, half float64) tissue {
 	inner := n.canalA*math.Sqrt(math.Max(0, 1-(ax*ax)/(n.canalB*n.canalB))) + 0.6
 	if ax >= n.canalB {
 		inner = 0.6
@@ -311,20 +349,27 @@ func (n *neck) posterior(ax, ys, z float64, v int) tissue {
 			return tCortex // ligamentum flavum
 		}
 	}
-	// Spinous process: midline only, slanting caudally.
-	if ax < n.spinW && v < len(n.spinLen) {
-		y0 := n.canalA + 4
-		if ys > y0 && ys < y0+n.spinLen[v] {
-			dzs := dz + 0.45*(ys-y0)
-			if math.Abs(dzs) < 4.5 {
-				if ax > n.spinW-0.8 || math.Abs(dzs) > 3.7 {
-					return tCortex
-				}
-				return tMarrow
-			}
-		}
-	}
 	return tAir
+}
+
+// spinous returns vertebra v's spinous process, midline only and
+// slanting caudally; tAir elsewhere.
+func (n *neck) spinous(ax, ys, dz float64, v int) tissue {
+	if ax >= n.spinW || v >= len(n.spinLen) {
+		return tAir
+	}
+	y0 := n.canalA + 4
+	if ys <= y0 || ys >= y0+n.spinLen[v] {
+		return tAir
+	}
+	dzs := dz + 0.45*(ys-y0)
+	if math.Abs(dzs) >= 4.5 {
+		return tAir
+	}
+	if ax > n.spinW-0.8 || math.Abs(dzs) > 3.7 {
+		return tCortex
+	}
+	return tMarrow
 }
 
 // skull returns the tissue above the foramen magnum.

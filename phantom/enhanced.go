@@ -43,6 +43,45 @@ type EnhancedOptions struct {
 // C.7.6.16, C.8.13.5). The new instance keeps the first stack's series and
 // takes a new SOP Instance UID.
 func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
+	o, legacy, err := enhancedDefaults(o)
+	if err != nil {
+		return File{}, err
+	}
+	frames, err := enhancedFrames(stacks, o)
+	if err != nil {
+		return File{}, err
+	}
+	ref := frames[0]
+	for _, im := range frames {
+		if im.stack == 1 && im.inStack == 1 {
+			ref = im
+		}
+	}
+	d := enhancedImageLevel(ref, o, len(stacks), len(frames), legacy)
+	macros := frameMacros()
+	if legacy {
+		macros = append(macros, legacyMacros()...)
+	} else {
+		macros = append(macros, mrMacros()...)
+	}
+	date, tm := ref.str(0x00080023), ref.str(0x00080033)
+	shared, per := functionalGroups(frames, macros, legacy, date, tm)
+	d = append(d, element{tag: 0x52009229, vr: "SQ", items: []dataset{shared}})
+	d = append(d, element{tag: 0x52009230, vr: "SQ", items: per})
+
+	if err := enhancedPixels(&d, frames, o); err != nil {
+		return File{}, err
+	}
+	data, err := encodePart10(d, o.TransferSyntaxUID)
+	if err != nil {
+		return File{}, err
+	}
+	return File{Name: "enhanced-" + ref.str(0x0020000E) + ".dcm", Data: data}, nil
+}
+
+// enhancedDefaults fills EnhancedOptions' defaults and reports whether
+// the class is Legacy Converted Enhanced MR.
+func enhancedDefaults(o EnhancedOptions) (EnhancedOptions, bool, error) {
 	if o.SOPClassUID == "" {
 		o.SOPClassUID = midsag.EnhancedMRImageStorage
 	}
@@ -54,21 +93,27 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 	}
 	legacy := o.SOPClassUID == midsag.LegacyConvertedEnhancedMRImageStorage
 	if !legacy && o.SOPClassUID != midsag.EnhancedMRImageStorage {
-		return File{}, fmt.Errorf("enhanced: SOP Class %s is not an Enhanced MR class", o.SOPClassUID)
+		return o, false, fmt.Errorf("enhanced: SOP Class %s is not an Enhanced MR class", o.SOPClassUID)
 	}
+	return o, legacy, nil
+}
+
+// enhancedFrames reads every stack's images, numbers them by stack and
+// by position along the normal, and checks they share one matrix.
+func enhancedFrames(stacks [][]File, o EnhancedOptions) ([]*srcImage, error) {
 	var frames []*srcImage
 	for si, files := range stacks {
 		var st []*srcImage
 		for _, f := range files {
 			im, err := readSimple(f.Data)
 			if err != nil {
-				return File{}, fmt.Errorf("enhanced: %s: %w", f.Name, err)
+				return nil, fmt.Errorf("enhanced: %s: %w", f.Name, err)
 			}
 			im.stack = si + 1
 			st = append(st, im)
 		}
 		if len(st) == 0 {
-			return File{}, fmt.Errorf("enhanced: stack %d is empty", si+1)
+			return nil, fmt.Errorf("enhanced: stack %d is empty", si+1)
 		}
 		n := st[0].normal()
 		sort.SliceStable(st, func(i, j int) bool { return st[i].along(n) < st[j].along(n) })
@@ -78,7 +123,7 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 		frames = append(frames, st...)
 	}
 	if len(frames) == 0 {
-		return File{}, fmt.Errorf("enhanced: no images")
+		return nil, fmt.Errorf("enhanced: no images")
 	}
 	if o.Shuffle != 0 {
 		r := rngFor("enhanced order", o.Shuffle)
@@ -88,16 +133,17 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 	for _, im := range frames {
 		if im.u16(0x00280010) != first.u16(0x00280010) || im.u16(0x00280011) != first.u16(0x00280011) ||
 			im.u16(0x00280101) != first.u16(0x00280101) {
-			return File{}, fmt.Errorf("enhanced: images differ in matrix or bits stored")
+			return nil, fmt.Errorf("enhanced: images differ in matrix or bits stored")
 		}
 	}
-	ref := frames[0]
-	for _, im := range frames {
-		if im.stack == 1 && im.inStack == 1 {
-			ref = im
-		}
-	}
+	return frames, nil
+}
 
+// enhancedImageLevel writes the attributes of the image as a whole:
+// those copied from the reference image, the SOP Common, Image Pixel,
+// Multi-frame Dimension and Common CT/MR Image Description modules, and
+// for Enhanced MR its own modules.
+func enhancedImageLevel(ref *srcImage, o EnhancedOptions, nStacks, nFrames int, legacy bool) dataset {
 	var d dataset
 	// Attributes copied from the first stack's images: Patient (PS3.3
 	// C.7.1.1), General Study (C.7.2.1), General Series (C.7.3.1), Frame
@@ -110,7 +156,7 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 			d = append(d, element{tag: t, vr: el.vr, raw: el.val})
 		}
 	}
-	sop := uidFrom("enhanced", ref.str(0x0020000E), o.SOPClassUID, o.TransferSyntaxUID, o.Shuffle, o.OffsetTable, o.FragmentsPerFrame, len(stacks))
+	sop := uidFrom("enhanced", ref.str(0x0020000E), o.SOPClassUID, o.TransferSyntaxUID, o.Shuffle, o.OffsetTable, o.FragmentsPerFrame, nStacks)
 	date, tm := ref.str(0x00080023), ref.str(0x00080033)
 	d.text(0x00080008, "CS", `ORIGINAL\PRIMARY\M\NONE`)
 	d.text(0x00080016, "UI", o.SOPClassUID)
@@ -122,7 +168,7 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 	d.text(0x00181000, "LO", "0001")
 	d.text(0x00200013, "IS", "1")
 	d.text(0x00200012, "IS", "1")
-	d.is(0x00280008, len(frames))
+	d.is(0x00280008, nFrames)
 	// Image Pixel (PS3.3 C.7.6.3), copied.
 	for _, t := range []uint32{0x00280002, 0x00280004, 0x00280010, 0x00280011, 0x00280100, 0x00280101, 0x00280102, 0x00280103} {
 		if el, ok := ref.el[t]; ok {
@@ -159,12 +205,18 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 		enhancedMRModules(&d, ref)
 	}
 
-	// Functional groups: a macro goes into the shared item when every
-	// frame has the same value (PS3.3 C.7.6.16.1.1).
-	type macro struct {
-		tag uint32
-		of  func(im *srcImage) dataset
-	}
+	return d
+}
+
+// macro is one functional group macro: the sequence tag it is stored
+// under and its item for one frame.
+type macro struct {
+	tag uint32
+	of  func(im *srcImage) dataset
+}
+
+// frameMacros are the macros both Enhanced MR classes carry.
+func frameMacros() []macro {
 	macros := []macro{
 		// Pixel Measures, PS3.3 C.7.6.16.2.1.
 		{0x00289110, func(im *srcImage) dataset {
@@ -211,106 +263,120 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 			{tag: 0x00089209, vr: "CS", str: contrastOf(im.float(0x00180080), im.float(0x00180081))},
 		}
 	}})
-	if legacy {
-		macros = append(macros,
-			// Unassigned Shared Converted Attributes, PS3.3
-			// C.7.6.16.2.25: the MR Image module attributes (C.8.3.1).
-			macro{0x00209170, func(im *srcImage) dataset {
-				var m dataset
-				for _, t := range []uint32{0x00180020, 0x00180021, 0x00180022, 0x00180023, 0x00180024, 0x00180080,
-					0x00180081, 0x00180082, 0x00180083, 0x00180091, 0x00181314} {
-					if el, ok := im.el[t]; ok {
-						m = append(m, element{tag: t, vr: el.vr, raw: el.val})
-					}
+	return macros
+}
+
+// legacyMacros are the macros only Legacy Converted Enhanced MR carries.
+func legacyMacros() []macro {
+	return []macro{
+		// Unassigned Shared Converted Attributes, PS3.3
+		// C.7.6.16.2.25: the MR Image module attributes (C.8.3.1).
+		macro{0x00209170, func(im *srcImage) dataset {
+			var m dataset
+			for _, t := range []uint32{0x00180020, 0x00180021, 0x00180022, 0x00180023, 0x00180024, 0x00180080,
+				0x00180081, 0x00180082, 0x00180083, 0x00180091, 0x00181314} {
+				if el, ok := im.el[t]; ok {
+					m = append(m, element{tag: t, vr: el.vr, raw: el.val})
 				}
-				return m
-			}},
-		)
-	} else {
-		macros = append(macros,
-			// MR Timing and Related Parameters, PS3.3 C.8.13.5.2.
-			macro{0x00189112, func(im *srcImage) dataset {
-				return dataset{
-					{tag: 0x00180080, vr: "DS", raw: im.el[0x00180080].val},
-					{tag: 0x00180091, vr: "IS", raw: im.el[0x00180091].val},
-					{tag: 0x00181314, vr: "DS", raw: im.el[0x00181314].val},
-					{tag: 0x00189176, vr: "SQ", items: []dataset{{
-						{tag: 0x00189177, vr: "CS", str: "STATIC FIELD"},
-						{tag: 0x00189178, vr: "CS", str: "IEC_NORMAL"},
-					}}},
-					{tag: 0x00189239, vr: "SQ", items: []dataset{{
-						{tag: 0x00189179, vr: "CS", str: "IEC_WHOLE_BODY"},
-						{tag: 0x00189181, vr: "FD", f64: []float64{0.1}},
-					}}},
-					{tag: 0x00189240, vr: "US", u16: []uint16{uint16(im.float(0x00180091))}},
-					{tag: 0x00189241, vr: "US", u16: []uint16{0}},
-				}
-			}},
-			// MR Echo, PS3.3 C.8.13.5.4.
-			macro{0x00189114, func(im *srcImage) dataset {
-				return dataset{{tag: 0x00189082, vr: "FD", f64: []float64{im.float(0x00180081)}}}
-			}},
-			// MR Modifier, PS3.3 C.8.13.5.6.
-			macro{0x00189115, func(im *srcImage) dataset {
-				m := dataset{
-					{tag: 0x00189009, vr: "CS", str: "NO"},
-					{tag: 0x00189010, vr: "CS", str: "NONE"},
-					{tag: 0x00189021, vr: "CS", str: "NO"},
-					{tag: 0x00189026, vr: "CS", str: "NONE"},
-					{tag: 0x00189027, vr: "CS", str: "NONE"},
-					{tag: 0x00189077, vr: "CS", str: "NO"},
-					{tag: 0x00189081, vr: "CS", str: "NO"},
-				}
-				if ti := im.float(0x00180082); ti > 0 {
-					m[0].str = "YES"
-					m = append(m, element{tag: 0x00189079, vr: "FD", f64: []float64{ti}})
-				}
-				return m
-			}},
-			// MR FOV/Geometry, PS3.3 C.8.13.5.3.
-			macro{0x00189125, func(im *srcImage) dataset {
-				rows, cols := im.u16(0x00280010), im.u16(0x00280011)
-				return dataset{
-					{tag: 0x00180093, vr: "DS", str: "100"},
-					{tag: 0x00180094, vr: "DS", str: "100"},
-					{tag: 0x00181312, vr: "CS", str: "COLUMN"},
-					{tag: 0x00189058, vr: "US", u16: []uint16{cols}},
-					{tag: 0x00189231, vr: "US", u16: []uint16{rows}},
-				}
-			}},
-			// MR Imaging Modifier, PS3.3 C.8.13.5.7.
-			macro{0x00189006, func(im *srcImage) dataset {
-				return dataset{
-					{tag: 0x00180095, vr: "DS", str: "200"},
-					{tag: 0x00189020, vr: "CS", str: "NONE"},
-					{tag: 0x00189022, vr: "CS", str: "NO"},
-					{tag: 0x00189028, vr: "CS", str: "NONE"},
-					{tag: 0x00189098, vr: "FD", f64: []float64{42.577 * im.float(0x00180087)}},
-				}
-			}},
-			// MR Receive Coil, PS3.3 C.8.13.5.8.
-			macro{0x00189042, func(im *srcImage) dataset {
-				return dataset{
-					{tag: 0x00181250, vr: "SH", str: "PHANTOM NECK"},
-					{tag: 0x00189041, vr: "LO", str: Manufacturer},
-					{tag: 0x00189043, vr: "CS", str: "VOLUME"},
-					{tag: 0x00189044, vr: "CS", str: "NO"},
-				}
-			}},
-			// MR Transmit Coil, PS3.3 C.8.13.5.9.
-			macro{0x00189049, func(im *srcImage) dataset {
-				return dataset{
-					{tag: 0x00181251, vr: "SH", str: "BODY"},
-					{tag: 0x00189050, vr: "LO", str: Manufacturer},
-					{tag: 0x00189051, vr: "CS", str: "BODY"},
-				}
-			}},
-			// MR Averages, PS3.3 C.8.13.5.10.
-			macro{0x00189119, func(im *srcImage) dataset {
-				return dataset{{tag: 0x00180083, vr: "DS", raw: im.el[0x00180083].val}}
-			}},
-		)
+			}
+			return m
+		}},
 	}
+}
+
+// mrMacros are the macros only Enhanced MR carries.
+func mrMacros() []macro {
+	return []macro{
+		// MR Timing and Related Parameters, PS3.3 C.8.13.5.2.
+		macro{0x00189112, func(im *srcImage) dataset {
+			return dataset{
+				{tag: 0x00180080, vr: "DS", raw: im.el[0x00180080].val},
+				{tag: 0x00180091, vr: "IS", raw: im.el[0x00180091].val},
+				{tag: 0x00181314, vr: "DS", raw: im.el[0x00181314].val},
+				{tag: 0x00189176, vr: "SQ", items: []dataset{{
+					{tag: 0x00189177, vr: "CS", str: "STATIC FIELD"},
+					{tag: 0x00189178, vr: "CS", str: "IEC_NORMAL"},
+				}}},
+				{tag: 0x00189239, vr: "SQ", items: []dataset{{
+					{tag: 0x00189179, vr: "CS", str: "IEC_WHOLE_BODY"},
+					{tag: 0x00189181, vr: "FD", f64: []float64{0.1}},
+				}}},
+				{tag: 0x00189240, vr: "US", u16: []uint16{uint16(im.float(0x00180091))}},
+				{tag: 0x00189241, vr: "US", u16: []uint16{0}},
+			}
+		}},
+		// MR Echo, PS3.3 C.8.13.5.4.
+		macro{0x00189114, func(im *srcImage) dataset {
+			return dataset{{tag: 0x00189082, vr: "FD", f64: []float64{im.float(0x00180081)}}}
+		}},
+		// MR Modifier, PS3.3 C.8.13.5.6.
+		macro{0x00189115, func(im *srcImage) dataset {
+			m := dataset{
+				{tag: 0x00189009, vr: "CS", str: "NO"},
+				{tag: 0x00189010, vr: "CS", str: "NONE"},
+				{tag: 0x00189021, vr: "CS", str: "NO"},
+				{tag: 0x00189026, vr: "CS", str: "NONE"},
+				{tag: 0x00189027, vr: "CS", str: "NONE"},
+				{tag: 0x00189077, vr: "CS", str: "NO"},
+				{tag: 0x00189081, vr: "CS", str: "NO"},
+			}
+			if ti := im.float(0x00180082); ti > 0 {
+				m[0].str = "YES"
+				m = append(m, element{tag: 0x00189079, vr: "FD", f64: []float64{ti}})
+			}
+			return m
+		}},
+		// MR FOV/Geometry, PS3.3 C.8.13.5.3.
+		macro{0x00189125, func(im *srcImage) dataset {
+			rows, cols := im.u16(0x00280010), im.u16(0x00280011)
+			return dataset{
+				{tag: 0x00180093, vr: "DS", str: "100"},
+				{tag: 0x00180094, vr: "DS", str: "100"},
+				{tag: 0x00181312, vr: "CS", str: "COLUMN"},
+				{tag: 0x00189058, vr: "US", u16: []uint16{cols}},
+				{tag: 0x00189231, vr: "US", u16: []uint16{rows}},
+			}
+		}},
+		// MR Imaging Modifier, PS3.3 C.8.13.5.7.
+		macro{0x00189006, func(im *srcImage) dataset {
+			return dataset{
+				{tag: 0x00180095, vr: "DS", str: "200"},
+				{tag: 0x00189020, vr: "CS", str: "NONE"},
+				{tag: 0x00189022, vr: "CS", str: "NO"},
+				{tag: 0x00189028, vr: "CS", str: "NONE"},
+				{tag: 0x00189098, vr: "FD", f64: []float64{42.577 * im.float(0x00180087)}},
+			}
+		}},
+		// MR Receive Coil, PS3.3 C.8.13.5.8.
+		macro{0x00189042, func(im *srcImage) dataset {
+			return dataset{
+				{tag: 0x00181250, vr: "SH", str: "PHANTOM NECK"},
+				{tag: 0x00189041, vr: "LO", str: Manufacturer},
+				{tag: 0x00189043, vr: "CS", str: "VOLUME"},
+				{tag: 0x00189044, vr: "CS", str: "NO"},
+			}
+		}},
+		// MR Transmit Coil, PS3.3 C.8.13.5.9.
+		macro{0x00189049, func(im *srcImage) dataset {
+			return dataset{
+				{tag: 0x00181251, vr: "SH", str: "BODY"},
+				{tag: 0x00189050, vr: "LO", str: Manufacturer},
+				{tag: 0x00189051, vr: "CS", str: "BODY"},
+			}
+		}},
+		// MR Averages, PS3.3 C.8.13.5.10.
+		macro{0x00189119, func(im *srcImage) dataset {
+			return dataset{{tag: 0x00180083, vr: "DS", raw: im.el[0x00180083].val}}
+		}},
+	}
+}
+
+// functionalGroups puts each macro into the Shared Functional Groups item
+// when every frame has the same value and into the Per-frame Functional
+// Groups otherwise (PS3.3 C.7.6.16.1.1), and adds the always per-frame
+// Frame Content and Plane Position (and, for Legacy Converted, the
+// conversion source).
+func functionalGroups(frames []*srcImage, macros []macro, legacy bool, date, tm string) (dataset, []dataset) {
 	shared := dataset{}
 	per := make([]dataset, len(frames))
 	for _, mc := range macros {
@@ -357,17 +423,7 @@ func ToEnhancedMR(stacks [][]File, o EnhancedOptions) (File, error) {
 			}}})
 		}
 	}
-	d = append(d, element{tag: 0x52009229, vr: "SQ", items: []dataset{shared}})
-	d = append(d, element{tag: 0x52009230, vr: "SQ", items: per})
-
-	if err := enhancedPixels(&d, frames, o); err != nil {
-		return File{}, err
-	}
-	data, err := encodePart10(d, o.TransferSyntaxUID)
-	if err != nil {
-		return File{}, err
-	}
-	return File{Name: "enhanced-" + ref.str(0x0020000E) + ".dcm", Data: data}, nil
+	return shared, per
 }
 
 // enhancedMRModules adds the Enhanced MR Image (PS3.3 C.8.13.1) and MR

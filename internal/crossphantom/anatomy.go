@@ -429,47 +429,77 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 	// Canal: the dural sac (CSF around the cord) inside epidural fat.
 	back := n.canP - 0.35*au*au/n.canU
 	if au < n.canU && vc < back && !low {
-		// The sac is an ellipse inside the bony canal, so its lateral
-		// recesses are shallow; posterior epidural fat fills the corners.
-		du := n.canU - 0.8
-		dc := (n.canP - 1.2 - n.canA) / 2
-		dv := (n.canP - 1.2 + n.canA) / 2
-		x, y := uc/du, (vc-dc)/dv
-		q := x*x + y*y
-		b := n.bulgeAt(weff) * max(1-x*x, 0)
-		front := -n.canA + b
-		if vc < front {
-			return tAnnulus // the bulging disc
-		}
-		if q >= 1 {
-			return tEpidural
-		}
-		if q > 0.85 || vc < front+0.5 {
-			return tDura
-		}
-		// The cord, flattened where the sac's front comes within reach.
-		cf, cb := -n.cordV, n.cordV
-		if front+0.6 > cf {
-			cf = front + 0.6
-		}
-		cu := n.cordU
-		if weff < n.bot[5] {
-			cu *= 0.85 // thoracic cord narrower than the cervical enlargement
-		}
-		if cb-cf < 2*n.cordV {
-			cu *= 1 + 0.15*(1-(cb-cf)/(2*n.cordV))
-		}
-		cv := (cb + cf) / 2
-		hv := (cb - cf) / 2
-		if x, y := uc/cu, (vc-cv)/hv; x*x+y*y < 1 {
-			return tCord
-		}
-		return tCSF
+		return n.sac(uc, vc, weff)
 	}
+	if t, ok := n.lateralBone(au, vc, weff, i, low); ok {
+		return t
+	}
+	// Laminae and the ligamentum flavum between them.
+	if au < n.pedIn+2 && vc >= back && vc < back+3 && !low {
+		mid := (n.top[i]+n.bot[i])/2 - 3
+		if weff > mid-6 && weff < mid+5 {
+			return bone(min(vc-back, back+3-vc) + 0.6)
+		}
+		return tLigament
+	}
+	if t, ok := n.spinous(au, vc, weff); ok {
+		return t
+	}
+	if n.midlineLigament(au, vc, w) {
+		return tLigament
+	}
+	return n.paraspinal(uc, vc, au)
+}
+
+// sac classifies a point inside the bony canal: the dural sac (CSF
+// around the cord), its wall, epidural fat and a bulging disc.
+func (n *neck) sac(uc, vc, weff float64) tissue {
+	// The sac is an ellipse inside the bony canal, so its lateral
+	// recesses are shallow; posterior epidural fat fills the corners.
+	du := n.canU - 0.8
+	dc := (n.canP - 1.2 - n.canA) / 2
+	dv := (n.canP - 1.2 + n.canA) / 2
+	x, y := uc/du, (vc-dc)/dv
+	q := x*x + y*y
+	b := n.bulgeAt(weff) * max(1-x*x, 0)
+	front := -n.canA + b
+	if vc < front {
+		return tAnnulus // the bulging disc
+	}
+	if q >= 1 {
+		return tEpidural
+	}
+	if q > 0.85 || vc < front+0.5 {
+		return tDura
+	}
+	// The cord, flattened where the sac's front comes within reach.
+	cf, cb := -n.cordV, n.cordV
+	if front+0.6 > cf {
+		cf = front + 0.6
+	}
+	cu := n.cordU
+	if weff < n.bot[5] {
+		cu *= 0.85 // thoracic cord narrower than the cervical enlargement
+	}
+	if cb-cf < 2*n.cordV {
+		cu *= 1 + 0.15*(1-(cb-cf)/(2*n.cordV))
+	}
+	cv := (cb + cf) / 2
+	hv := (cb - cf) / 2
+	if x, y := uc/cu, (vc-cv)/hv; x*x+y*y < 1 {
+		return tCord
+	}
+	return tCSF
+}
+
+// lateralBone classifies the pedicles, the lateral masses with their
+// facet joints and the foraminal fat beside the canal; ok is false
+// elsewhere.
+func (n *neck) lateralBone(au, vc, weff float64, i int, low bool) (tissue, bool) {
 	inBody := weff <= n.top[i] && weff >= n.bot[i]
 	// Pedicles: the canal's side walls in the upper part of each body.
 	if au >= n.pedIn && au < n.pedIn+4.5 && vc < 1 && inBody && weff > n.bot[i]+0.4*(n.top[i]-n.bot[i]) {
-		return bone(min(au-n.pedIn, n.pedIn+4.5-au))
+		return bone(min(au-n.pedIn, n.pedIn+4.5-au)), true
 	}
 	// Lateral masses: a column of bone cut by the oblique facet joints.
 	if au >= n.pedIn && au < n.lmOut && vc >= -1 && vc < 11 && !low {
@@ -482,50 +512,54 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 		}
 		switch {
 		case g < 0.7:
-			return tFacet
+			return tFacet, true
 		case g < 1.7:
-			return tCortex
+			return tCortex, true
 		}
 		d := min(min(au-n.pedIn, n.lmOut-au), min(vc+1, 11-vc))
-		return bone(min(d, g-0.6))
+		return bone(min(d, g-0.6)), true
 	}
 	if au >= n.pedIn && vc < 0 {
 		if low {
-			return tMuscle
+			return tMuscle, true
 		}
-		return tEpidural // neural foramen fat
+		return tEpidural, true // neural foramen fat
 	}
-	// Laminae and the ligamentum flavum between them.
-	if au < n.pedIn+2 && vc >= back && vc < back+3 && !low {
-		mid := (n.top[i]+n.bot[i])/2 - 3
-		if weff > mid-6 && weff < mid+5 {
-			return bone(min(vc-back, back+3-vc) + 0.6)
-		}
-		return tLigament
-	}
-	// Spinous processes in the midline, sloping down posteriorly.
+	return 0, false
+}
+
+// spinous classifies the spinous processes in the midline, sloping down
+// posteriorly; ok is false outside them.
+func (n *neck) spinous(au, vc, weff float64) (tissue, bool) {
 	base := n.canP + 2
-	if au < 4.5 && vc >= base {
-		for j := range nVert {
-			if vc > base+n.spL[j] {
+	if au >= 4.5 || vc < base {
+		return 0, false
+	}
+	for j := range nVert {
+		if vc > base+n.spL[j] {
+			continue
+		}
+		c := (n.top[j]+n.bot[j])/2 - 2 - (vc-base)*n.spTan[j]
+		half := 3.5 - 1.2*(vc-base)/n.spL[j]
+		if n.bifid[j] && vc > base+n.spL[j]-5 {
+			if au < 1 || au > 4 {
 				continue
 			}
-			c := (n.top[j]+n.bot[j])/2 - 2 - (vc-base)*n.spTan[j]
-			half := 3.5 - 1.2*(vc-base)/n.spL[j]
-			if n.bifid[j] && vc > base+n.spL[j]-5 {
-				if au < 1 || au > 4 {
-					continue
-				}
-			} else if au > half {
-				continue
-			}
-			if d := math.Abs(weff - c); d < n.spH[j] {
-				return bone(min(n.spH[j]-d, min(base+n.spL[j]-vc, half-au)) + 0.3)
-			}
+		} else if au > half {
+			continue
+		}
+		if d := math.Abs(weff - c); d < n.spH[j] {
+			return bone(min(n.spH[j]-d, min(base+n.spL[j]-vc, half-au)) + 0.3), true
 		}
 	}
-	// Ligaments in the midline: interspinous between the processes, the
-	// nuchal ligament from the C7 tip up to the occiput.
+	return 0, false
+}
+
+// midlineLigament reports the ligaments in the midline: interspinous
+// between the processes, the nuchal ligament from the C7 tip up to the
+// occiput.
+func (n *neck) midlineLigament(au, vc, w float64) bool {
+	base := n.canP + 2
 	c7tip := base + n.spL[5]
 	c7w := (n.top[5]+n.bot[5])/2 - 2 - n.spL[5]*n.spTan[5]
 	if w > c7w {
@@ -535,12 +569,14 @@ func (n *neck) posterior(uc, vc, au, w, weff float64) tissue {
 		if vc > border-5 {
 			half = 2.5
 		}
-		if au < half && vc < border && vc > base {
-			return tLigament
-		}
-	} else if au < 1.2 && vc > base && vc < base+n.spL[6] {
-		return tLigament
+		return au < half && vc < border && vc > base
 	}
+	return au < 1.2 && vc > base && vc < base+n.spL[6]
+}
+
+// paraspinal classifies the rest behind the column: the paraspinal
+// muscles and the fat around them.
+func (n *neck) paraspinal(uc, vc, au float64) tissue {
 	// Paraspinal muscles, one boxy mass each side reaching to the nuchal
 	// septum, with two curved intermuscular fat planes (from memory: the
 	// semispinalis, splenius and trapezius layers).
@@ -624,58 +660,87 @@ func (n *neck) atlas(uc, vc, au, weff float64) (tissue, bool) {
 func (n *neck) head(uc, vc, au, w float64) tissue {
 	h := w - n.wFM
 	// Brainstem continues the cord, widening into the medulla and pons.
-	bsV := -1.0 - 0.1*h
-	bsU := n.cordU * (1.3 + min(h, 40)/40)
-	bsD := n.cordV * (1.4 + min(h, 40)/40)
-	// Clivus: a bar of bone rising anteriorly from the basion.
+	bs := brainstem{
+		v: -1.0 - 0.1*h,
+		u: n.cordU * (1.3 + min(h, 40)/40),
+		d: n.cordV * (1.4 + min(h, 40)/40),
+	}
+	if t, ok := n.skullBase(uc, vc, au, h); ok {
+		return t
+	}
+	if x, y := uc/bs.u, (vc-bs.v)/bs.d; x*x+y*y < 1 {
+		return tCord
+	}
+	if t, ok := fossaShell(uc, vc, au, h, bs); ok {
+		return t
+	}
+	return fossaContents(vc, au, h, bs)
+}
+
+// brainstem is the medulla's and pons's centre and half-widths at one
+// height above the foramen magnum.
+type brainstem struct{ v, u, d float64 }
+
+// skullBase classifies the clivus, a bar of bone rising anteriorly from
+// the basion, and the soft tissue and airway in front of it; ok is false
+// behind it.
+func (n *neck) skullBase(uc, vc, au, h float64) (tissue, bool) {
 	vd := -n.canA - n.bd[0]/2 + 1
 	cl := vd - 2 - h*0.55
 	if au < 13 && vc < cl+5 && vc > cl-5 && h < 45 {
-		return bone(min(5-math.Abs(vc-cl), 13-au))
+		return bone(min(5-math.Abs(vc-cl), 13-au)), true
 	}
 	if vc < cl-5 {
 		du := uc / (n.airU * 1.2)
 		dv := (vc - (cl - 5 - n.airV - 3)) / n.airV
 		if du*du+dv*dv < 1 && h < 25 {
-			return tAir
+			return tAir, true
 		}
-		return tSoft
+		return tSoft, true
 	}
-	if x, y := uc/bsU, (vc-bsV)/bsD; x*x+y*y < 1 {
-		return tCord
-	}
-	// Posterior fossa: an ellipsoid shell of occipital bone, open at the
-	// foramen magnum.
+	return 0, false
+}
+
+// fossaShell classifies the posterior fossa's ellipsoid shell of
+// occipital bone, open at the foramen magnum, and the muscle outside it;
+// ok is false inside.
+func fossaShell(uc, vc, au, h float64, bs brainstem) (tissue, bool) {
 	pv, pw := 12.0, 36.0
 	ru, rv, rw := 52.0, 44.0, 40.0
 	x, y, z := uc/ru, (vc-pv)/rv, (h-pw)/rw
 	q := x*x + y*y + z*z
-	open := h < 8 && au < 16 && vc > bsV-6 && vc < 24
+	open := h < 8 && au < 16 && vc > bs.v-6 && vc < 24
 	switch {
 	case q > 1.45:
-		return tMuscle
+		return tMuscle, true
 	case q > 1.0 && !open:
 		d := (math.Sqrt(q) - 1) * 44
 		if d < 1.5 || d > 6 {
-			return tCortex
+			return tCortex, true
 		}
-		return tMarrow
+		return tMarrow, true
 	case q > 1.0:
-		return tCSF
+		return tCSF, true
 	}
+	return 0, false
+}
+
+// fossaContents classifies the inside of the posterior fossa: the
+// cisterns, the fourth ventricle and the cerebellum.
+func fossaContents(vc, au, h float64, bs brainstem) tissue {
 	// Cisterna magna behind the medulla and the fourth ventricle.
-	if h < 22 && vc > bsV+bsD && vc < bsV+bsD+10+0.3*h && au < 18 {
+	if h < 22 && vc > bs.v+bs.d && vc < bs.v+bs.d+10+0.3*h && au < 18 {
 		return tCSF
 	}
-	if d := (vc - (bsV + bsD + 3)); h > 18 && h < 34 && au < 6 && d > 0 && d < 5 {
+	if d := (vc - (bs.v + bs.d + 3)); h > 18 && h < 34 && au < 6 && d > 0 && d < 5 {
 		return tCSF
 	}
-	if vc < bsV+bsD+1 && vc > bsV-bsD-1.5 && au < bsU+1.5 {
+	if vc < bs.v+bs.d+1 && vc > bs.v-bs.d-1.5 && au < bs.u+1.5 {
 		return tCSF
 	}
 	// Cerebellar folia: thin CSF-filled sulci, concentric about the
 	// fourth ventricle.
-	r := math.Hypot(vc-(bsV+bsD+5), h-26)
+	r := math.Hypot(vc-(bs.v+bs.d+5), h-26)
 	if math.Sin(r*0.9+1.5*math.Sin(0.2*au)+1.2*math.Sin(0.13*h)) > 0.94 {
 		return tCSF
 	}

@@ -31,84 +31,114 @@ func layoutTruth(t *testing.T, cfg Config, i int) Truth {
 // partial, centred and offset positions.
 func TestTruthByConstruction(t *testing.T) {
 	cfg := DefaultConfig(11)
-	partialKept, partialLost, edge := 0, 0, 0
+	var c scenarioCounts
 	for i := range 200 {
 		tr := layoutTruth(t, cfg, i)
-		d := tr.SliceDistanceMM
-		if len(d) != tr.SliceCount || len(tr.SOPInstanceUIDs) != tr.SliceCount {
-			t.Fatalf("study %d: %d distances, %d UIDs for %d slices", i, len(d), len(tr.SOPInstanceUIDs), tr.SliceCount)
-		}
-		for k := 1; k < len(d); k++ {
-			if math.Abs(d[k]-d[k-1]-tr.SpacingMM) > 1e-9 {
-				t.Fatalf("study %d: slices %d and %d are %.4f mm apart, spacing %.4f", i, k-1, k, d[k]-d[k-1], tr.SpacingMM)
-			}
-		}
-		nearest := 0
-		for k := range d {
-			if math.Abs(d[k]) < math.Abs(d[nearest]) {
-				nearest = k
-			}
-		}
-		minAbs := math.Abs(d[nearest])
-		if tr.InSlab != (tr.MidlineIndex >= 0) || tr.InSlab != (minAbs <= tr.SpacingMM/2) {
-			t.Fatalf("study %d: InSlab %v, index %d, nearest |d| %.3f, spacing %.3f", i, tr.InSlab, tr.MidlineIndex, minAbs, tr.SpacingMM)
-		}
-		if tr.InSlab {
-			if tr.MidlineIndex != nearest || tr.MidlineSOPInstanceUID != tr.SOPInstanceUIDs[nearest] {
-				t.Fatalf("study %d: midline %d, nearest %d", i, tr.MidlineIndex, nearest)
-			}
-			if math.Abs(tr.MidlineDistanceMM+d[nearest]) > 1e-9 {
-				t.Fatalf("study %d: midline distance %.3f, slice distance %.3f", i, tr.MidlineDistanceMM, d[nearest])
-			}
-			// The scenarios keep the plane at least 0.15 slice from a tie.
-			if minAbs > 0.36*tr.SpacingMM {
-				t.Fatalf("study %d: plane %.3f mm from the nearest slice, spacing %.3f", i, minAbs, tr.SpacingMM)
-			}
-		} else if math.Abs(math.Abs(tr.MidlineDistanceMM)-(minAbs-tr.SpacingMM/2)) > 1e-9 {
-			t.Fatalf("study %d: outside by %.3f, nearest slice %.3f", i, tr.MidlineDistanceMM, minAbs)
-		}
-		n := tr.SliceCount
-		switch tr.Scenario {
-		case Centred:
-			if !tr.InSlab || math.Abs(float64(tr.MidlineIndex)-float64(n-1)/2) > 1.5 {
-				t.Errorf("study %d centred: midline %d of %d", i, tr.MidlineIndex, n)
-			}
-		case Offset:
-			off := math.Abs(float64(tr.MidlineIndex) - float64(n-1)/2)
-			fromEdge := min(tr.MidlineIndex, n-1-tr.MidlineIndex)
-			if !tr.InSlab || !(fromEdge <= 2 || off >= 0.5 && off <= 6.5) {
-				t.Errorf("study %d offset: midline %d of %d", i, tr.MidlineIndex, n)
-			}
-			if fromEdge <= 2 {
-				edge++
-			}
-		case LateralOnly:
-			if tr.InSlab || minAbs < 2*tr.SpacingMM || minAbs < 3 {
-				t.Errorf("study %d lateral_only: nearest slice %.2f mm from the plane, spacing %.2f", i, minAbs, tr.SpacingMM)
-			}
-		case Partial:
-			if tr.SliceCount >= tr.ImagesInAcquisition || tr.SliceCount < 3 {
-				t.Errorf("study %d partial: %d of %d slices", i, tr.SliceCount, tr.ImagesInAcquisition)
-			}
-			if tr.InSlab {
-				partialKept++
-			} else {
-				partialLost++
-			}
-		case Thick:
-			if tr.ThicknessMM < 3 || tr.ThicknessMM > 4 || !tr.InSlab {
-				t.Errorf("study %d thick: %.1f mm, in slab %v", i, tr.ThicknessMM, tr.InSlab)
-			}
-		}
-		if tr.Scenario != Partial && tr.SliceCount != tr.ImagesInAcquisition {
-			t.Errorf("study %d %s: %d of %d slices", i, tr.Scenario, tr.SliceCount, tr.ImagesInAcquisition)
-		}
+		checkSpacing(t, i, tr)
+		minAbs := checkNearest(t, i, tr)
+		checkScenario(t, i, tr, minAbs, &c)
 		if tr.ThicknessMM < 1 || tr.ThicknessMM > 4 || tr.SliceCount < 3 || tr.SliceCount > 40 {
 			t.Errorf("study %d: thickness %.1f, %d slices", i, tr.ThicknessMM, tr.SliceCount)
 		}
 	}
-	if partialKept < 5 || partialLost < 5 || edge < 5 {
-		t.Errorf("of 40 partial studies %d keep the midline and %d lose it; %d offset studies at the edge", partialKept, partialLost, edge)
+	if c.partialKept < 5 || c.partialLost < 5 || c.edge < 5 {
+		t.Errorf("of 40 partial studies %d keep the midline and %d lose it; %d offset studies at the edge", c.partialKept, c.partialLost, c.edge)
+	}
+}
+
+// scenarioCounts tallies the layouts TestTruthByConstruction wants to
+// see at least a few of.
+type scenarioCounts struct{ partialKept, partialLost, edge int }
+
+// checkSpacing checks that the slices stand one spacing apart along the
+// normal.
+func checkSpacing(t *testing.T, i int, tr Truth) {
+	t.Helper()
+	d := tr.SliceDistanceMM
+	if len(d) != tr.SliceCount || len(tr.SOPInstanceUIDs) != tr.SliceCount {
+		t.Fatalf("study %d: %d distances, %d UIDs for %d slices", i, len(d), len(tr.SOPInstanceUIDs), tr.SliceCount)
+	}
+	for k := 1; k < len(d); k++ {
+		if math.Abs(d[k]-d[k-1]-tr.SpacingMM) > 1e-9 {
+			t.Fatalf("study %d: slices %d and %d are %.4f mm apart, spacing %.4f", i, k-1, k, d[k]-d[k-1], tr.SpacingMM)
+		}
+	}
+}
+
+// checkNearest checks that the truth's midline slice is the one nearest
+// the plane, or that the plane lies outside the slab by the distance the
+// truth gives; it returns the nearest slice's distance.
+func checkNearest(t *testing.T, i int, tr Truth) float64 {
+	t.Helper()
+	d := tr.SliceDistanceMM
+	nearest := 0
+	for k := range d {
+		if math.Abs(d[k]) < math.Abs(d[nearest]) {
+			nearest = k
+		}
+	}
+	minAbs := math.Abs(d[nearest])
+	if tr.InSlab != (tr.MidlineIndex >= 0) || tr.InSlab != (minAbs <= tr.SpacingMM/2) {
+		t.Fatalf("study %d: InSlab %v, index %d, nearest |d| %.3f, spacing %.3f", i, tr.InSlab, tr.MidlineIndex, minAbs, tr.SpacingMM)
+	}
+	if !tr.InSlab {
+		if math.Abs(math.Abs(tr.MidlineDistanceMM)-(minAbs-tr.SpacingMM/2)) > 1e-9 {
+			t.Fatalf("study %d: outside by %.3f, nearest slice %.3f", i, tr.MidlineDistanceMM, minAbs)
+		}
+		return minAbs
+	}
+	if tr.MidlineIndex != nearest || tr.MidlineSOPInstanceUID != tr.SOPInstanceUIDs[nearest] {
+		t.Fatalf("study %d: midline %d, nearest %d", i, tr.MidlineIndex, nearest)
+	}
+	if math.Abs(tr.MidlineDistanceMM+d[nearest]) > 1e-9 {
+		t.Fatalf("study %d: midline distance %.3f, slice distance %.3f", i, tr.MidlineDistanceMM, d[nearest])
+	}
+	// The scenarios keep the plane at least 0.15 slice from a tie.
+	if minAbs > 0.36*tr.SpacingMM {
+		t.Fatalf("study %d: plane %.3f mm from the nearest slice, spacing %.3f", i, minAbs, tr.SpacingMM)
+	}
+	return minAbs
+}
+
+// checkScenario checks what each scenario promises about where the
+// midline lies and how many slices the slab keeps.
+func checkScenario(t *testing.T, i int, tr Truth, minAbs float64, c *scenarioCounts) {
+	t.Helper()
+	n := tr.SliceCount
+	switch tr.Scenario {
+	case Centred:
+		if !tr.InSlab || math.Abs(float64(tr.MidlineIndex)-float64(n-1)/2) > 1.5 {
+			t.Errorf("study %d centred: midline %d of %d", i, tr.MidlineIndex, n)
+		}
+	case Offset:
+		off := math.Abs(float64(tr.MidlineIndex) - float64(n-1)/2)
+		fromEdge := min(tr.MidlineIndex, n-1-tr.MidlineIndex)
+		if !tr.InSlab || !(fromEdge <= 2 || off >= 0.5 && off <= 6.5) {
+			t.Errorf("study %d offset: midline %d of %d", i, tr.MidlineIndex, n)
+		}
+		if fromEdge <= 2 {
+			c.edge++
+		}
+	case LateralOnly:
+		if tr.InSlab || minAbs < 2*tr.SpacingMM || minAbs < 3 {
+			t.Errorf("study %d lateral_only: nearest slice %.2f mm from the plane, spacing %.2f", i, minAbs, tr.SpacingMM)
+		}
+	case Partial:
+		if tr.SliceCount >= tr.ImagesInAcquisition || tr.SliceCount < 3 {
+			t.Errorf("study %d partial: %d of %d slices", i, tr.SliceCount, tr.ImagesInAcquisition)
+		}
+		if tr.InSlab {
+			c.partialKept++
+		} else {
+			c.partialLost++
+		}
+	case Thick:
+		if tr.ThicknessMM < 3 || tr.ThicknessMM > 4 || !tr.InSlab {
+			t.Errorf("study %d thick: %.1f mm, in slab %v", i, tr.ThicknessMM, tr.InSlab)
+		}
+	}
+	if tr.Scenario != Partial && tr.SliceCount != tr.ImagesInAcquisition {
+		t.Errorf("study %d %s: %d of %d slices", i, tr.Scenario, tr.SliceCount, tr.ImagesInAcquisition)
 	}
 }
 

@@ -157,19 +157,18 @@ type mrHeader struct {
 
 // protocol is one series' acquisition parameters and descriptive text.
 type protocol struct {
-	seriesUID    string
-	number       int
-	description  string
-	seqName      string
-	tr, te       float64
-	etl          int
-	flip         float64
-	averages     float64
-	bandwidth    float64
-	acquired     int  // Images in Acquisition (0020,1002)
-	writeAcq     bool // whether to write it
-	reverse      bool // Instance Number ascending against the normal
-	instanceBase int
+	seriesUID   string
+	number      int
+	description string
+	seqName     string
+	tr, te      float64
+	etl         int
+	flip        float64
+	averages    float64
+	bandwidth   float64
+	acquired    int  // Images in Acquisition (0020,1002)
+	writeAcq    bool // whether to write it
+	reverse     bool // Instance Number ascending against the normal
 }
 
 // mrInstance encodes slice i of a series as a Part 10 MR Image Storage

@@ -145,47 +145,61 @@ func TestPydicomGeometry(t *testing.T) {
 		if len(rows) != tr.SliceCount {
 			t.Fatalf("study %d %s: pydicom read %d files, truth has %d slices", i, tr.Scenario, len(rows), tr.SliceCount)
 		}
-		index := map[string]int{}
-		for k, uid := range tr.SOPInstanceUIDs {
-			index[uid] = k
+		checkPydicomRows(t, i, tr, rows)
+	}
+}
+
+// checkPydicomRows compares what pydicom read from one study's files
+// with its Truth, file by file, and the order along the normal.
+func checkPydicomRows(t *testing.T, i int, tr Truth, rows []pyRow) {
+	t.Helper()
+	index := map[string]int{}
+	for k, uid := range tr.SOPInstanceUIDs {
+		index[uid] = k
+	}
+	order := make([]float64, tr.SliceCount)
+	for _, r := range rows {
+		k, ok := index[r.Sop]
+		if !ok || r.Series != tr.SeriesInstanceUID {
+			t.Fatalf("study %d: file %s not in truth", i, r.Sop)
 		}
-		order := make([]float64, tr.SliceCount)
-		for _, r := range rows {
-			k, ok := index[r.Sop]
-			if !ok || r.Series != tr.SeriesInstanceUID {
-				t.Fatalf("study %d: file %s not in truth", i, r.Sop)
-			}
-			// DS values carry 6 decimals (PS3.5 6.2 limits DS to 16
-			// characters), so positions agree to about 1e-5 mm.
-			if d := math.Abs(r.Distance - tr.SliceDistanceMM[k]); d > 1e-3 {
-				t.Errorf("study %d slice %d: pydicom distance %.5f, truth %.5f", i, k, r.Distance, tr.SliceDistanceMM[k])
-			}
-			order[k] = r.Position
-			if r.Instance != tr.InstanceNumbers[k] || r.Acquired != -1 && r.Acquired != tr.ImagesInAcquisition {
-				t.Errorf("study %d slice %d: instance %d acquired %d, truth %d of %d", i, k, r.Instance, r.Acquired, tr.InstanceNumbers[k], tr.ImagesInAcquisition)
-			}
-			if tr.Scenario == Partial && r.Acquired != tr.ImagesInAcquisition {
-				t.Errorf("study %d: partial series without Images in Acquisition", i)
-			}
-			if r.SopClass != "1.2.840.10008.5.1.4.1.1.4" || r.TS != "1.2.840.10008.1.2.1" {
-				t.Errorf("study %d: SOP class %s, transfer syntax %s", i, r.SopClass, r.TS)
-			}
-			if math.Abs(r.Thickness-tr.ThicknessMM) > 1e-6 || math.Abs(r.Spacing-tr.SpacingMM) > 1e-5 ||
-				math.Abs(r.Pixel[0]-tr.PixelSpacingMM) > 1e-6 || math.Abs(r.Pixel[1]-tr.PixelSpacingMM) > 1e-6 {
-				t.Errorf("study %d: thickness %g spacing %g pixel %v; truth %g %g %g", i, r.Thickness, r.Spacing, r.Pixel, tr.ThicknessMM, tr.SpacingMM, tr.PixelSpacingMM)
-			}
-			if r.Shape[0] != tr.Rows || r.Shape[1] != tr.Columns || r.Max > 4095 || r.Max < 500 {
-				t.Errorf("study %d: pixel array %v max %d, truth %dx%d", i, r.Shape, r.Max, tr.Rows, tr.Columns)
-			}
-			if r.TR < 2500 || r.TR > 4500 || r.TE < 90 || r.TE > 120 || !strings.HasPrefix(r.Name, "PHANTOM^CROSS") {
-				t.Errorf("study %d: TR %g TE %g name %q", i, r.TR, r.TE, r.Name)
-			}
+		// DS values carry 6 decimals (PS3.5 6.2 limits DS to 16
+		// characters), so positions agree to about 1e-5 mm.
+		if d := math.Abs(r.Distance - tr.SliceDistanceMM[k]); d > 1e-3 {
+			t.Errorf("study %d slice %d: pydicom distance %.5f, truth %.5f", i, k, r.Distance, tr.SliceDistanceMM[k])
 		}
-		for k := 1; k < len(order); k++ {
-			if order[k] <= order[k-1] {
-				t.Fatalf("study %d: truth slice %d is not after slice %d along the normal", i, k, k-1)
-			}
+		order[k] = r.Position
+		checkPydicomHeader(t, i, k, tr, r)
+	}
+	for k := 1; k < len(order); k++ {
+		if order[k] <= order[k-1] {
+			t.Fatalf("study %d: truth slice %d is not after slice %d along the normal", i, k, k-1)
 		}
+	}
+}
+
+// checkPydicomHeader compares one file's identifiers, counts, geometry
+// and pixel array, as pydicom read them, with the Truth of slice k.
+func checkPydicomHeader(t *testing.T, i, k int, tr Truth, r pyRow) {
+	t.Helper()
+	if r.Instance != tr.InstanceNumbers[k] || r.Acquired != -1 && r.Acquired != tr.ImagesInAcquisition {
+		t.Errorf("study %d slice %d: instance %d acquired %d, truth %d of %d", i, k, r.Instance, r.Acquired, tr.InstanceNumbers[k], tr.ImagesInAcquisition)
+	}
+	if tr.Scenario == Partial && r.Acquired != tr.ImagesInAcquisition {
+		t.Errorf("study %d: partial series without Images in Acquisition", i)
+	}
+	if r.SopClass != "1.2.840.10008.5.1.4.1.1.4" || r.TS != "1.2.840.10008.1.2.1" {
+		t.Errorf("study %d: SOP class %s, transfer syntax %s", i, r.SopClass, r.TS)
+	}
+	if math.Abs(r.Thickness-tr.ThicknessMM) > 1e-6 || math.Abs(r.Spacing-tr.SpacingMM) > 1e-5 ||
+		math.Abs(r.Pixel[0]-tr.PixelSpacingMM) > 1e-6 || math.Abs(r.Pixel[1]-tr.PixelSpacingMM) > 1e-6 {
+		t.Errorf("study %d: thickness %g spacing %g pixel %v; truth %g %g %g", i, r.Thickness, r.Spacing, r.Pixel, tr.ThicknessMM, tr.SpacingMM, tr.PixelSpacingMM)
+	}
+	if r.Shape[0] != tr.Rows || r.Shape[1] != tr.Columns || r.Max > 4095 || r.Max < 500 {
+		t.Errorf("study %d: pixel array %v max %d, truth %dx%d", i, r.Shape, r.Max, tr.Rows, tr.Columns)
+	}
+	if r.TR < 2500 || r.TR > 4500 || r.TE < 90 || r.TE > 120 || !strings.HasPrefix(r.Name, "PHANTOM^CROSS") {
+		t.Errorf("study %d: TR %g TE %g name %q", i, r.TR, r.TE, r.Name)
 	}
 }
 
