@@ -110,44 +110,23 @@ func TestCodecPixelsMatchReference(t *testing.T) {
 		testtool.Command(t, tool)
 	}
 	files := append(dicomFiles(t, testtool.RealData(t)), dicomFiles(t, testtool.PydicomTestFiles)...)
-	type key struct{ ts, ref string }
-	type tally struct{ compared, equal int }
-	counts := map[key]*tally{}
+	counts := map[refKey]*refTally{}
 	var multi []string
 	tmp := t.TempDir()
 	for i, path := range files {
 		inst, err := readFile(t, New(Options{}), path)
-		if err != nil || inst.Rows == 0 {
-			continue // not an image midsag reads
-		}
-		ts := inst.TransferSyntaxUID
-		_, native := dcmtkDecompress[ts]
-		native = native && dcmtkDecompress[ts][0] == "dcmconv"
-		if _, ok := SupportedSyntaxes[ts]; !ok || ts == midsag.DeflatedImageFrameCompression ||
-			(inst.BitsAllocated != 1 && inst.BitsAllocated != 8 && inst.BitsAllocated != 16) ||
-			(inst.SamplesPerPixel != 1 && inst.SamplesPerPixel != 3) ||
-			(native && inst.Photometric == "YBR_FULL_422") {
-			continue
+		if err != nil || inst.Rows == 0 || !comparable(inst) {
+			continue // not an image midsag reads, or none the references write
 		}
 		name := strings.TrimPrefix(path, filepath.Dir(filepath.Dir(path))+"/")
 		got, derr := Decode(inst)
 		if r, _ := midsag.ReasonOf(derr); r == midsag.ReasonUnsupportedSyntax && strings.Contains(derr.Error(), "12-bit") {
 			continue // refused by design; TestCodecJPEG12BitRefused
 		}
-		refs := map[string][]string{"GDCM": {gdcm, "--raw"}}
-		if _, ok := lossyTolerance[ts]; ok && inst.SamplesPerPixel == 3 && strings.HasPrefix(ts, "1.2.840.10008.1.2.4.5") {
-			// gdcmconv --raw keeps a lossy JPEG's YBR_FULL photometric
-			// interpretation and writes Y, Cb, Cr, where midsag, like
-			// dcmdjpeg, converts to RGB: only DCMTK compares here.
-			delete(refs, "GDCM")
-		}
-		if args, ok := dcmtkDecompress[ts]; ok {
-			refs["DCMTK "+args[0]] = args
-		}
 		if inst.NumberOfFrames > 1 {
 			multi = append(multi, fmt.Sprintf("%s (%d frames)", name, inst.NumberOfFrames))
 		}
-		for ref, args := range refs {
+		for ref, args := range referenceDecoders(inst, gdcm) {
 			raw := filepath.Join(tmp, fmt.Sprintf("raw%d-%s.dcm", i, strings.Fields(ref)[0]))
 			out, rerr := exec.Command(args[0], append(args[1:], path, raw)...).CombinedOutput()
 			if rerr != nil {
@@ -157,47 +136,108 @@ func TestCodecPixelsMatchReference(t *testing.T) {
 				continue
 			}
 			if derr != nil {
-				t.Errorf("%s (%s): midsag refuses a file %s decodes: %v", name, ts, ref, derr)
+				t.Errorf("%s (%s): midsag refuses a file %s decodes: %v", name, inst.TransferSyntaxUID, ref, derr)
 				continue
 			}
-			want := mustReadDecode(t, raw)
-			k := key{ts, ref}
+			k := refKey{inst.TransferSyntaxUID, ref}
 			if counts[k] == nil {
-				counts[k] = &tally{}
+				counts[k] = &refTally{}
 			}
 			counts[k].compared++
-			if want.Rows != got.Rows || want.Columns != got.Columns {
-				t.Errorf("%s: %dx%d, %s %dx%d", name, got.Rows, got.Columns, ref, want.Rows, want.Columns)
-				continue
-			}
-			d, tol := maxDiff(want, got), lossyTolerance[ts].max
-			frame, _ := frameBytes(inst)
-			if inst.SamplesPerPixel == 3 && chromaSubsampled(frame) {
-				// ITU-T T.81 A.1.1 leaves chroma upsampling to the
-				// application: IJG libjpeg interpolates ("fancy"
-				// upsampling), Go's image/jpeg repeats samples, so colour
-				// edges differ by tens of levels. The mean is bounded by 2
-				// levels in 255 instead (measured: 0.04 for 4:2:2, 1.1 to
-				// 1.4 for 4:2:0 and 4:1:1 on pydicom's colour-bar files).
-				if m := meanDiff(want, got); m > 2 {
-					t.Errorf("%s (%s, subsampled chroma): mean difference from %s %.3f > 2", name, ts, ref, m)
-				} else {
-					t.Logf("%s (%s, subsampled chroma): mean difference from %s %.3f, largest %g", name, ts, ref, m, d)
-				}
-				continue
-			}
-			if d > tol {
-				t.Errorf("%s (%s): largest difference from %s %g, allowed %g", name, ts, ref, d, tol)
-				continue
-			}
-			if d == 0 {
+			if comparePixels(t, name, ref, inst, got, mustReadDecode(t, raw)) {
 				counts[k].equal++
-			} else {
-				t.Logf("%s (%s): largest difference from %s %g", name, ts, ref, d)
 			}
 		}
 	}
-	var keys []key
+	logAndCheckCoverage(t, counts, multi)
+}
+
+// refKey and refTally count the reference comparisons by transfer syntax
+// and reference decoder.
+type (
+	refKey   struct{ ts, ref string }
+	refTally struct{ compared, equal int }
+)
+
+// comparable reports whether an image is one the comparison covers: Bits
+// Allocated 1, 8 or 16; 1 or 3 samples; a transfer syntax in
+// SupportedSyntaxes other than Deflated Image Frame Compression, which
+// the references do not know; no YBR_FULL_422 in a native syntax.
+func comparable(inst *midsag.Instance) bool {
+	ts := inst.TransferSyntaxUID
+	args, native := dcmtkDecompress[ts]
+	native = native && args[0] == "dcmconv"
+	if _, ok := SupportedSyntaxes[ts]; !ok || ts == midsag.DeflatedImageFrameCompression {
+		return false
+	}
+	if inst.BitsAllocated != 1 && inst.BitsAllocated != 8 && inst.BitsAllocated != 16 {
+		return false
+	}
+	if inst.SamplesPerPixel != 1 && inst.SamplesPerPixel != 3 {
+		return false
+	}
+	return !(native && inst.Photometric == "YBR_FULL_422")
+}
+
+// referenceDecoders returns the command lines that write inst as
+// uncompressed Explicit VR Little Endian, by reference name.
+func referenceDecoders(inst *midsag.Instance, gdcm string) map[string][]string {
+	ts := inst.TransferSyntaxUID
+	refs := map[string][]string{"GDCM": {gdcm, "--raw"}}
+	if _, ok := lossyTolerance[ts]; ok && inst.SamplesPerPixel == 3 && strings.HasPrefix(ts, "1.2.840.10008.1.2.4.5") {
+		// gdcmconv --raw keeps a lossy JPEG's YBR_FULL photometric
+		// interpretation and writes Y, Cb, Cr, where midsag, like
+		// dcmdjpeg, converts to RGB: only DCMTK compares here.
+		delete(refs, "GDCM")
+	}
+	if args, ok := dcmtkDecompress[ts]; ok {
+		refs["DCMTK "+args[0]] = args
+	}
+	return refs
+}
+
+// comparePixels compares midsag's decode of inst with a reference's and
+// reports whether they are exactly equal; a difference beyond the
+// syntax's tolerance is an error.
+func comparePixels(t *testing.T, name, ref string, inst *midsag.Instance, got, want *midsag.Image) bool {
+	t.Helper()
+	ts := inst.TransferSyntaxUID
+	if want.Rows != got.Rows || want.Columns != got.Columns {
+		t.Errorf("%s: %dx%d, %s %dx%d", name, got.Rows, got.Columns, ref, want.Rows, want.Columns)
+		return false
+	}
+	d, tol := maxDiff(want, got), lossyTolerance[ts].max
+	frame, _ := frameBytes(inst)
+	if inst.SamplesPerPixel == 3 && chromaSubsampled(frame) {
+		// ITU-T T.81 A.1.1 leaves chroma upsampling to the application:
+		// IJG libjpeg interpolates ("fancy" upsampling), Go's image/jpeg
+		// repeats samples, so colour edges differ by tens of levels. The
+		// mean is bounded by 2 levels in 255 instead (measured: 0.04 for
+		// 4:2:2, 1.1 to 1.4 for 4:2:0 and 4:1:1 on pydicom's colour-bar
+		// files).
+		if m := meanDiff(want, got); m > 2 {
+			t.Errorf("%s (%s, subsampled chroma): mean difference from %s %.3f > 2", name, ts, ref, m)
+		} else {
+			t.Logf("%s (%s, subsampled chroma): mean difference from %s %.3f, largest %g", name, ts, ref, m, d)
+		}
+		return false
+	}
+	if d > tol {
+		t.Errorf("%s (%s): largest difference from %s %g, allowed %g", name, ts, ref, d, tol)
+		return false
+	}
+	if d != 0 {
+		t.Logf("%s (%s): largest difference from %s %g", name, ts, ref, d)
+	}
+	return d == 0
+}
+
+// logAndCheckCoverage logs the tallies and fails when a syntax the
+// samples hold was never compared: a comparison that silently found none
+// would prove nothing.
+func logAndCheckCoverage(t *testing.T, counts map[refKey]*refTally, multi []string) {
+	t.Helper()
+	var keys []refKey
 	for k := range counts {
 		keys = append(keys, k)
 	}
@@ -208,15 +248,14 @@ func TestCodecPixelsMatchReference(t *testing.T) {
 		t.Logf("%s %s vs %s: %d compared, %d exactly equal, the rest within tolerance (largest %g; mean 2 for subsampled chroma)", k.ts, syntaxNames[k.ts], k.ref, counts[k].compared, counts[k].equal, lossyTolerance[k.ts].max)
 	}
 	t.Logf("multi-frame files (frame 0 compared): %s", strings.Join(multi, ", "))
-	// The samples hold these syntaxes (FILES.tsv, pydicom's test files);
-	// a comparison that silently found none would prove nothing.
-	need := []key{{midsag.ExplicitVRLittleEndian, "GDCM"}, {midsag.RLELossless, "DCMTK dcmdrle"},
+	// The samples hold these syntaxes (FILES.tsv, pydicom's test files).
+	need := []refKey{{midsag.ExplicitVRLittleEndian, "GDCM"}, {midsag.RLELossless, "DCMTK dcmdrle"},
 		{midsag.JPEGLosslessSV1, "DCMTK dcmdjpeg"}, {midsag.JPEGBaseline8Bit, "DCMTK dcmdjpeg"}}
 	if codec.JPEG2000Built {
-		need = append(need, key{midsag.JPEG2000Lossless, "GDCM"}, key{midsag.JPEG2000, "GDCM"})
+		need = append(need, refKey{midsag.JPEG2000Lossless, "GDCM"}, refKey{midsag.JPEG2000, "GDCM"})
 	}
 	if codec.JPEGLSBuilt {
-		need = append(need, key{midsag.JPEGLSLossless, "GDCM"}, key{midsag.JPEGLSLossless, "DCMTK dcmdjpls"})
+		need = append(need, refKey{midsag.JPEGLSLossless, "GDCM"}, refKey{midsag.JPEGLSLossless, "DCMTK dcmdjpls"})
 	}
 	for _, k := range need {
 		if counts[k] == nil {

@@ -126,6 +126,15 @@ type geom struct{ position, orientation bool }
 // a macro is either shared or per-frame, and a per-frame value is the one
 // that holds for its frame).
 func applyGroup(g attrs, f *midsag.FrameAttrs, seen geom) geom {
+	seen = applyPlane(g, f, seen)
+	applyMR(g, f)
+	applyContent(g, f)
+	applyConverted(g, f)
+	return seen
+}
+
+// applyPlane applies the plane and pixel measures macros.
+func applyPlane(g attrs, f *midsag.FrameAttrs, seen geom) geom {
 	// Plane Position (Patient) macro, PS3.3 C.7.6.16.2.3.
 	if it, ok := g.item(tag.PlanePositionSequence); ok {
 		if v := it.floats(tag.ImagePositionPatient); len(v) == 3 {
@@ -152,6 +161,12 @@ func applyGroup(g attrs, f *midsag.FrameAttrs, seen geom) geom {
 			f.SpacingBetweenSlices = it.float(tag.SpacingBetweenSlices, 0)
 		}
 	}
+	return seen
+}
+
+// applyMR applies the MR macros: timing, echo, modifier, diffusion and
+// frame type (PS3.3 C.8.13.5).
+func applyMR(g attrs, f *midsag.FrameAttrs) {
 	// MR Timing and Related Parameters macro, PS3.3 C.8.13.5.2.
 	if it, ok := g.item(tag.MRTimingAndRelatedParametersSequence); ok {
 		if it.has(tag.RepetitionTime) {
@@ -187,6 +202,11 @@ func applyGroup(g attrs, f *midsag.FrameAttrs, seen geom) geom {
 			f.ImageType = v
 		}
 	}
+}
+
+// applyContent applies the Pixel Value Transformation and Frame Content
+// macros.
+func applyContent(g attrs, f *midsag.FrameAttrs) {
 	// Pixel Value Transformation macro, PS3.3 C.7.6.16.2.9.
 	if it, ok := g.item(tag.PixelValueTransformationSequence); ok {
 		if it.has(tag.RescaleSlope) {
@@ -207,6 +227,11 @@ func applyGroup(g attrs, f *midsag.FrameAttrs, seen geom) geom {
 			}
 		}
 	}
+}
+
+// applyConverted applies the converted-attributes macros of a Legacy
+// Converted Enhanced image.
+func applyConverted(g attrs, f *midsag.FrameAttrs) {
 	// Unassigned Shared and Per-frame Converted Attributes macros of a
 	// Legacy Converted Enhanced image (PS3.3 C.7.6.16.2.24, C.7.6.16.2.25)
 	// keep the source images' MR Image module attributes (PS3.3 C.8.3.1)
@@ -229,7 +254,6 @@ func applyGroup(g attrs, f *midsag.FrameAttrs, seen geom) geom {
 			f.FlipAngle = it.float(tag.FlipAngle, 0)
 		}
 	}
-	return seen
 }
 
 // offsetTable returns the frame offsets of encapsulated pixel data: the

@@ -186,9 +186,39 @@ func PickSeries(st *midsag.Study, minSlices int) (*midsag.Series, []midsag.Serie
 
 func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 	c := &candidate{series: se, eligible: true}
+	first, images := c.majorityOrientation(se)
+	if first == nil {
+		c.exclude("no image pixels")
+		return c
+	}
+	if first.Modality != "" && first.Modality != "MR" {
+		c.exclude("modality %s, not MR", first.Modality)
+	}
+	c.judgeDerivation(first)
+	c.judgeContrast(se)
+	if first.NumberOfFrames > 1 && !midsag.FramesAsSlices(first.SOPClassUID) {
+		c.exclude("multi-frame instances (%d frames) of SOP Class %s are not read as slices; only Enhanced MR and Legacy Converted Enhanced MR frames are", first.NumberOfFrames, first.SOPClassUID)
+	}
+	c.judgePlane(first)
+	c.judgeInversion(first)
+	t2ish := c.judgeWeighting(se, first)
+	if hasAny(first.SequenceVariant, "MP") {
+		c.add(-1, "magnetization-prepared sequence (Sequence Variant MP)")
+	}
+	if !t2ish && !c.stir {
+		c.exclude("not T2-weighted")
+	}
+	c.judgeCoverage(first, images, minSlices)
+	c.judgeDescription(se.Description)
+	return c
+}
+
+// majorityOrientation returns an image of the series' most common
+// orientation and the number of images with pixels. The series is judged
+// by that orientation, so one stray slice does not hide a sagittal
+// series; SortSlices refuses the mix.
+func (c *candidate) majorityOrientation(se *midsag.Series) (*midsag.Instance, int) {
 	images := 0
-	// The series is judged by its most common orientation, so one stray
-	// slice does not hide a sagittal series; SortSlices refuses the mix.
 	votes := map[[3]int]int{}
 	var first *midsag.Instance
 	best := 0
@@ -204,32 +234,29 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 			best, first = votes[key], in
 		}
 	}
-	if first == nil {
-		c.exclude("no image pixels")
-		return c
-	}
-	if best < images {
+	if first != nil && best < images {
 		c.reasons = append(c.reasons, fmt.Sprintf("%d of %d slices have another orientation", images-best, images))
 	}
-	if first.Modality != "" && first.Modality != "MR" {
-		c.exclude("modality %s, not MR", first.Modality)
-	}
-	c.judgeDerivation(first)
-	c.judgeContrast(se)
-	if first.NumberOfFrames > 1 && !midsag.FramesAsSlices(first.SOPClassUID) {
-		c.exclude("multi-frame instances (%d frames) of SOP Class %s are not read as slices; only Enhanced MR and Legacy Converted Enhanced MR frames are", first.NumberOfFrames, first.SOPClassUID)
-	}
+	return first, images
+}
+
+// judgePlane scores how close the slice normal is to the left-right axis.
+func (c *candidate) judgePlane(first *midsag.Instance) {
 	if !first.HasGeometry {
 		c.exclude("no Image Orientation/Position (Patient)")
-	} else {
-		n := Normal(first)
-		ang := angleToAxisDeg(n, 0)
-		if ang <= SagittalMaxAngleDeg {
-			c.add(4, "sagittal: slice normal %.1f deg from the left-right axis", ang)
-		} else {
-			c.exclude("not sagittal: slice normal %.1f deg from the left-right axis (limit %.0f)", ang, SagittalMaxAngleDeg)
-		}
+		return
 	}
+	ang := angleToAxisDeg(Normal(first), 0)
+	if ang <= SagittalMaxAngleDeg {
+		c.add(4, "sagittal: slice normal %.1f deg from the left-right axis", ang)
+	} else {
+		c.exclude("not sagittal: slice normal %.1f deg from the left-right axis (limit %.0f)", ang, SagittalMaxAngleDeg)
+	}
+}
+
+// judgeInversion marks short-TI inversion recovery as STIR and excludes
+// long-TI (fluid-nulled) inversion recovery.
+func (c *candidate) judgeInversion(first *midsag.Instance) {
 	ti := first.InversionTime
 	ir := ti > 0 || hasAny(first.ScanningSequence, "IR")
 	switch {
@@ -239,30 +266,33 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 	case ir:
 		c.exclude("inversion recovery with TI %.0f ms: fluid-nulled (FLAIR-like)", ti)
 	}
-	t2ish := c.judgeWeighting(se, first)
-	if hasAny(first.SequenceVariant, "MP") {
-		c.add(-1, "magnetization-prepared sequence (Sequence Variant MP)")
-	}
-	if !t2ish && !c.stir {
-		c.exclude("not T2-weighted")
-	}
+}
+
+// judgeCoverage excludes a series with fewer slices than the stack needs
+// and favours one that covers the spine from side to side.
+func (c *candidate) judgeCoverage(first *midsag.Instance, images, minSlices int) {
 	if images < minSlices || images < 3 {
 		if c.eligible {
 			c.fewSlices = true
 		}
 		c.exclude("%d slices, fewer than the %d the stack needs", images, max(minSlices, 3))
-	} else {
-		if images >= 9 {
-			c.add(1, "%d slices", images)
-		}
-		cover := float64(images) * first.SliceThickness
-		if cover >= 30 {
-			c.add(0.5, "covers about %.0f mm left to right", cover)
-		}
+		return
 	}
-	d := se.Description
+	if images >= 9 {
+		c.add(1, "%d slices", images)
+	}
+	if cover := float64(images) * first.SliceThickness; cover >= 30 {
+		c.add(0.5, "covers about %.0f mm left to right", cover)
+	}
+}
+
+// judgeDescription nudges the score by what the Series Description
+// suggests about contrast and plane; the header attributes lead.
+func (c *candidate) judgeDescription(d string) {
+	if d == "" {
+		return
+	}
 	switch {
-	case d == "":
 	case descSTIR.MatchString(d):
 		c.add(-0.5, "description %q suggests STIR", d)
 	case descT2.MatchString(d):
@@ -271,7 +301,6 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 		c.add(-0.5, "description %q suggests T1", d)
 	}
 	switch {
-	case d == "":
 	case descLoc.MatchString(d):
 		c.add(-0.5, "description %q suggests a localizer", d)
 	case descSag.MatchString(d):
@@ -279,7 +308,6 @@ func scoreSeries(se *midsag.Series, minSlices int) *candidate {
 	case descOther.MatchString(d):
 		c.add(-0.25, "description %q suggests another plane", d)
 	}
-	return c
 }
 
 // judgeWeighting scores the contrast from TE first, then TR (PS3.3
