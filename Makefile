@@ -17,7 +17,7 @@ ifneq ($(CODEC_TAGS),)
 export GOFLAGS := $(strip $(GOFLAGS) -tags=$(subst $(eval) ,$(comma),$(CODEC_TAGS)))
 endif
 
-.PHONY: all build ort demo test test-long bench vet fmt clean gen-api
+.PHONY: all build ort demo test test-long race lint tools bench vet fmt clean gen-api
 
 all: build
 
@@ -47,6 +47,29 @@ test: ort
 	GOFLAGS= MIDSAG_REQUIRE_CODECS= $(GO) test -count=1 \
 	  -run 'TestCodecSyntaxListsMatchBuild|TestCodecRefusesOrDecodesWithoutLibrary|TestUnsupportedSyntaxNamesUID|TestCorruptCodestreams' \
 	  ./preprocess/ ./preprocess/codec/
+
+# race runs the race detector over the packages with concurrency. The
+# explain fidelity runs and the longest scenarios are skipped (-short):
+# under the detector they take many minutes and share no code path the
+# shorter tests miss.
+RACE_PKGS := ./server/... ./cohort/ ./explain/ ./models/ ./cmd/midsag/
+race: ort
+	$(GO) test -race -short -count=1 -timeout 30m $(RACE_PKGS)
+
+# lint: gofmt, go vet, staticcheck and gocyclo (no function above
+# cyclomatic complexity 25), the linters at pinned versions, installed
+# into bin/tools by `make tools`. Generated code under api/ is left out
+# of gocyclo.
+TOOLS := $(CURDIR)/bin/tools
+tools:
+	GOBIN=$(TOOLS) GOFLAGS= $(GO) install honnef.co/go/tools/cmd/staticcheck@v0.8.2
+	GOBIN=$(TOOLS) GOFLAGS= $(GO) install github.com/fzipp/gocyclo/cmd/gocyclo@v0.6.0
+
+lint: tools
+	@out=$$(gofmt -l $$(git ls-files '*.go')); if [ -n "$$out" ]; then echo "gofmt needed:"; echo "$$out"; exit 1; fi
+	$(GO) vet ./...
+	$(TOOLS)/staticcheck ./...
+	$(TOOLS)/gocyclo -over 25 -ignore '^api/' .
 
 # test-long adds the soak and scale runs kept out of the default suite.
 test-long: ort

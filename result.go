@@ -28,7 +28,7 @@ type Score struct {
 }
 
 // Result is the outcome of scoring one study. Its JSON form is the public
-// result contract (DESIGN.md); field names follow the proto's snake_case.
+// result contract (docs/ARCHITECTURE.md); field names follow the proto's snake_case.
 type Result struct {
 	ResultID             string    `json:"result_id"`
 	CreatedAt            time.Time `json:"created_at"`

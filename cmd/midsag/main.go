@@ -27,7 +27,7 @@ func register(name, summary string, run func(ctx context.Context, args []string,
 	commands[name] = command{summary: summary, run: run}
 }
 
-// Exit codes (DESIGN.md).
+// Exit codes (docs/ARCHITECTURE.md).
 const (
 	exitOK       = 0
 	exitRuntime  = 1

@@ -40,7 +40,7 @@ func runCLI(args ...string) (int, string, string) {
 
 // TestScoreJSONContract scores a phantom study with decoy series, as a
 // folder and as a zip, and checks the result against the phantom's truth
-// and the result contract of DESIGN.md.
+// and the result contract of docs/ARCHITECTURE.md.
 func TestScoreJSONContract(t *testing.T) {
 	requireORT(t)
 	study, truth := phantomStudy(t, phantom.Options{Studies: 1, Seed: 31})
