@@ -1,12 +1,13 @@
 package evaluate
 
 import (
-	"encoding/csv"
 	"encoding/json"
 	"math"
 	"os"
 	"strconv"
 	"testing"
+
+	"github.com/midsag/midsag/internal/testtool"
 )
 
 // calibTable reads the fixed 200-row table of package models' calibration
@@ -19,16 +20,7 @@ func calibTable(t *testing.T) (prob []float64, pos []bool, ref struct {
 	} `json:"diagnostics"`
 }) {
 	t.Helper()
-	f, err := os.Open("../models/testdata/calib/table.csv")
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	recs, err := csv.NewReader(f).ReadAll()
-	if err != nil {
-		t.Fatal(err)
-	}
-	for _, r := range recs[1:] {
+	for _, r := range testtool.ReadCSV(t, "../models/testdata/calib/table.csv")[1:] {
 		p, err := strconv.ParseFloat(r[2], 64)
 		if err != nil {
 			t.Fatalf("bad row %q", r)

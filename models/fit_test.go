@@ -1,7 +1,6 @@
 package models
 
 import (
-	"encoding/csv"
 	"encoding/json"
 	"math"
 	"os"
@@ -9,6 +8,7 @@ import (
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/testtool"
 )
 
 // calibRef is testdata/calib/reference.json, written once by
@@ -39,16 +39,7 @@ type plattRef struct {
 // same 200 rows, label "pos" or "neg".
 func calibTable(t *testing.T) (logit, prob []float64, pos []bool, ref calibRef) {
 	t.Helper()
-	f, err := os.Open("testdata/calib/table.csv")
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	recs, err := csv.NewReader(f).ReadAll()
-	if err != nil {
-		t.Fatal(err)
-	}
-	for _, r := range recs[1:] {
+	for _, r := range testtool.ReadCSV(t, "testdata/calib/table.csv")[1:] {
 		l, err1 := strconv.ParseFloat(r[1], 64)
 		p, err2 := strconv.ParseFloat(r[2], 64)
 		if err1 != nil || err2 != nil {

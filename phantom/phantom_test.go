@@ -16,6 +16,7 @@ import (
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/testtool"
 )
 
 // needTool returns the path of an external tool, skipping the test when it
@@ -50,14 +51,7 @@ func writeStudyFiles(t *testing.T, dir string, files []File) []string {
 	t.Helper()
 	var paths []string
 	for _, f := range files {
-		p := filepath.Join(dir, filepath.FromSlash(f.Name))
-		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(p, f.Data, 0o644); err != nil {
-			t.Fatal(err)
-		}
-		paths = append(paths, p)
+		paths = append(paths, testtool.WriteFile(t, dir, f.Name, f.Data))
 	}
 	return paths
 }

@@ -41,15 +41,9 @@ func TestCodecReencodedStudyScoresSame(t *testing.T) {
 	dir := t.TempDir()
 	orig := filepath.Join(dir, "orig")
 	var names []string
-	for i, f := range files {
-		p := filepath.Join(orig, f.Name)
-		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(p, f.Data, 0o644); err != nil {
-			t.Fatal(err)
-		}
-		names = append(names, files[i].Name)
+	for _, f := range files {
+		testtool.WriteFile(t, orig, f.Name, f.Data)
+		names = append(names, f.Name)
 	}
 	score := func(folder string) *midsag.Result {
 		t.Helper()

@@ -3,7 +3,6 @@ package crossphantom
 import (
 	"encoding/json"
 	"math"
-	"os"
 	"os/exec"
 	"path/filepath"
 	"strconv"
@@ -18,14 +17,7 @@ func writeStudy(t *testing.T, dir string, files []File) []string {
 	t.Helper()
 	var paths []string
 	for _, f := range files {
-		p := filepath.Join(dir, filepath.FromSlash(f.Name))
-		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(p, f.Data, 0o644); err != nil {
-			t.Fatal(err)
-		}
-		paths = append(paths, p)
+		paths = append(paths, testtool.WriteFile(t, dir, f.Name, f.Data))
 	}
 	return paths
 }
