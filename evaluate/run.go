@@ -72,27 +72,28 @@ type CompareSummary struct {
 // OperatingPoint is the model's performance at one threshold; a case is
 // called positive when its score is at least Threshold.
 type OperatingPoint struct {
-	Threshold   float64    `json:"threshold"`
-	Rule        Rule       `json:"rule"`
+	Threshold float64 `json:"threshold"`
+	Rule      Rule    `json:"rule"`
+	Performance
+	CIMethod string `json:"ci_method"`
+}
+
+// Performance is binary calls scored against labels: the rates with
+// their intervals and the confusion matrix they come from.
+type Performance struct {
 	Sensitivity Proportion `json:"sensitivity"`
 	Specificity Proportion `json:"specificity"`
 	PPV         Proportion `json:"ppv"`
 	NPV         Proportion `json:"npv"`
 	Accuracy    Proportion `json:"accuracy"`
 	Confusion   Confusion  `json:"confusion"`
-	CIMethod    string     `json:"ci_method"`
 }
 
 // ReaderSummary is a human reader's binary calls on the same cases and
 // McNemar's exact test of reader against model correctness.
 type ReaderSummary struct {
-	Column      string     `json:"column"`
-	Sensitivity Proportion `json:"sensitivity"`
-	Specificity Proportion `json:"specificity"`
-	PPV         Proportion `json:"ppv"`
-	NPV         Proportion `json:"npv"`
-	Accuracy    Proportion `json:"accuracy"`
-	Confusion   Confusion  `json:"confusion"`
+	Column string `json:"column"`
+	Performance
 	// ModelOnly counts cases the model got right and the reader wrong;
 	// ReaderOnly the reverse. McNemar's test uses only these.
 	ModelOnly  int     `json:"model_right_reader_wrong"`
@@ -225,22 +226,24 @@ func operatingPoint(t *Table, roc []ROCPoint, o Options) (OperatingPoint, error)
 		}
 	}
 	c := Classify(t.Scores, t.Labels, th)
-	op := OperatingPoint{Threshold: th, Rule: rule, Confusion: c,
-		CIMethod: "Wilson score interval (Wilson 1927)"}
-	op.Sensitivity, op.Specificity, op.PPV, op.NPV, op.Accuracy = rates(c)
-	return op, nil
+	return OperatingPoint{Threshold: th, Rule: rule, Performance: performance(c),
+		CIMethod: "Wilson score interval (Wilson 1927)"}, nil
 }
 
-func rates(c Confusion) (sens, spec, ppv, npv, acc Proportion) {
-	return Wilson(c.TP, c.TP+c.FN), Wilson(c.TN, c.TN+c.FP), Wilson(c.TP, c.TP+c.FP),
-		Wilson(c.TN, c.TN+c.FN), Wilson(c.TP+c.TN, c.TP+c.TN+c.FP+c.FN)
+// performance computes the rates of a confusion matrix with Wilson
+// intervals.
+func performance(c Confusion) Performance {
+	return Performance{
+		Sensitivity: Wilson(c.TP, c.TP+c.FN), Specificity: Wilson(c.TN, c.TN+c.FP),
+		PPV: Wilson(c.TP, c.TP+c.FP), NPV: Wilson(c.TN, c.TN+c.FN),
+		Accuracy: Wilson(c.TP+c.TN, c.TP+c.TN+c.FP+c.FN), Confusion: c,
+	}
 }
 
 func readerSummary(t *Table, name string, threshold float64) (*ReaderSummary, error) {
 	c := Tally(t.Reader, t.Labels)
-	r := &ReaderSummary{Column: name, Confusion: c,
+	r := &ReaderSummary{Column: name, Performance: performance(c),
 		Method: "McNemar's exact test on paired correctness at the model's operating point (McNemar 1947)"}
-	r.Sensitivity, r.Specificity, r.PPV, r.NPV, r.Accuracy = rates(c)
 	for i, l := range t.Labels {
 		model := (t.Scores[i] >= threshold) == l
 		reader := t.Reader[i] == l
