@@ -5,7 +5,9 @@ import (
 	"io"
 	"net"
 	"os"
+	"os/exec"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 	"time"
@@ -61,6 +63,121 @@ func TestStorescuPhantomStudy(t *testing.T) {
 			checkReceived(t, sent, &got, "PACS")
 		})
 	}
+}
+
+// TestStorescuCompressedAndLegacyConverted: DCMTK storescu sends a
+// phantom series re-encoded by GDCM (gdcmconv --j2k, --jpegls: JPEG 2000
+// and JPEG-LS lossless), proposing that syntax beside the uncompressed
+// ones (storescu --help: -xv, -xt), and a Legacy Converted Enhanced MR
+// instance (PS3.4 B.5). The listener must accept each, keep the file's
+// own transfer syntax, and store the dataset unchanged.
+func TestStorescuCompressedAndLegacyConverted(t *testing.T) {
+	gdcm := testtool.GDCMConv(t)
+	study, _ := studyDir(t, 3, midsag.ExplicitVRLittleEndian)
+	ents, err := os.ReadDir(study)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cases := []struct {
+		name, flag, ts string
+		encode         []string
+	}{
+		{"jpeg2000 lossless", "-xv", midsag.JPEG2000Lossless, []string{gdcm, "--j2k"}},
+		{"jpeg-ls lossless", "-xt", midsag.JPEGLSLossless, []string{gdcm, "--jpegls"}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			dir := t.TempDir()
+			sent := map[string][]byte{}
+			for _, e := range ents[:4] {
+				out := filepath.Join(dir, e.Name())
+				if b, err := exec.Command(c.encode[0], append(c.encode[1:], filepath.Join(study, e.Name()), out)...).CombinedOutput(); err != nil {
+					t.Fatalf("%v: %v\n%s", c.encode, err, b)
+				}
+				b, err := os.ReadFile(out)
+				if err != nil {
+					t.Fatal(err)
+				}
+				if m, err := parsePart10(b); err != nil || m.TransferSyntaxUID != c.ts {
+					t.Fatalf("%s: GDCM wrote %+v (%v), want %s", e.Name(), m, err, c.ts)
+				}
+				sent[e.Name()] = b
+			}
+			storeAndCheck(t, dir, sent, c.flag)
+		})
+	}
+	t.Run("legacy converted enhanced mr", func(t *testing.T) {
+		files, _, err := phantom.GenerateStudy(phantom.Options{Seed: 3, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}}, 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		enh, err := phantom.ToEnhancedMR([][]phantom.File{files}, phantom.EnhancedOptions{SOPClassUID: midsag.LegacyConvertedEnhancedMRImageStorage})
+		if err != nil {
+			t.Fatal(err)
+		}
+		dir := t.TempDir()
+		testtool.WriteFile(t, dir, "legacy.dcm", enh.Data)
+		// storescu proposes the files' own SOP classes only with -R. It
+		// re-encodes sequences with undefined lengths, so the content is
+		// compared, not the bytes.
+		got := store(t, dir, 1, "-R")
+		m, err := parsePart10(enh.Data)
+		if err != nil {
+			t.Fatal(err)
+		}
+		rb := got.files[m.SOPInstanceUID]
+		rcv := testtool.WriteFile(t, t.TempDir(), "rcv.dcm", rb)
+		d := dumps(t, []string{filepath.Join(dir, "legacy.dcm"), rcv})
+		if a, b := contentLines(d[0]), contentLines(d[1]); a != b || a == "" {
+			t.Errorf("dcmdump of the received dataset differs from the sent one:\n%.2000s\nvs\n%.2000s", b, a)
+		}
+	})
+}
+
+// storeAndCheck sends dir with storescu (extra proposal flags after the
+// defaults) and checks every file arrived unchanged.
+func storeAndCheck(t *testing.T, dir string, sent map[string][]byte, flags ...string) {
+	t.Helper()
+	got := store(t, dir, len(sent), flags...)
+	checkReceived(t, sent, got, "PACS")
+}
+
+// store sends dir with storescu and returns what the listener received,
+// which must be n files.
+func store(t *testing.T, dir string, n int, flags ...string) *received {
+	t.Helper()
+	got := &received{}
+	_, _, port := startSCP(t, Config{}, got.handler(StatusSuccess))
+	args := append([]string{"-aet", "PACS", "-aec", "MIDSAG", "+sd", "+r"}, flags...)
+	out, err := dcmtk(t, "storescu", append(args, "127.0.0.1", port, dir)...)
+	if err != nil {
+		t.Fatalf("storescu: %v\n%s", err, out)
+	}
+	if got.count() != n {
+		t.Fatalf("handler got %d files, storescu sent %d\n%s", got.count(), n, out)
+	}
+	return got
+}
+
+// lengthMarker is dcmdump's note on how a sequence or item was encoded.
+var lengthMarker = regexp.MustCompile(`\((Sequence|Item) with (explicit|undefined) length #=\d+\)`)
+
+// contentLines keeps dcmdump's dataset element lines without the length
+// comments and the sequence and item delimiters, which differ between
+// defined- and undefined-length encodings of the same content.
+func contentLines(dump string) string {
+	var keep []string
+	for _, l := range strings.Split(datasetLines(dump), "\n") {
+		if strings.Contains(l, "Delimitation") {
+			continue
+		}
+		l = lengthMarker.ReplaceAllString(l, "")
+		if i := strings.LastIndex(l, "#"); i > 0 {
+			l = strings.TrimSpace(l[:i])
+		}
+		keep = append(keep, l)
+	}
+	return strings.Join(keep, "\n")
 }
 
 // checkReceived compares each sent file with what the handler got: the

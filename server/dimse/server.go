@@ -39,15 +39,24 @@ const (
 )
 
 // DefaultTransferSyntaxes are the transfer syntaxes accepted, in
-// preference order, when Config.TransferSyntaxes is empty.
+// preference order, when Config.TransferSyntaxes is empty: the
+// uncompressed ones first, so a peer that offers both sends native
+// pixels, then every compressed syntax midsag decodes. JPEG 2000 and
+// JPEG-LS are accepted even by a binary built without their decoders: a
+// peer that offers only them would fail its whole transfer otherwise, and
+// the study is still refused, naming the package to install, when it is
+// scored. JPEG Extended 12-bit is not accepted: midsag refuses it.
 var DefaultTransferSyntaxes = []string{
 	midsag.ExplicitVRLittleEndian, midsag.ImplicitVRLittleEndian, midsag.ExplicitVRBigEndian, midsag.DeflatedExplicitVRLittleEndian,
-	midsag.RLELossless, midsag.JPEGBaseline8Bit, midsag.JPEGLossless, midsag.JPEGLosslessSV1,
+	midsag.RLELossless, midsag.JPEGLosslessSV1, midsag.JPEGLossless, midsag.JPEGLSLossless, midsag.JPEG2000Lossless,
+	midsag.DeflatedImageFrameCompression, midsag.JPEGBaseline8Bit, midsag.JPEGLSNearLossless, midsag.JPEG2000,
 }
 
 // DefaultSOPClasses are the storage SOP classes accepted when
-// Config.SOPClasses is empty.
-var DefaultSOPClasses = []string{midsag.MRImageStorage, midsag.EnhancedMRImageStorage, midsag.SecondaryCaptureImageStorage}
+// Config.SOPClasses is empty: the image classes midsag reads slices from,
+// and Secondary Capture.
+var DefaultSOPClasses = []string{midsag.MRImageStorage, midsag.EnhancedMRImageStorage,
+	midsag.LegacyConvertedEnhancedMRImageStorage, midsag.SecondaryCaptureImageStorage}
 
 // Config configures a Server. Zero fields take the defaults above.
 type Config struct {
