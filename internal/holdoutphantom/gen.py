@@ -144,16 +144,60 @@ class Anatomy:
         # centre behind and above the foramen magnum.
         ca = a + self.neck_c
         neck = ((b / self.neck_t) ** 2 + (ca / self.neck_a) ** 2 < 1) & (w < top + 25)
-        hq = (b / 72) ** 2 + ((a - 12) / 86) ** 2 + ((w - top - 62) / 80) ** 2
-        inside = neck | (hq < 1)
-        img[inside] = S["fat"]
         ft = self.fat_t
-        deep = (b / (self.neck_t - ft)) ** 2 + (ca / (self.neck_a - ft)) ** 2 < 1
-        img[deep & neck] = S["muscle"]
+        deep = neck & ((b / (self.neck_t - ft)) ** 2 + (ca / (self.neck_a - ft)) ** 2 < 1)
+        img[neck] = S["fat"]
+        img[deep] = S["muscle"]
+        inside = neck.copy()
+        hi = np.nonzero(w > top - 40)  # the head only where it can be
+        if hi[0].size:
+            inside[hi], img[hi] = self.head(b[hi], a[hi], w[hi], img[hi], inside[hi])
+
+        # Posterior muscles in bundles with fat planes between them (a
+        # midline ligamentum nuchae, semispinalis/splenius planes).
+        pi = np.nonzero(deep & (a > self.sac_a + 4) & (w < top))
+        pa, pb = a[pi], ab[pi]
+        plane = (np.abs(pb - (14 + 0.25 * (pa - 20))) < 1.2) | (np.abs(pa - (self.sac_a + 28 + 0.2 * pb)) < 1.0)
+        sub = img[pi]
+        sub[plane] = S["fat"]
+        sub[(pb < 1.0) & (pa > self.sac_a + 4 + 0.6 * self.spine_len)] = S["ligament"]  # ligamentum nuchae
+        img[pi] = sub
+
+        # Prevertebral: longus colli, the airway with mucosa, the thyroid.
+        front = -(self.sac_a + 1.5 + 2 * self.body_d)
+        fi = np.nonzero(deep & (a < front))
+        if fi[0].size:
+            img[fi] = self.front(ab[fi], a[fi], w[fi], img[fi], front)
+
+        # The spine, drawn only in its box: most of a slice is outside it.
+        box = np.nonzero(inside & (ab < 36) & (a > -52) & (a < 62) & (w < top + 45))
+        if box[0].size:
+            img[box] = self.spine(b[box], a[box], w[box], img[box])
+        return img
+
+    def front(self, ab, a, w, img, front):
+        """Soft tissue in front of the vertebral bodies."""
+        S = SIG
+        img[(a > front - 6) & (ab < 14)] = S["muscle"]
+        air_a = front - 10 - np.clip((self.disc_w(-1) - w) * 0.12, 0, 8)
+        airway = (np.abs(a - air_a) < 6) & (ab < 10) & (w < self.top + 10)
+        img[airway & (np.abs(a - air_a) > 4.5)] = S["mucosa"]
+        img[airway & (np.abs(a - air_a) <= 4.5) & (ab < 8)] = S["air"]
+        img[(w < self.disc_w(-2)) & (a < air_a - 7) & (a > air_a - 20) & (ab > 4) & (ab < 22)] = S["gland"]
+        return img
+
+    def head(self, b, a, w, img, inside):
+        """The head above the neck: an ellipsoid behind and above the
+        foramen magnum with scalp, skull, CSF and brain, and the face in
+        front; returns the outline and the signal at the points."""
+        S = SIG
+        top = self.top
+        hq = (b / 72) ** 2 + ((a - 12) / 86) ** 2 + ((w - top - 62) / 80) ** 2
+        inside = inside | (hq < 1)
+        img = np.where((hq < 1) & (img == S["air"]), S["fat"], img).astype(np.float32)
         # Skull: scalp fat, a bone shell (cortex, marrow, cortex), a thin
         # CSF rim and brain.
-        skull = hq < (1 - 5 / 78) ** 2
-        img[skull] = S["cortex"]
+        img[hq < (1 - 5 / 78) ** 2] = S["cortex"]
         img[hq < (1 - 7.5 / 78) ** 2] = S["marrow"]
         img[hq < (1 - 10 / 78) ** 2] = S["cortex"]
         img[hq < (1 - 11 / 78) ** 2] = S["csf"]
@@ -168,31 +212,7 @@ class Anatomy:
         # Face below the skull: tongue and jaw muscle in front.
         face = inside & ~brain & (w > top - 35) & (w < top + 20) & (a < -35) & (hq > 0.6)
         img[face] = S["muscle"] * 1.2
-
-        # Posterior muscles in bundles with fat planes between them (a
-        # midline ligamentum nuchae, semispinalis/splenius planes).
-        post = deep & neck & (a > self.sac_a + 4) & (w < top)
-        plane = np.abs(ab - (14 + 0.25 * (a - 20))) < 1.2
-        plane |= np.abs(a - (self.sac_a + 28 + 0.2 * ab)) < 1.0
-        img[post & plane] = S["fat"]
-        img[post & (ab < 1.3)] = S["ligament"]
-
-        # Prevertebral: longus colli and the airway with mucosa.
-        front = -(self.sac_a + 1.5 + 2 * self.body_d)
-        lc = deep & neck & (a < front) & (a > front - 6) & (ab < 14)
-        img[lc] = S["muscle"]
-        air_a = front - 10 - np.clip((self.disc_w(-1) - w) * 0.12, 0, 8)
-        airway = deep & (np.abs(a - air_a) < 6) & (ab < 10) & (w < top + 10)
-        img[airway & (np.abs(a - air_a) > 4.5)] = S["mucosa"]
-        img[airway & (np.abs(a - air_a) <= 4.5) & (ab < 8)] = S["air"]
-        thyroid = deep & (w < self.disc_w(-2)) & (a < air_a - 7) & (a > air_a - 20) & (ab > 4) & (ab < 22)
-        img[thyroid] = S["gland"]
-
-        # The spine, drawn only in its box: most of a slice is outside it.
-        box = np.nonzero(inside & (ab < 36) & (a > -52) & (a < 62) & (w < top + 45))
-        if box[0].size:
-            img[box] = self.spine(b[box], a[box], w[box], img[box])
-        return img
+        return inside, img
 
     def spine(self, b, a, w, img):
         """The vertebral column and the canal at points b (lateral), a
@@ -254,7 +274,7 @@ class Anatomy:
         img[va & (w < c2_top + 10) & (w > lowest)] = S["vessel"]
 
         # Laminae behind the canal and the spinous processes: midline,
-        # sloping downwards, bifid at the tip from C3 to C6, C7 longest.
+        # sloping downwards.
         level = np.floor(kf)  # the body above disc kn lies between kn and kn+1
         bw = w - (level + 0.5) * self.step  # from the body's centre
         lam_a = a - self.sac_a
@@ -264,16 +284,25 @@ class Anatomy:
         img[lam_in] = S["marrow"]
         lf = spine & (lam_a > 0.3) & (lam_a < 3.0) & (ab < self.sac_t) & ~lamina
         img[lf] = S["ligament"]  # ligamentum flavum between laminae
-        length = self.spine_len + np.where(level <= -3, 10, 0) + np.where(level >= 1, -4, 0)
         sp_a = lam_a - 3.5
-        along = sp_a / np.maximum(length, 1)
-        sp_w = bw + 0.45 * sp_a  # slopes down behind
-        tip = along > 0.7
-        half = np.where(tip & (level > -3) & (level < 2), 0, 2.6 - 0.8 * along)
-        bifid = tip & (level > -3) & (level < 2) & (np.abs(ab - 3.0) < 1.6)
-        spinous = spine & (sp_a > 0) & (along < 1) & (np.abs(sp_w) < 3.6 - 1.2 * along) & ((ab < half) | bifid)
-        img[spinous] = S["marrow"]
-        img[spinous & ((np.abs(sp_w) > 2.6 - 1.2 * along) | (ab > half - 0.8) & ~bifid)] = S["cortex"]
+        sel = spine & (sp_a > 0) & (sp_a < self.spine_len + 12) & (ab < 5)
+        # One process per body L (0 = C4, 1 = C3, 2 = C2, -3 = C7): C2's
+        # is large, C7's and T1's longest, C2 to C6 bifid at the tip.
+        extra = {2: 4, 1: -3, -3: 10, -4: 8}
+        for L in range(-5, 3):
+            length = self.spine_len + extra.get(L, 0)
+            along = sp_a / length
+            sp_w = w - (L + 0.5) * self.step + 0.45 * sp_a  # slopes down behind
+            near = sel & (along < 1) & (np.abs(sp_w) < 3.6 - 1.2 * along)
+            if not near.any():
+                continue
+            split = -2 <= L <= 2
+            tip = along > 0.72
+            bifid = tip & split & (np.abs(ab - 3.0) < 1.6)
+            stem = ~(tip & split) & (ab < 2.6 - 0.8 * along)
+            proc = near & (stem | bifid)
+            img[proc] = S["marrow"]
+            img[proc & ((np.abs(sp_w) > 2.6 - 1.2 * along) | (stem & (ab > 1.8 - 0.8 * along)))] = S["cortex"]
 
         # Canal: dural sac with CSF, cord inside; continuous with the
         # medulla and cisterna magna above the foramen magnum.
@@ -437,7 +466,7 @@ def series(p, out, clean=False):
         "matrix": m, "fov_mm": fov, "pixel_spacing_mm": ps,
         "yaw_deg": p["yaw"], "roll_deg": p["roll"], "pitch_deg": p["pitch"],
         "offset_slices": p["offset_slices"],
-        "compressed_discs": [["C4/5", "C3/4", "C2/3", "C5/6", "C6/7", "C7/T1"][k_] for k_ in anat.compressed],
+        "compressed_discs": [{1: "C3/4", 0: "C4/5", -1: "C5/6", -2: "C6/7"}[k_] for k_ in anat.compressed],
         "canal_transverse_mm": 2 * anat.sac_t, "cord_transverse_mm": 2 * anat.cord_t,
         "cord_ap_mm": 2 * anat.cord_a,
     }
