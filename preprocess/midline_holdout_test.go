@@ -35,9 +35,17 @@ func holdoutCases(t *testing.T, n int) (cases []evalCase, thickness []string, tr
 // held-out family with the harness of midline_eval_test.go (exact,
 // within one slice, flagged, refused, wrong and unflagged, the geometric
 // centre as baseline), per scenario and per slice thickness. Nothing of
-// the picker was tuned on this family; its floors are the rates measured
-// when the family was added, less a margin, so they guard against
-// regressions only.
+// the picker was tuned on this family. The family is deterministic (seed
+// 20261203), so the floors are the rates measured on the default 60
+// series when the family was added, less about two series, and the
+// unflagged counts exactly as measured: they guard against regressions
+// and say nothing of the goal (99% exact, no unflagged pick on a slab
+// that misses the midline), which the picker does not reach here.
+//
+// Measured with n = 60: of 41 in-slab series exact 58.5%, within one
+// slice 90.2%, flagged 56.1%, 6 wrong and unflagged (geometric centre
+// 34.1% exact, 39.0% within one); of 19 slabs that miss the midline
+// 47.4% refused, 36.8% flagged, 3 unflagged.
 func TestMidlineEvaluationHoldout(t *testing.T) {
 	n := 60
 	switch {
@@ -65,5 +73,5 @@ func TestMidlineEvaluationHoldout(t *testing.T) {
 		byThickness[i] = o
 	}
 	reportEval(t, "holdout by thickness", byThickness)
-	checkGoals(t, "holdout", tl, goals{exact: 0, near: 0, missingUnflagged: 1000, wrongUnflagged: 1000})
+	checkGoals(t, "holdout", tl, goals{exact: 53, near: 85, missingUnflagged: 3, wrongUnflagged: 6})
 }
