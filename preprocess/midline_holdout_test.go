@@ -1,0 +1,82 @@
+package preprocess
+
+import (
+	"fmt"
+	"os"
+	"testing"
+
+	"github.com/midsag/midsag/internal/holdoutphantom"
+	"github.com/midsag/midsag/phantom"
+)
+
+// holdoutCases returns n series of internal/holdoutphantom, the family
+// held out from the picker (a Python generator written without reading
+// the picker or the other two families), each with two labels for the
+// harness: its scenario and its slice thickness.
+func holdoutCases(t *testing.T, n int) (cases []evalCase, thickness []string, truths []holdoutphantom.Truth) {
+	t.Helper()
+	for _, c := range holdoutphantom.Generate(t, holdoutphantom.Options{N: n, Seed: 20261203}) {
+		truths = append(truths, c.Truth)
+		pf := make([]phantom.File, len(c.Files))
+		for j, f := range c.Files {
+			pf[j] = phantom.File{Name: f.Name, Data: f.Data}
+		}
+		ec := evalCase{scenario: c.Truth.Scenario, files: pf, target: c.Truth.SeriesInstanceUID}
+		if c.Truth.InSlab {
+			ec.midline = c.Truth.MidlineSOPInstanceUID
+		}
+		cases = append(cases, ec)
+		thickness = append(thickness, fmt.Sprintf("%.1f mm", c.Truth.ThicknessMM))
+	}
+	return cases, thickness, truths
+}
+
+// TestMidlineEvaluationHoldout measures the midline picker on the
+// held-out family with the harness of midline_eval_test.go (exact,
+// within one slice, flagged, refused, wrong and unflagged, the geometric
+// centre as baseline), per scenario and per slice thickness. Nothing of
+// the picker was tuned on this family. The family is deterministic (seed
+// 20261203), so the floors are the rates measured on each sample (60 by
+// default, 200 long, 28 short) when the family was added, less about two
+// series, and the unflagged counts exactly as measured: they guard against regressions
+// and say nothing of the goal (99% exact, no unflagged pick on a slab
+// that misses the midline), which the picker does not reach here.
+//
+// Measured with n = 60: of 41 in-slab series exact 58.5%, within one
+// slice 90.2%, flagged 56.1%, 6 wrong and unflagged (geometric centre
+// 34.1% exact, 39.0% within one); of 19 slabs that miss the midline
+// 47.4% refused, 36.8% flagged, 3 unflagged. With n = 200
+// (MIDSAG_LONG=1): of 131 exact 54.2%, within one 93.1%, flagged 47.3%,
+// 25 wrong and unflagged (centre 33.6%, 44.3%); of 69 missing the
+// midline 56.5% refused, 36.2% flagged, 5 unflagged. With -short (28):
+// of 20 exact 60.0%, within one 100%, 3 wrong and unflagged; of 8, 1
+// unflagged.
+func TestMidlineEvaluationHoldout(t *testing.T) {
+	n, g := 60, goals{exact: 53, near: 85, missingUnflagged: 3, wrongUnflagged: 6}
+	switch {
+	case os.Getenv("MIDSAG_LONG") != "":
+		n, g = 200, goals{exact: 52, near: 91, missingUnflagged: 5, wrongUnflagged: 25}
+	case testing.Short():
+		n, g = 28, goals{exact: 53, near: 95, missingUnflagged: 1, wrongUnflagged: 3}
+	}
+	cases, thickness, truths := holdoutCases(t, n)
+	outs := runEval(cases)
+	// Each miss, so a reader can regenerate the series (gen.py --first
+	// CASE --n 1 --seed 20261203) and look at it.
+	for i, o := range outs {
+		tr := truths[i]
+		if o.err != nil || o.refused != "" && o.inSlab || o.inSlab && o.diff == 0 || !o.inSlab && (o.refused != "" || o.flagged) {
+			continue
+		}
+		t.Logf("case %d %s %.1f mm x %d (spacing %.2f): in slab %v, pick %+d slices, flagged %v, plane %+.2f mm from its nearest slice, offset %+.2f slices, yaw %+.1f roll %+.1f pitch %+.1f deg",
+			tr.Case, tr.Scenario, tr.ThicknessMM, tr.Slices, tr.SpacingMM, o.inSlab, o.diff, o.flagged, tr.SignedDistanceMM, tr.OffsetSlices, tr.YawDeg, tr.RollDeg, tr.PitchDeg)
+	}
+	tl := reportEval(t, "holdout", outs)
+	byThickness := make([]evalOutcome, len(outs))
+	for i, o := range outs {
+		o.scenario = thickness[i]
+		byThickness[i] = o
+	}
+	reportEval(t, "holdout by thickness", byThickness)
+	checkGoals(t, "holdout", tl, g)
+}
