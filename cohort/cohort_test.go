@@ -192,7 +192,7 @@ func TestDiscoverFollowsLinks(t *testing.T) {
 		t.Fatal(err)
 	}
 	files1, _ := filepath.Glob(filepath.Join(store, truths[1].Study, "*"))
-	if d.Studies != 2 || d.Files != len(files0)+len(files1)+1 || d.Refused[ReasonUnreadable] != 1 {
+	if d.Studies != 2 || d.Files != len(files0)+len(files1)+1 || d.Refused[midsag.ReasonUnreadable] != 1 {
 		t.Errorf("discovery %+v; want 2 studies, %d files, 1 unreadable (the dangling link)", d, len(files0)+len(files1)+1)
 	}
 }

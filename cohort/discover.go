@@ -25,12 +25,10 @@ type HeaderReader interface {
 	ReadHeader(name string, r io.Reader, size int64) (*midsag.Instance, error)
 }
 
-// ReasonUnreadable marks a file that could not be opened or read (a
-// permission or I/O error), as opposed to one read and refused.
-const ReasonUnreadable midsag.Reason = "unreadable"
-
-// reasonArchive marks a zip archive's own index entry; its entries have
-// theirs.
+// reasonArchive marks a zip archive's own index entry in the reason
+// column of the header index; its entries have theirs. It is never
+// reported: Discovery.Refused and the batch tables leave it out, so it is
+// not a midsag.Reason.
 const reasonArchive = "archive"
 
 // discoverBatch is how many files are looked up, read and recorded
@@ -211,12 +209,12 @@ func (s *Store) discoverBatch(ctx context.Context, files []fileInfo, gen int64, 
 func readFile(fi fileInfo, hr HeaderReader) []indexRow {
 	row := indexRow{path: fi.path, file: fi.path, size: fi.size, mtime: fi.mtime}
 	if fi.size < 0 {
-		row.reason = string(ReasonUnreadable)
+		row.reason = string(midsag.ReasonUnreadable)
 		return []indexRow{row}
 	}
 	f, err := os.Open(fi.path)
 	if err != nil {
-		row.reason = string(ReasonUnreadable)
+		row.reason = string(midsag.ReasonUnreadable)
 		return []indexRow{row}
 	}
 	defer f.Close()
@@ -234,7 +232,7 @@ func headerRow(row indexRow, inst *midsag.Instance, err error) indexRow {
 		row.study = inst.StudyInstanceUID
 	}
 	if err != nil {
-		row.reason = string(ReasonUnreadable)
+		row.reason = string(midsag.ReasonUnreadable)
 		if r, ok := midsag.ReasonOf(err); ok {
 			row.reason = string(r)
 		}
@@ -264,7 +262,7 @@ func readZip(f *os.File, arch indexRow, hr HeaderReader) []indexRow {
 			size: int64(zf.UncompressedSize64), mtime: arch.mtime}
 		rc, err := zf.Open()
 		if err != nil {
-			row.reason = string(ReasonUnreadable)
+			row.reason = string(midsag.ReasonUnreadable)
 			out = append(out, row)
 			continue
 		}

@@ -26,9 +26,6 @@ const (
 	StatusFailed   Status = "failed"
 )
 
-// ReasonError is the reason of a failed row: the message column says more.
-const ReasonError = "error"
-
 // Output file names in a batch's folder.
 const (
 	CSVName   = "results.csv"

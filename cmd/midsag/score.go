@@ -114,12 +114,15 @@ func reportRejection(err error, asJSON bool, stderr io.Writer) error {
 	if e == nil {
 		return err
 	}
-	msg := strings.Replace(err.Error(), string(e.Reason)+": ", "", 1)
+	msg := e.Message()
 	if asJSON {
-		if perr := printJSON(stderr, midsag.NewRefusalBody(e.Reason, msg, e.Candidates)); perr != nil {
+		if perr := printJSON(stderr, midsag.NewRefusalBody(e, msg)); perr != nil {
 			return perr
 		}
 		return &reportedError{err: err, code: exitRejected}
+	}
+	if src := e.Details["source"]; src != "" {
+		msg = src + ": " + msg
 	}
 	fmt.Fprintf(stderr, "midsag: rejected (%s): %s\n", e.Reason, msg)
 	for _, c := range e.Candidates {

@@ -102,7 +102,7 @@ func TestGRPCScoreStudyStreamed(t *testing.T) {
 		t.Fatalf("GetResult: %v %v", got, err)
 	}
 	_, err = c.GetResult(ctx, &midsagv1.GetResultRequest{ResultId: "nope"})
-	wantStatus(t, err, codes.NotFound, ReasonNotFound)
+	wantStatus(t, err, codes.NotFound, midsag.ReasonNotFound)
 
 	// A refusal from the Backend keeps its reason: code from
 	// server.GRPCCode, reason in the message and in ErrorInfo.
@@ -154,12 +154,12 @@ func TestGRPCAuthHealthReflection(t *testing.T) {
 	c := midsagv1.NewStudyScoringClient(cc)
 
 	_, err := c.ListModels(ctx, &midsagv1.ListModelsRequest{})
-	wantStatus(t, err, codes.Unauthenticated, ReasonUnauthenticated)
+	wantStatus(t, err, codes.Unauthenticated, midsag.ReasonUnauthenticated)
 	_, err = sendStudy(ctx, c, &midsagv1.ScoreOptions{}, nil, 1)
-	wantStatus(t, err, codes.Unauthenticated, ReasonUnauthenticated)
+	wantStatus(t, err, codes.Unauthenticated, midsag.ReasonUnauthenticated)
 	bad := metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer nope")
 	_, err = c.ListModels(bad, &midsagv1.ListModelsRequest{})
-	wantStatus(t, err, codes.Unauthenticated, ReasonUnauthenticated)
+	wantStatus(t, err, codes.Unauthenticated, midsag.ReasonUnauthenticated)
 
 	authed := metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer s3cret")
 	models, err := c.ListModels(authed, &midsagv1.ListModelsRequest{})

@@ -11,6 +11,7 @@ import (
 	"github.com/grpc-ecosystem/grpc-gateway/v2/runtime"
 	"google.golang.org/protobuf/encoding/protojson"
 
+	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
 	"github.com/midsag/midsag/preprocess"
 	"github.com/midsag/midsag/server"
@@ -97,7 +98,7 @@ func serveOpenAPI(w http.ResponseWriter, _ *http.Request) {
 }
 
 func (a *httpAPI) notFound(w http.ResponseWriter, r *http.Request) {
-	writeError(w, a.cfg.Logger, newAPIError(ReasonNotFound, fmt.Sprintf("no route for %s %s", r.Method, r.URL.Path)))
+	writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotFound, "no route for %s %s", r.Method, r.URL.Path))
 }
 
 // observe logs each request and reports it to Config.Observe under its

@@ -268,7 +268,7 @@ func TestCurlScoreRefusals(t *testing.T) {
 	wantRefusal(t, r, http.StatusUnsupportedMediaType, midsag.ReasonNotDICOM)
 
 	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score?async=maybe")
-	wantRefusal(t, r, http.StatusBadRequest, ReasonBadRequest)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
 
 	r = runCurl(t, "-X", "POST", "-H", "Content-Type: application/dicom", srv.URL+"/v1/studies:score")
 	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonNoInput)
@@ -292,9 +292,9 @@ func TestCurlGatewayRoutes(t *testing.T) {
 
 	// Without a token: 401 with the JSON body; /healthz stays open.
 	r := runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score")
-	wantRefusal(t, r, http.StatusUnauthorized, ReasonUnauthenticated)
+	wantRefusal(t, r, http.StatusUnauthorized, midsag.ReasonUnauthenticated)
 	r = runCurl(t, "-H", "Authorization: Bearer wrong", srv.URL+"/v1/models")
-	wantRefusal(t, r, http.StatusUnauthorized, ReasonUnauthenticated)
+	wantRefusal(t, r, http.StatusUnauthorized, midsag.ReasonUnauthenticated)
 	if r = runCurl(t, srv.URL+"/healthz"); r.code != http.StatusOK {
 		t.Errorf("/healthz without token: %d", r.code)
 	}
@@ -337,11 +337,11 @@ func TestCurlGatewayRoutes(t *testing.T) {
 		t.Errorf("list of an unknown study: %d %s", r.code, r.body)
 	}
 	r = runCurl(t, append(auth, srv.URL+"/v1/results?status=bogus")...)
-	wantRefusal(t, r, http.StatusBadRequest, ReasonBadRequest)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
 	r = runCurl(t, append(auth, srv.URL+"/v1/results?page_size=ten")...)
-	wantRefusal(t, r, http.StatusBadRequest, ReasonBadRequest)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
 	r = runCurl(t, append(auth, srv.URL+"/v1/results/nope")...)
-	wantRefusal(t, r, http.StatusNotFound, ReasonNotFound)
+	wantRefusal(t, r, http.StatusNotFound, midsag.ReasonNotFound)
 
 	r = runCurl(t, append(auth, srv.URL+"/v1/models")...)
 	var models struct {
@@ -368,7 +368,7 @@ func TestCurlGatewayRoutes(t *testing.T) {
 	}
 
 	r = runCurl(t, append(auth, srv.URL+"/v2/nothing")...)
-	wantRefusal(t, r, http.StatusNotFound, ReasonNotFound)
+	wantRefusal(t, r, http.StatusNotFound, midsag.ReasonNotFound)
 
 	// Observe gets route patterns, never ids.
 	mu.Lock()

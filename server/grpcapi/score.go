@@ -87,7 +87,7 @@ func scoreOptions(q url.Values) (*midsagv1.ScoreOptions, error) {
 		if v := q.Get(name); v != "" {
 			b, err := strconv.ParseBool(v)
 			if err != nil {
-				return nil, newAPIError(ReasonBadRequest, fmt.Sprintf("%s=%q is not true or false", name, v))
+				return nil, midsag.Rejectf(midsag.ReasonBadRequest, "%s=%q is not true or false", name, v)
 			}
 			*dst = b
 		}
@@ -101,11 +101,11 @@ func scoreOptions(q url.Values) (*midsagv1.ScoreOptions, error) {
 // or missing one is settled by the body's first bytes.
 func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, ing *ingester) error {
 	if strings.Contains(strings.ToLower(h.Get("Content-Encoding")), "gzip") {
-		return newAPIError(midsag.ReasonNotDICOM, gzipRefusal)
+		return midsag.Rejectf(midsag.ReasonNotDICOM, "%s", gzipRefusal)
 	}
 	mt, params, err := mime.ParseMediaType(h.Get("Content-Type"))
 	if err != nil && h.Get("Content-Type") != "" {
-		return newAPIError(ReasonBadRequest, fmt.Sprintf("Content-Type is malformed: %v", err))
+		return midsag.Rejectf(midsag.ReasonBadRequest, "Content-Type is malformed: %v", err)
 	}
 	if mt == "multipart/related" {
 		return a.readMultipart(ctx, params, body, ing)
@@ -118,9 +118,9 @@ func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, 
 	isZip := bytes.HasPrefix(head, []byte("PK\x03\x04"))
 	switch {
 	case len(head) == 0:
-		return newAPIError(midsag.ReasonNoInput, "the request body is empty")
+		return midsag.Rejectf(midsag.ReasonNoInput, "the request body is empty")
 	case bytes.HasPrefix(head, []byte{0x1f, 0x8b}), mt == "application/gzip", mt == "application/x-gzip":
-		return newAPIError(midsag.ReasonNotDICOM, gzipRefusal)
+		return midsag.Rejectf(midsag.ReasonNotDICOM, "%s", gzipRefusal)
 	case mt == "application/zip", mt == "application/x-zip-compressed", isZip && genericType(mt):
 		return a.readZip(ctx, br, ing)
 	case mt == "application/dicom", genericType(mt):
@@ -130,8 +130,8 @@ func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, 
 		}
 		return ing.ingest(ctx, "body", data)
 	}
-	return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf(
-		"Content-Type %s is not accepted; send application/zip, application/dicom or multipart/related; type=\"application/dicom\"", mt))
+	return midsag.Rejectf(midsag.ReasonNotDICOM,
+		"Content-Type %s is not accepted; send application/zip, application/dicom or multipart/related; type=\"application/dicom\"", mt)
 }
 
 // genericType reports whether mt says nothing about the payload: none,
@@ -156,7 +156,7 @@ func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, b
 			return multipartError(n, err)
 		}
 		if err := partIsDICOM(part); err != nil {
-			return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf("part %d: %v", n, err))
+			return midsag.Rejectf(midsag.ReasonNotDICOM, "part %d: %v", n, err)
 		}
 		data, err := io.ReadAll(part)
 		if err != nil {
@@ -173,11 +173,11 @@ func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, b
 // application/dicom is refused; a missing one is taken as DICOM.
 func relatedReader(params map[string]string, body io.Reader) (*multipart.Reader, error) {
 	if t := params["type"]; t != "" && !strings.EqualFold(t, "application/dicom") {
-		return nil, newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf(
-			"multipart/related type %q is not accepted; only application/dicom parts are (PS3.18 8.6.1.2)", t))
+		return nil, midsag.Rejectf(midsag.ReasonNotDICOM,
+			"multipart/related type %q is not accepted; only application/dicom parts are (PS3.18 8.6.1.2)", t)
 	}
 	if params["boundary"] == "" {
-		return nil, newAPIError(ReasonBadRequest, "multipart/related without a boundary parameter")
+		return nil, midsag.Rejectf(midsag.ReasonBadRequest, "multipart/related without a boundary parameter")
 	}
 	return multipart.NewReader(body, params["boundary"]), nil
 }
@@ -227,7 +227,7 @@ func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) er
 		return midsag.Reject(midsag.ReasonNotDICOM, "the body is not a readable zip archive", err)
 	}
 	if len(zr.File) > inputs.MaxZipEntries {
-		return newAPIError(midsag.ReasonTooLarge, fmt.Sprintf("the zip has %d entries; at most %d are accepted", len(zr.File), inputs.MaxZipEntries))
+		return midsag.Rejectf(midsag.ReasonTooLarge, "the zip has %d entries; at most %d are accepted", len(zr.File), inputs.MaxZipEntries)
 	}
 	budget := zipExpansion * a.cfg.MaxBodyBytes
 	skipped := 0
@@ -242,7 +242,7 @@ func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) er
 		}
 		budget -= int64(len(data))
 		if err := ing.ingest(ctx, name, data); err != nil {
-			if classify(err).reason == midsag.ReasonNotDICOM {
+			if classify(err).Reason == midsag.ReasonNotDICOM {
 				skipped++
 				continue
 			}
@@ -250,7 +250,7 @@ func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) er
 		}
 	}
 	if len(ing.uids) == 0 {
-		return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf("the zip holds no DICOM instance (%d entries skipped)", skipped))
+		return midsag.Rejectf(midsag.ReasonNotDICOM, "the zip holds no DICOM instance (%d entries skipped)", skipped)
 	}
 	return nil
 }

@@ -68,7 +68,7 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 	}
 	mt, params, err := mime.ParseMediaType(r.Header.Get("Content-Type"))
 	if err != nil || mt != "multipart/related" {
-		writeError(w, a.cfg.Logger, newAPIError(midsag.ReasonNotDICOM,
+		writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotDICOM,
 			`STOW-RS takes multipart/related; type="application/dicom" (PS3.18 10.5.1)`))
 		return
 	}
@@ -105,7 +105,7 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 		refs = append(refs, ref)
 	}
 	if len(refs)+len(fails) == 0 {
-		writeError(w, a.cfg.Logger, newAPIError(midsag.ReasonNoInput, "the multipart body has no parts"))
+		writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNoInput, "the multipart body has no parts"))
 		return
 	}
 	resp := dicomJSON{}
@@ -133,17 +133,17 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 func (a *httpAPI) stowPart(r *http.Request, origin server.Origin, study string, n int, contentType string, data []byte) (dicomJSON, int) {
 	item := dicomJSON{tagReferencedSOPClass: uiAttr(""), tagReferencedSOPInstance: uiAttr("")}
 	fail := func(code int, err error) (dicomJSON, int) {
-		ae := classify(err)
-		attrs := []any{"part", n, "failure_reason", fmt.Sprintf("0x%04X", code), "reason", ae.reason}
-		if ae.cause != nil {
-			attrs = append(attrs, "err", ae.cause)
+		e := classify(err)
+		attrs := []any{"part", n, "failure_reason", fmt.Sprintf("0x%04X", code), "reason", e.Reason}
+		if e.Err != nil {
+			attrs = append(attrs, "err", e.Err)
 		}
 		a.cfg.Logger.Info("stow part refused", attrs...)
 		return item, code
 	}
 	if ct := contentType; ct != "" {
 		if mt, _, err := mime.ParseMediaType(ct); err != nil || mt != "application/dicom" {
-			return fail(failureCannotUnderstand, newAPIError(midsag.ReasonNotDICOM, "part is not application/dicom"))
+			return fail(failureCannotUnderstand, midsag.Rejectf(midsag.ReasonNotDICOM, "part is not application/dicom"))
 		}
 	}
 	inst, err := a.pre.Read(fmt.Sprintf("part %d", n), bytes.NewReader(data))
@@ -153,7 +153,7 @@ func (a *httpAPI) stowPart(r *http.Request, origin server.Origin, study string, 
 	item[tagReferencedSOPClass] = uiAttr(inst.SOPClassUID)
 	item[tagReferencedSOPInstance] = uiAttr(inst.SOPInstanceUID)
 	if study != "" && inst.StudyInstanceUID != study {
-		return fail(failureStudyMismatch, newAPIError(midsag.ReasonMultipleStudies, "instance of another study"))
+		return fail(failureStudyMismatch, midsag.Rejectf(midsag.ReasonMultipleStudies, "instance of another study"))
 	}
 	st, err := a.cfg.Backend.Ingest(r.Context(), origin, data)
 	if err != nil {
@@ -166,10 +166,10 @@ func (a *httpAPI) stowPart(r *http.Request, origin server.Origin, study string, 
 
 // failureCode maps a refusal to a Failure Reason (values from memory).
 func failureCode(err error) int {
-	switch classify(err).reason {
+	switch classify(err).Reason {
 	case midsag.ReasonTooLarge, midsag.ReasonOverloaded:
 		return failureOutOfResources
-	case ReasonInternal:
+	case midsag.ReasonInternal:
 		return failureProcessing
 	}
 	return failureCannotUnderstand
