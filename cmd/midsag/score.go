@@ -13,6 +13,7 @@ import (
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/inputs"
+	"github.com/midsag/midsag/internal/atomicfile"
 	"github.com/midsag/midsag/preprocess"
 )
 
@@ -155,36 +156,10 @@ func writeJSONFile(path string, v any) error {
 	return writeFileAtomic(path, b.Bytes())
 }
 
+// writeFileAtomic writes an output file atomically and durably
+// (atomicfile); outputs are ordinary files other users may read.
 func writeFileAtomic(path string, data []byte) error {
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return err
-	}
-	// CreateTemp makes the file owner-only; outputs are ordinary files.
-	if err := tmp.Chmod(0o644); err != nil {
-		tmp.Close()
-		os.Remove(tmp.Name())
-		return err
-	}
-	if _, err := tmp.Write(data); err != nil {
-		tmp.Close()
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := tmp.Sync(); err != nil {
-		tmp.Close()
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := tmp.Close(); err != nil {
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := os.Rename(tmp.Name(), path); err != nil {
-		os.Remove(tmp.Name())
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	return nil
+	return atomicfile.WriteFile(path, data, atomicfile.Perm(0o644))
 }
 
 // printSummary prints a short human-readable account of a result.
