@@ -30,6 +30,10 @@ type Origin struct {
 	CallingAE string
 	// Remote is the peer's network address.
 	Remote string
+	// Study, when set, is the only Study Instance UID Ingest accepts
+	// (STOW-RS /studies/{study}): an instance of another study is refused
+	// as midsag.ReasonMultipleStudies before anything is stored.
+	Study string
 }
 
 // Stored identifies an instance after Ingest has made it durable.
@@ -71,7 +75,8 @@ type ModelEntry struct {
 // Backend is what every listener calls. Core implements it.
 type Backend interface {
 	// Ingest parses the header of one DICOM Part 10 instance and stores it
-	// durably (spool file and database row) before returning.
+	// durably (spool file and database row) before returning. A refusal
+	// after the header was read comes with the Stored UIDs it names.
 	Ingest(ctx context.Context, origin Origin, data []byte) (Stored, error)
 	// Score scores the request's instances as one study. Without Async it
 	// waits for the result; with Async it returns the pending record.

@@ -85,11 +85,6 @@ func writeHeatmaps(dir string, res *midsag.Result) error {
 	return writeFileAtomic(filepath.Join(dir, "heatmap.dcm"), dcm)
 }
 
-// scoreStudy runs the one Pipeline on the given paths.
-func scoreStudy(ctx context.Context, mf *modelFlags, lenient bool, paths []string) (*midsag.Result, error) {
-	return scoreStudyWith(ctx, mf, lenient, nil, paths)
-}
-
 // scoreStudyWith runs the one Pipeline on the given paths with an
 // Explainer, which may be nil.
 func scoreStudyWith(ctx context.Context, mf *modelFlags, lenient bool, expl midsag.Explainer, paths []string) (*midsag.Result, error) {

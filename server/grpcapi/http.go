@@ -13,7 +13,6 @@ import (
 
 	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
-	"github.com/midsag/midsag/preprocess"
 	"github.com/midsag/midsag/server"
 )
 
@@ -24,9 +23,6 @@ var openPaths = map[string]bool{"/healthz": true, "/readyz": true, "/metrics": t
 type httpAPI struct {
 	cfg    Config
 	tokens tokens
-	// pre reads headers of STOW-RS parts before they are stored, to check
-	// the study in the URL (lenient: Ingest has the final word).
-	pre *preprocess.Preprocessor
 }
 
 // NewHTTPHandler returns one handler for the REST API: the gateway routes
@@ -40,7 +36,7 @@ func NewHTTPHandler(ctx context.Context, cfg Config, extra map[string]http.Handl
 	if err != nil {
 		return nil, err
 	}
-	a := &httpAPI{cfg: cfg, tokens: newTokens(cfg.Tokens), pre: preprocess.New(preprocess.Options{Lenient: true})}
+	a := &httpAPI{cfg: cfg, tokens: newTokens(cfg.Tokens)}
 
 	gw := runtime.NewServeMux(
 		runtime.WithMarshalerOption(runtime.MIMEWildcard, &runtime.JSONPb{

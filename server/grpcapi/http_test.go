@@ -321,51 +321,8 @@ func TestCurlGatewayRoutes(t *testing.T) {
 		}
 	}
 
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?study_instance_uid="+study+"&status=done&page_size=10")...)
-	var list struct {
-		Results []map[string]any `json:"results"`
-		Next    *string          `json:"next_page_token"`
-	}
-	if err := json.Unmarshal(r.body, &list); err != nil || r.code != http.StatusOK {
-		t.Fatalf("list: %d %s", r.code, r.body)
-	}
-	if len(list.Results) != 1 || list.Results[0]["result_id"] != id || list.Next == nil {
-		t.Errorf("list %s", r.body)
-	}
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?study_instance_uid=9.9.9")...)
-	if r.code != http.StatusOK || !strings.Contains(string(r.body), `"results":[]`) {
-		t.Errorf("list of an unknown study: %d %s", r.code, r.body)
-	}
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?status=bogus")...)
-	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?page_size=ten")...)
-	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
-	r = runCurl(t, append(auth, srv.URL+"/v1/results/nope")...)
-	wantRefusal(t, r, http.StatusNotFound, midsag.ReasonNotFound)
-
-	r = runCurl(t, append(auth, srv.URL+"/v1/models")...)
-	var models struct {
-		Models []struct {
-			Name    string `json:"name"`
-			Default bool   `json:"default"`
-		} `json:"models"`
-	}
-	if err := json.Unmarshal(r.body, &models); err != nil || len(models.Models) != 1 || models.Models[0].Name != "midsag-demo" || !models.Models[0].Default {
-		t.Errorf("models: %d %s", r.code, r.body)
-	}
-
-	r = runCurl(t, append(auth, srv.URL+"/openapi.json")...)
-	var doc struct {
-		Paths map[string]any `json:"paths"`
-	}
-	if err := json.Unmarshal(r.body, &doc); err != nil {
-		t.Fatalf("openapi.json is not JSON: %v", err)
-	}
-	for _, p := range []string{"/v1/results/{result_id}", "/v1/results", "/v1/models"} {
-		if _, ok := doc.Paths[p]; !ok {
-			t.Errorf("openapi.json lacks path %s", p)
-		}
-	}
+	checkResultList(t, srv.URL, auth, id, study)
+	checkModelsAndOpenAPI(t, srv.URL, auth)
 
 	r = runCurl(t, append(auth, srv.URL+"/v2/nothing")...)
 	wantRefusal(t, r, http.StatusNotFound, midsag.ReasonNotFound)
@@ -433,4 +390,64 @@ func TestHeatmapRoute(t *testing.T) {
 			t.Errorf("heatmap %q %q", resp.Header.Get("Content-Type"), body)
 		}
 	}
+}
+
+// checkResultList checks GET /v1/results: the filtered list holds the one
+// result with a next-page token, an unknown study gives an empty list,
+// and malformed filters are bad requests (the gateway's own parse errors
+// too), an unknown id not_found.
+func checkResultList(t *testing.T, base string, auth []string, id, study string) {
+	t.Helper()
+	r := runCurl(t, append(auth, base+"/v1/results?study_instance_uid="+study+"&status=done&page_size=10")...)
+	var list struct {
+		Results []map[string]any `json:"results"`
+		Next    *string          `json:"next_page_token"`
+	}
+	if err := json.Unmarshal(r.body, &list); err != nil || r.code != http.StatusOK {
+		t.Fatalf("list: %d %s", r.code, r.body)
+	}
+	if len(list.Results) != 1 || list.Results[0]["result_id"] != id || list.Next == nil {
+		t.Errorf("list %s", r.body)
+	}
+	r = runCurl(t, append(auth, base+"/v1/results?study_instance_uid=9.9.9")...)
+	if r.code != http.StatusOK || !strings.Contains(string(r.body), `"results":[]`) {
+		t.Errorf("list of an unknown study: %d %s", r.code, r.body)
+	}
+	r = runCurl(t, append(auth, base+"/v1/results?status=bogus")...)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
+	r = runCurl(t, append(auth, base+"/v1/results?page_size=ten")...)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
+	r = runCurl(t, append(auth, base+"/v1/results/nope")...)
+	wantRefusal(t, r, http.StatusNotFound, midsag.ReasonNotFound)
+
+}
+
+// checkModelsAndOpenAPI checks GET /v1/models names the demo model as the
+// default, and /openapi.json documents the gateway's paths.
+func checkModelsAndOpenAPI(t *testing.T, base string, auth []string) {
+	t.Helper()
+	r := runCurl(t, append(auth, base+"/v1/models")...)
+	var models struct {
+		Models []struct {
+			Name    string `json:"name"`
+			Default bool   `json:"default"`
+		} `json:"models"`
+	}
+	if err := json.Unmarshal(r.body, &models); err != nil || len(models.Models) != 1 || models.Models[0].Name != "midsag-demo" || !models.Models[0].Default {
+		t.Errorf("models: %d %s", r.code, r.body)
+	}
+
+	r = runCurl(t, append(auth, base+"/openapi.json")...)
+	var doc struct {
+		Paths map[string]any `json:"paths"`
+	}
+	if err := json.Unmarshal(r.body, &doc); err != nil {
+		t.Fatalf("openapi.json is not JSON: %v", err)
+	}
+	for _, p := range []string{"/v1/results/{result_id}", "/v1/results", "/v1/models"} {
+		if _, ok := doc.Paths[p]; !ok {
+			t.Errorf("openapi.json lacks path %s", p)
+		}
+	}
+
 }
