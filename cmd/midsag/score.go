@@ -88,7 +88,7 @@ func writeHeatmaps(dir string, res *midsag.Result) error {
 // scoreStudyWith runs the one Pipeline on the given paths with an
 // Explainer, which may be nil.
 func scoreStudyWith(ctx context.Context, mf *modelFlags, lenient bool, expl midsag.Explainer, paths []string) (*midsag.Result, error) {
-	sources, closeSources, err := inputs.Collect(paths)
+	sources, closeSources, err := inputs.Collect(paths, inputs.DefaultLimits)
 	if err != nil {
 		return nil, err
 	}

@@ -5,6 +5,7 @@ import (
 	"log/slog"
 	"time"
 
+	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/server"
 )
 
@@ -23,6 +24,10 @@ type Config struct {
 	// it the request is refused with too_large (HTTP 413). Zero means
 	// DefaultMaxBodyBytes.
 	MaxBodyBytes int64
+	// Limits bound the entries of an uploaded zip, the parts of a
+	// multipart body and each instance (inputs.Limits); zero fields are
+	// inputs.DefaultLimits.
+	Limits inputs.Limits
 	// Tokens are the accepted bearer tokens. Empty means no
 	// authentication. /healthz, /readyz, /metrics and the gRPC health
 	// service never need one.
@@ -42,6 +47,7 @@ func (c Config) withDefaults() (Config, error) {
 	if c.MaxBodyBytes <= 0 {
 		c.MaxBodyBytes = DefaultMaxBodyBytes
 	}
+	c.Limits = c.Limits.OrDefault()
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.DiscardHandler)
 	}

@@ -25,13 +25,16 @@ const errorDomain = "midsag"
 // unknown errors become internal, their text kept as the cause for the
 // log.
 func classify(err error) *midsag.Error {
+	// A body cut off at MaxBodyBytes is too large, also where a reader
+	// reported the cut as a malformed body.
+	var mbe *http.MaxBytesError
+	if errors.As(err, &mbe) {
+		return tooLarge(mbe.Limit)
+	}
 	if e := midsag.RefusalOf(err); e != nil {
 		return e
 	}
-	var mbe *http.MaxBytesError
 	switch {
-	case errors.As(err, &mbe):
-		return tooLarge(mbe.Limit)
 	case errors.Is(err, store.ErrNotFound):
 		// The cause is store.ErrNotFound itself: nothing to log.
 		return midsag.Rejectf(midsag.ReasonNotFound, "no result with this id")

@@ -19,6 +19,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/inputs"
 )
 
 // The HTTP tests drive the handler with the real curl (/usr/bin/curl) over
@@ -213,6 +214,37 @@ func TestCurlScoreTooLarge(t *testing.T) {
 	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
 	if ingested, _ := fake.counts(); ingested != 0 {
 		t.Errorf("%d instances ingested from oversized bodies", ingested)
+	}
+}
+
+// TestCurlScoreInputLimits: the input limits (inputs.Limits) hold for
+// every kind of upload: a zip with more entries than MaxEntries, a
+// multipart/related body with more parts, and a part or a single body
+// beyond MaxEntryBytes are refused as too_large with 413 (RFC 9110
+// 15.5.14) and nothing is ingested.
+func TestCurlScoreInputLimits(t *testing.T) {
+	files := phantomStudy(t)
+	fake := newFake()
+	entry := int64(len(files[0].Data)) - 1
+	srv := newHTTP(t, Config{Backend: fake, Limits: inputs.Limits{MaxEntries: 2, MaxEntryBytes: entry}}, nil)
+	zipPath := writeTemp(t, "three.zip", zipOf(t, files[:3]))
+	r := runCurl(t, "-H", "Content-Type: application/zip", "--data-binary", "@"+zipPath, srv.URL+"/v1/studies:score")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+
+	body, boundary := relatedBody(t, [][]byte{files[0].Data}, []string{"application/dicom"})
+	p := writeTemp(t, "big-part.bin", body)
+	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
+		"--data-binary", "@"+p, srv.URL+"/v1/studies:score")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
+		"--data-binary", "@"+p, srv.URL+"/dicomweb/studies")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+
+	one := writeTemp(t, "one.dcm", files[0].Data)
+	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+	if ingested, _ := fake.counts(); ingested != 0 {
+		t.Errorf("%d instances ingested beyond the limits", ingested)
 	}
 }
 

@@ -109,6 +109,10 @@ func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) erro
 				return grpcStatus(tooLarge(s.cfg.MaxBodyBytes))
 			}
 			buf = append(buf, part.Chunk.GetData()...)
+			if int64(len(buf)) > s.cfg.Limits.MaxEntryBytes {
+				return grpcStatus(midsag.Rejectf(midsag.ReasonTooLarge, "instance %d is larger than the %d-byte limit",
+					len(ing.uids)+1, s.cfg.Limits.MaxEntryBytes))
+			}
 			if part.Chunk.GetEndOfInstance() {
 				if err := ing.ingest(ctx, fmt.Sprintf("instance %d", len(ing.uids)+1), buf); err != nil {
 					return grpcStatus(err)

@@ -2,14 +2,13 @@ package grpcapi
 
 import (
 	"context"
-	"errors"
 	"fmt"
-	"io"
 	"mime"
 	"mime/multipart"
 	"net/http"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/server"
 )
 
@@ -111,28 +110,22 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 
 // stowParts ingests every part of mr and returns the Referenced SOP items
 // of those stored and the failed items of the rest; the error is a body
-// that breaks off or is not valid MIME.
+// that breaks off, is not valid MIME or is beyond the input limits.
 func (a *httpAPI) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader) (refs, fails []any, err error) {
-	for n := 1; ; n++ {
-		part, err := mr.NextRawPart()
-		if errors.Is(err, io.EOF) {
-			return refs, fails, nil
-		}
-		if err != nil {
-			return nil, nil, multipartError(n, err)
-		}
-		data, err := io.ReadAll(part)
-		if err != nil {
-			return nil, nil, multipartError(n, err)
-		}
+	err = inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, data []byte) error {
 		ref, code := a.stowPart(ctx, origin, n, part.Header.Get("Content-Type"), data)
 		if code != 0 {
 			ref[tagFailureReason] = dicomAttr{VR: "US", Value: []any{code}}
 			fails = append(fails, ref)
-			continue
+			return nil
 		}
 		refs = append(refs, ref)
+		return nil
+	})
+	if err != nil {
+		return nil, nil, err
 	}
+	return refs, fails, nil
 }
 
 // stowPart stores one part and returns its Referenced SOP item, with a
