@@ -7,6 +7,7 @@ import (
 	"io"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // headerChunk is the first read of ReadHeader: two pages. Scanner headers
@@ -176,7 +177,7 @@ func (w walker) element(off, depth int) (int, error) {
 	var length uint32
 	hdr := 8
 	if w.explicit && group != 0xFFFE {
-		if longVR[string(w.data[off+4:off+6])] {
+		if part10.LongVR(string(w.data[off+4 : off+6])) {
 			if off+12 > len(w.data) {
 				return 0, errNeedMore
 			}
