@@ -9,6 +9,7 @@ import (
 	"strings"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/server"
 )
 
 // flagHelp is returned when -h was asked for; the usage is already printed.
@@ -53,14 +54,16 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 
 // rejectionCode returns exitRejected for an input refusal, else 0.
 func rejectionCode(err error) int {
-	if _, ok := midsag.ReasonOf(err); ok {
+	if isRefusal(err) {
 		return exitRejected
 	}
 	return 0
 }
 
-// isRefusal reports whether err is an input refusal with a reason code.
+// isRefusal reports whether err is an input refusal with a reason code:
+// any code but the failures that server.ReasonTable marks as faults
+// (internal, error), which exit as runtime failures.
 func isRefusal(err error) bool {
-	_, ok := midsag.ReasonOf(err)
-	return ok
+	r, ok := midsag.ReasonOf(err)
+	return ok && !server.MappingOf(r).Fault
 }
