@@ -103,12 +103,21 @@ func writeStudy(dir string, opts Options, index int) (StudyTruth, error) {
 	if err != nil {
 		return truth, err
 	}
+	// Each file is synced as it is written; each folder once, after its
+	// files, rather than once per file.
+	folders := map[string]bool{}
 	for _, f := range files {
 		p := filepath.Join(dir, filepath.FromSlash(f.Name))
 		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
 			return truth, fmt.Errorf("study %d: %w", index, err)
 		}
-		if err := atomicfile.WriteFile(p, f.Data); err != nil {
+		if err := atomicfile.WriteFile(p, f.Data, atomicfile.SkipDirSync()); err != nil {
+			return truth, fmt.Errorf("study %d: %w", index, err)
+		}
+		folders[filepath.Dir(p)] = true
+	}
+	for d := range folders {
+		if err := atomicfile.SyncDir(d); err != nil {
 			return truth, fmt.Errorf("study %d: %w", index, err)
 		}
 	}
