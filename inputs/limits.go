@@ -23,13 +23,20 @@ type Limits struct {
 	MaxTotalBytes int64
 }
 
+// MaxInstanceBytes is the default bound on one instance at every edge:
+// a file, a zip entry, a part, a request body, a C-STORE dataset, and the
+// Part 10 stream preprocess reads. Our choice: one MR instance is rarely
+// above 64 MiB, and a multi-frame Enhanced MR series of a spine study
+// fits well within it.
+const MaxInstanceBytes = 256 << 20
+
 // DefaultLimits are the limits every entry point uses unless told
 // otherwise. Our choice: a cervical spine MR study has a few hundred to a
-// few thousand instances and one instance is rarely above 64 MiB; an
-// archive may inflate to four times the service's default 1 GiB upload.
+// few thousand instances; an archive may inflate to four times the
+// service's default 1 GiB upload.
 var DefaultLimits = Limits{
 	MaxEntries:    20000,
-	MaxEntryBytes: 256 << 20,
+	MaxEntryBytes: MaxInstanceBytes,
 	MaxTotalBytes: 4 << 30,
 }
 
