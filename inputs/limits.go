@@ -18,9 +18,12 @@ type Limits struct {
 	// MaxEntryBytes bounds one instance: a zip entry inflated (whatever
 	// its header declares), a part, a request body of one instance.
 	MaxEntryBytes int64
-	// MaxTotalBytes bounds all entries of one zip archive inflated
-	// together.
+	// MaxTotalBytes and MaxInflation bound all entries of one zip
+	// archive inflated together: to MaxTotalBytes, or to MaxInflation
+	// times the archive's own size when that is more, so a large export
+	// on disk is read whole while a small archive bomb is not.
 	MaxTotalBytes int64
+	MaxInflation  int64
 }
 
 // MaxInstanceBytes is the default bound on one instance at every edge:
@@ -33,11 +36,13 @@ const MaxInstanceBytes = 256 << 20
 // DefaultLimits are the limits every entry point uses unless told
 // otherwise. Our choice: a cervical spine MR study has a few hundred to a
 // few thousand instances; an archive may inflate to four times the
-// service's default 1 GiB upload.
+// service's default 1 GiB upload, or four times its own size (deflate
+// rarely shrinks MR images by more, common practice).
 var DefaultLimits = Limits{
 	MaxEntries:    20000,
 	MaxEntryBytes: MaxInstanceBytes,
 	MaxTotalBytes: 4 << 30,
+	MaxInflation:  4,
 }
 
 // OrDefault returns l with every zero field taken from DefaultLimits.
@@ -50,6 +55,9 @@ func (l Limits) OrDefault() Limits {
 	}
 	if l.MaxTotalBytes <= 0 {
 		l.MaxTotalBytes = DefaultLimits.MaxTotalBytes
+	}
+	if l.MaxInflation <= 0 {
+		l.MaxInflation = DefaultLimits.MaxInflation
 	}
 	return l
 }

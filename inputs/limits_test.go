@@ -6,6 +6,7 @@ import (
 	"compress/flate"
 	"errors"
 	"hash/crc32"
+	"math/rand/v2"
 	"mime/multipart"
 	"net/textproto"
 	"strings"
@@ -93,9 +94,10 @@ func TestZipEntryLimits(t *testing.T) {
 }
 
 // TestZipTotalBudget: entries each within MaxEntryBytes but together
-// beyond MaxTotalBytes are refused once the budget is spent.
+// beyond MaxTotalBytes (and beyond MaxInflation times the archive's
+// size, here far less) are refused once the budget is spent.
 func TestZipTotalBudget(t *testing.T) {
-	lim := Limits{MaxEntries: 10, MaxEntryBytes: 4096, MaxTotalBytes: 10000}
+	lim := Limits{MaxEntries: 10, MaxEntryBytes: 4096, MaxTotalBytes: 10000, MaxInflation: 1}
 	files := map[string][]byte{}
 	for _, n := range []string{"a", "b", "c"} {
 		files[n] = bytes.Repeat([]byte(n), 4000)
@@ -115,6 +117,27 @@ func TestZipTotalBudget(t *testing.T) {
 		t.Fatalf("%d entries refused, want the third only: %v", len(errs), errs)
 	}
 	wantReason(t, "third entry", errs[0], midsag.ReasonTooLarge)
+}
+
+// TestZipInflationAllowance: a large archive may inflate to MaxInflation
+// times its own size even above MaxTotalBytes. The entries are random
+// bytes, which deflate cannot shrink, so the archive is about as large as
+// its contents.
+func TestZipInflationAllowance(t *testing.T) {
+	rnd := make([]byte, 3*4000)
+	rand.NewChaCha8([32]byte{1}).Read(rnd)
+	files := map[string][]byte{"a": rnd[:4000], "b": rnd[4000:8000], "c": rnd[8000:]}
+	r := zipOf(t, false, files)
+	lim := Limits{MaxEntries: 10, MaxEntryBytes: 4096, MaxTotalBytes: 1000, MaxInflation: 2}
+	entries, err := ZipEntries(r, r.Size(), "incompressible.zip", lim)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, e := range entries {
+		if _, err := ReadSource(e.Source); err != nil {
+			t.Errorf("%s within twice the archive's size: %v", e.Path, err)
+		}
+	}
 }
 
 func TestZipEntryCount(t *testing.T) {

@@ -24,8 +24,9 @@ type Entry struct {
 // bytes), named after archive: folders, hidden entries and __MACOSX
 // metadata are skipped (SkipZipEntry). An archive that cannot be read is
 // ReasonNotDICOM; one with more than lim.MaxEntries entries ReasonTooLarge.
-// The entries share one lim.MaxTotalBytes budget, so an archive cannot
-// inflate beyond it however its entries are read.
+// The entries share one budget (lim.MaxTotalBytes, or lim.MaxInflation
+// times size when more), so an archive cannot inflate beyond it however
+// its entries are read.
 func ZipEntries(r io.ReaderAt, size int64, archive string, lim Limits) ([]Entry, error) {
 	lim = lim.OrDefault()
 	zr, err := zip.NewReader(r, size)
@@ -35,7 +36,7 @@ func ZipEntries(r io.ReaderAt, size int64, archive string, lim Limits) ([]Entry,
 	if len(zr.File) > lim.MaxEntries {
 		return nil, tooManyEntries("zip archive "+archive, len(zr.File), lim)
 	}
-	b := newBudget(lim.MaxTotalBytes)
+	b := newBudget(max(lim.MaxTotalBytes, lim.MaxInflation*size))
 	var out []Entry
 	for i, zf := range zr.File {
 		if SkipZipEntry(zf) {
