@@ -107,37 +107,24 @@ type pixelHeader struct {
 }
 
 // locatePixelData finds the top-level Pixel Data element in data, which
-// holds the first bytes of a Part 10 stream. It follows the same rules as
-// parse for the preamble and the transfer syntax. Any other outcome than
+// holds the first bytes of a Part 10 stream, framed as parse frames it
+// (framing). Any other outcome than
 // success means: read more, or parse what there is.
 func locatePixelData(data []byte, lenient bool) (pixelHeader, error) {
-	var (
-		m   meta
-		err error
-	)
-	switch {
-	case len(data) >= 132 && string(data[128:132]) == "DICM":
-		if m, err = readMeta(data, 132); err != nil {
-			return pixelHeader{}, errNeedMore
-		}
-	case len(data) < 132:
+	if len(data) < 132 {
 		return pixelHeader{}, errNeedMore
-	case !lenient || binary.LittleEndian.Uint16(data) > 0x0028:
+	}
+	m, err := framing(data, lenient)
+	if r, _ := midsag.ReasonOf(err); r == midsag.ReasonNotDICOM {
 		// parse refuses these bytes whatever follows them.
 		return pixelHeader{}, errParseNow
-	case binary.LittleEndian.Uint16(data) == 0x0002:
-		if m, err = readMeta(data, 0); err != nil {
-			return pixelHeader{}, errNeedMore
-		}
-	default:
-		if isUpper(data[4]) && isUpper(data[5]) {
-			m.transferSyntax = midsag.ExplicitVRLittleEndian
-		}
+	} else if err != nil {
+		return pixelHeader{}, errNeedMore
 	}
 	if m.transferSyntax == midsag.DeflatedExplicitVRLittleEndian {
 		return pixelHeader{}, errWholeFile
 	}
-	w := walker{data: data, explicit: m.transferSyntax != "" && m.transferSyntax != midsag.ImplicitVRLittleEndian, bo: binary.LittleEndian}
+	w := walker{data: data, explicit: m.transferSyntax != midsag.ImplicitVRLittleEndian, bo: binary.LittleEndian}
 	if m.transferSyntax == midsag.ExplicitVRBigEndian {
 		w.bo = binary.BigEndian
 	}

@@ -68,31 +68,42 @@ func readMeta(data []byte, off int) (meta, error) {
 	return meta{transferSyntax: m.TransferSyntaxUID, bodyOffset: off + n}, nil
 }
 
-func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
-	var m meta
+// framing reads how a stream is framed (PS3.10 7.1): the File Meta
+// Information through part10 after the preamble and "DICM", or, when
+// lenient, a bare group 0002 or a bare data set whose syntax is guessed
+// (PS3.5 10.1 makes Implicit VR Little Endian the default; a VR after the
+// first tag shows explicit VR). Bytes that are not DICOM are refused as
+// not_dicom, a meta group cut short as truncated.
+func framing(data []byte, lenient bool) (meta, error) {
+	var (
+		m   meta
+		err error
+	)
 	switch {
 	case len(data) >= 132 && string(data[128:132]) == "DICM":
-		if m, err = readMeta(data, 132); err != nil {
-			return nil, err
-		}
-	case !p.opts.Lenient:
-		return nil, midsag.Rejectf(midsag.ReasonNotDICOM, "%s", sniff(data))
+		m, err = readMeta(data, 132)
+	case !lenient:
+		return m, midsag.Rejectf(midsag.ReasonNotDICOM, "%s", sniff(data))
 	case len(data) >= 8 && binary.LittleEndian.Uint16(data) == 0x0002:
-		if m, err = readMeta(data, 0); err != nil {
-			return nil, err
-		}
-	default:
-		// No meta information: PS3.5 10.1 makes Implicit VR Little Endian
-		// the default; a VR after the first tag shows explicit VR.
-		if len(data) < 8 || binary.LittleEndian.Uint16(data) > 0x0028 {
-			return nil, midsag.Rejectf(midsag.ReasonNotDICOM, "%s, and the data does not start like a data set", sniff(data))
-		}
-		if isUpper(data[4]) && isUpper(data[5]) {
-			m.transferSyntax = midsag.ExplicitVRLittleEndian
-		}
+		m, err = readMeta(data, 0)
+	case len(data) < 8 || binary.LittleEndian.Uint16(data) > 0x0028:
+		return m, midsag.Rejectf(midsag.ReasonNotDICOM, "%s, and the data does not start like a data set", sniff(data))
+	case isUpper(data[4]) && isUpper(data[5]):
+		m.transferSyntax = midsag.ExplicitVRLittleEndian
+	}
+	if err != nil {
+		return m, err
 	}
 	if m.transferSyntax == "" {
 		m.transferSyntax = midsag.ImplicitVRLittleEndian
+	}
+	return m, nil
+}
+
+func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
+	m, err := framing(data, p.opts.Lenient)
+	if err != nil {
+		return nil, err
 	}
 	body := data[m.bodyOffset:]
 	if m.transferSyntax == midsag.DeflatedExplicitVRLittleEndian {
