@@ -17,10 +17,26 @@ type Mapping struct {
 	// Fault marks a failure of the service rather than a refusal of the
 	// input: its cause is logged and never sent.
 	Fault bool
+	// DICOM is the DIMSE status of a refused instance, sent as a STOW-RS
+	// Failure Reason (0008,1197) (PS3.18 10.5.3 refers to the status codes
+	// of PS3.4 Annex B and PS3.7 Annex C; values from memory): 0xA700
+	// Refused: Out of Resources, 0xA900 Error: Data Set Does Not Match SOP
+	// Class (used for an instance of another study), 0xC000 Error: Cannot
+	// Understand, 0x0110 Processing Failure.
+	DICOM uint16
 }
 
-// ReasonTable maps every reason code of reason.go to its HTTP status and
-// gRPC code; REST, STOW-RS and gRPC all report through it. A test checks
+// DIMSE statuses of ReasonTable (see Mapping.DICOM).
+const (
+	statusOutOfResources = 0xA700
+	statusMismatch       = 0xA900
+	statusCannotParse    = 0xC000
+	statusProcessing     = 0x0110
+)
+
+// ReasonTable maps every reason code of reason.go to its HTTP status,
+// gRPC code and DIMSE status; REST, STOW-RS and gRPC all report through
+// it, and the CLI's exit code follows Fault. A test checks
 // every code has a row.
 //
 // HTTP statuses by RFC 9110 section 15: 400 Bad Request (15.5.1: the
@@ -35,32 +51,32 @@ type Mapping struct {
 // system cannot act on in its present form, RESOURCE_EXHAUSTED for a
 // quota or capacity, NOT_FOUND, UNAUTHENTICATED, INTERNAL.
 var ReasonTable = map[midsag.Reason]Mapping{
-	midsag.ReasonNoInput:              {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonNotDICOM:             {HTTP: http.StatusUnsupportedMediaType, GRPC: codes.InvalidArgument},
-	midsag.ReasonTruncated:            {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonTooLarge:             {HTTP: http.StatusRequestEntityTooLarge, GRPC: codes.InvalidArgument},
-	midsag.ReasonUnsupportedSyntax:    {HTTP: http.StatusUnsupportedMediaType, GRPC: codes.InvalidArgument},
-	midsag.ReasonBadPixelData:         {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonMultipleStudies:      {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonNoSagittalT2:         {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonTooFewSlices:         {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonInconsistentGeometry: {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonMidlineNotInSlab:     {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonIncompleteSeries:     {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonDuplicateInstance:    {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonUnreadable:           {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonModelInputMismatch:   {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonBadModel:             {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonUnknownModel:         {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonBadTable:             {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonMixedModels:          {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonOverlappingStudies:   {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition},
-	midsag.ReasonOverloaded:           {HTTP: http.StatusTooManyRequests, GRPC: codes.ResourceExhausted},
-	midsag.ReasonBadRequest:           {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument},
-	midsag.ReasonNotFound:             {HTTP: http.StatusNotFound, GRPC: codes.NotFound},
-	midsag.ReasonUnauthenticated:      {HTTP: http.StatusUnauthorized, GRPC: codes.Unauthenticated},
-	midsag.ReasonInternal:             {HTTP: http.StatusInternalServerError, GRPC: codes.Internal, Fault: true},
-	midsag.ReasonError:                {HTTP: http.StatusInternalServerError, GRPC: codes.Internal, Fault: true},
+	midsag.ReasonNoInput:              {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonNotDICOM:             {HTTP: http.StatusUnsupportedMediaType, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonTruncated:            {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonTooLarge:             {HTTP: http.StatusRequestEntityTooLarge, GRPC: codes.InvalidArgument, DICOM: statusOutOfResources},
+	midsag.ReasonUnsupportedSyntax:    {HTTP: http.StatusUnsupportedMediaType, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonBadPixelData:         {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonMultipleStudies:      {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusMismatch},
+	midsag.ReasonNoSagittalT2:         {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonTooFewSlices:         {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonInconsistentGeometry: {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonMidlineNotInSlab:     {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonIncompleteSeries:     {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonDuplicateInstance:    {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonUnreadable:           {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonModelInputMismatch:   {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonBadModel:             {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonUnknownModel:         {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonBadTable:             {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonMixedModels:          {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonOverlappingStudies:   {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
+	midsag.ReasonOverloaded:           {HTTP: http.StatusTooManyRequests, GRPC: codes.ResourceExhausted, DICOM: statusOutOfResources},
+	midsag.ReasonBadRequest:           {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
+	midsag.ReasonNotFound:             {HTTP: http.StatusNotFound, GRPC: codes.NotFound, DICOM: statusCannotParse},
+	midsag.ReasonUnauthenticated:      {HTTP: http.StatusUnauthorized, GRPC: codes.Unauthenticated, DICOM: statusCannotParse},
+	midsag.ReasonInternal:             {HTTP: http.StatusInternalServerError, GRPC: codes.Internal, Fault: true, DICOM: statusProcessing},
+	midsag.ReasonError:                {HTTP: http.StatusInternalServerError, GRPC: codes.Internal, Fault: true, DICOM: statusProcessing},
 }
 
 // MappingOf returns the row of r; a code without one (only a peer's, read
@@ -74,6 +90,10 @@ func MappingOf(r midsag.Reason) Mapping {
 
 // HTTPStatus maps a reason to its HTTP status (ReasonTable).
 func HTTPStatus(r midsag.Reason) int { return MappingOf(r).HTTP }
+
+// DICOMStatus maps a reason to the DIMSE status of a refused instance
+// (ReasonTable).
+func DICOMStatus(r midsag.Reason) uint16 { return MappingOf(r).DICOM }
 
 // GRPCCode maps a reason to its gRPC status code (ReasonTable).
 func GRPCCode(r midsag.Reason) codes.Code { return MappingOf(r).GRPC }

@@ -40,6 +40,11 @@ func TestReasonTableSemantics(t *testing.T) {
 		if m.Fault && class != 5 || !m.Fault && class != 4 {
 			t.Errorf("%s: HTTP %d, fault %v: RFC 9110 puts refusals in 4xx, failures in 5xx", r, m.HTTP, m.Fault)
 		}
+		// PS3.7 C.1.3 (from memory): a failure status of the service is
+		// 0x0110 Processing Failure, a refusal an Axxx or Cxxx status.
+		if m.Fault != (m.DICOM == 0x0110) || m.DICOM != 0x0110 && m.DICOM>>12 != 0xA && m.DICOM>>12 != 0xC {
+			t.Errorf("%s: DIMSE status %#04x, fault %v", r, m.DICOM, m.Fault)
+		}
 		gw := runtime.HTTPStatusFromCode(m.GRPC)
 		if gw/100 != class {
 			t.Errorf("%s: gRPC %v maps to HTTP %d at the gateway, a different class from our %d", r, m.GRPC, gw, m.HTTP)
@@ -51,27 +56,34 @@ func TestReasonTableSemantics(t *testing.T) {
 }
 
 // TestReasonTableCases pins the rows whose meaning the cited sources fix
-// one way: RFC 9110 15.5.14 (413 for a body beyond a limit), 15.5.16 (415
+// one way (DIMSE statuses from memory, PS3.4 Annex B: 0xA700 out of
+// resources, 0xA900 data set does not match, 0xC000 cannot understand,
+// 0x0110 processing failure): RFC 9110 15.5.14 (413 for a body beyond a limit), 15.5.16 (415
 // for a format not accepted), 15.5.21 (422 for a well-formed study that
 // cannot be processed), RFC 6585 4 (429 for overload, gRPC
 // RESOURCE_EXHAUSTED), 15.5.2 and 15.5.5 (401, 404).
 func TestReasonTableCases(t *testing.T) {
 	cases := []struct {
-		r    midsag.Reason
-		http int
-		grpc codes.Code
+		r     midsag.Reason
+		http  int
+		grpc  codes.Code
+		dicom uint16
 	}{
-		{midsag.ReasonTooLarge, 413, codes.InvalidArgument},
-		{midsag.ReasonNotDICOM, 415, codes.InvalidArgument},
-		{midsag.ReasonUnsupportedSyntax, 415, codes.InvalidArgument},
-		{midsag.ReasonNoSagittalT2, 422, codes.FailedPrecondition},
-		{midsag.ReasonModelInputMismatch, 422, codes.FailedPrecondition},
-		{midsag.ReasonOverloaded, 429, codes.ResourceExhausted},
-		{midsag.ReasonUnauthenticated, 401, codes.Unauthenticated},
-		{midsag.ReasonNotFound, 404, codes.NotFound},
-		{midsag.ReasonInternal, 500, codes.Internal},
+		{midsag.ReasonTooLarge, 413, codes.InvalidArgument, 0xA700},
+		{midsag.ReasonNotDICOM, 415, codes.InvalidArgument, 0xC000},
+		{midsag.ReasonUnsupportedSyntax, 415, codes.InvalidArgument, 0xC000},
+		{midsag.ReasonMultipleStudies, 400, codes.InvalidArgument, 0xA900},
+		{midsag.ReasonNoSagittalT2, 422, codes.FailedPrecondition, 0xC000},
+		{midsag.ReasonModelInputMismatch, 422, codes.FailedPrecondition, 0xC000},
+		{midsag.ReasonOverloaded, 429, codes.ResourceExhausted, 0xA700},
+		{midsag.ReasonUnauthenticated, 401, codes.Unauthenticated, 0xC000},
+		{midsag.ReasonNotFound, 404, codes.NotFound, 0xC000},
+		{midsag.ReasonInternal, 500, codes.Internal, 0x0110},
 	}
 	for _, c := range cases {
+		if got := DICOMStatus(c.r); got != c.dicom {
+			t.Errorf("DICOMStatus(%s) = %#04x, want %#04x", c.r, got, c.dicom)
+		}
 		if got := HTTPStatus(c.r); got != c.http {
 			t.Errorf("HTTPStatus(%s) = %d, want %d", c.r, got, c.http)
 		}

@@ -22,21 +22,6 @@ const (
 	tagReferencedSOPInstance = "00081155" // (0008,1155) UI
 )
 
-// Failure Reason values (PS3.18 10.5.3 refers to the status codes of
-// PS3.4 / PS3.7 Annex C). All from memory.
-const (
-	// failureOutOfResources: refused for size or load (0xA700).
-	failureOutOfResources = 0xA700
-	// failureStudyMismatch: the instance's Study Instance UID is not the
-	// one in the request URL (0xA900, "data set does not match").
-	failureStudyMismatch = 0xA900
-	// failureCannotUnderstand: the part is not a readable DICOM instance
-	// (0xC000).
-	failureCannotUnderstand = 0xC000
-	// failureProcessing: the service failed to store it (0x0110).
-	failureProcessing = 0x0110
-)
-
 // dicomJSON is one data set in the DICOM JSON model (PS3.18 F.2): keys
 // are 8 upper-case hex digits of the tag.
 type dicomJSON map[string]dicomAttr
@@ -160,15 +145,8 @@ func (a *httpAPI) stowFailed(item dicomJSON, n int, err error) (dicomJSON, int) 
 	return item, code
 }
 
-// failureCode maps a refusal to a Failure Reason (values from memory).
+// failureCode is the Failure Reason of a refused part: the DIMSE status
+// of its reason in server.ReasonTable.
 func failureCode(err error) int {
-	switch classify(err).Reason {
-	case midsag.ReasonTooLarge, midsag.ReasonOverloaded:
-		return failureOutOfResources
-	case midsag.ReasonMultipleStudies:
-		return failureStudyMismatch
-	case midsag.ReasonInternal:
-		return failureProcessing
-	}
-	return failureCannotUnderstand
+	return int(server.DICOMStatus(classify(err).Reason))
 }
