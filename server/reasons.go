@@ -95,6 +95,16 @@ func HTTPStatus(r midsag.Reason) int { return MappingOf(r).HTTP }
 // (ReasonTable).
 func DICOMStatus(r midsag.Reason) uint16 { return MappingOf(r).DICOM }
 
+// RefusalStatus is the DIMSE status of the refusal in err's chain
+// (DICOMStatus), or 0xA700 Out of Resources when err carries no reason
+// (a storage failure).
+func RefusalStatus(err error) uint16 {
+	if r, ok := midsag.ReasonOf(err); ok {
+		return DICOMStatus(r)
+	}
+	return statusOutOfResources
+}
+
 // GRPCCode maps a reason to its gRPC status code (ReasonTable).
 func GRPCCode(r midsag.Reason) codes.Code { return MappingOf(r).GRPC }
 

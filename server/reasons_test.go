@@ -1,6 +1,8 @@
 package server
 
 import (
+	"errors"
+	"fmt"
 	"testing"
 
 	"github.com/grpc-ecosystem/grpc-gateway/v2/runtime"
@@ -89,6 +91,24 @@ func TestReasonTableCases(t *testing.T) {
 		}
 		if got := GRPCCode(c.r); got != c.grpc {
 			t.Errorf("GRPCCode(%s) = %v, want %v", c.r, got, c.grpc)
+		}
+	}
+}
+
+// TestRefusalStatus: the C-STORE answer to an Ingest error (PS3.4 B.2.3,
+// from memory): its reason's status through a wrapped chain, and 0xA700
+// Out of Resources for a storage failure without a reason.
+func TestRefusalStatus(t *testing.T) {
+	for _, c := range []struct {
+		err  error
+		want uint16
+	}{
+		{fmt.Errorf("ingest: %w", midsag.Rejectf(midsag.ReasonNotDICOM, "no DICM")), 0xC000},
+		{midsag.Rejectf(midsag.ReasonTooLarge, "study full"), 0xA700},
+		{errors.New("disk full"), 0xA700},
+	} {
+		if got := RefusalStatus(c.err); got != c.want {
+			t.Errorf("%v: %#04x, want %#04x", c.err, got, c.want)
 		}
 	}
 }
