@@ -5,7 +5,9 @@ import (
 	"go/ast"
 	"go/parser"
 	"go/token"
+	"os"
 	"slices"
+	"strings"
 	"testing"
 )
 
@@ -55,6 +57,20 @@ func TestAllReasonsListsEveryConstant(t *testing.T) {
 		values[v] = name
 		if !slices.Contains(all, v) {
 			t.Errorf("%s (%q) is missing from AllReasons", name, v)
+		}
+	}
+}
+
+// TestReadmeListsEveryReason: the README's reason list is the public
+// contract's documentation, so every code must appear there in backticks.
+func TestReadmeListsEveryReason(t *testing.T) {
+	b, err := os.ReadFile("README.md")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range AllReasons() {
+		if !strings.Contains(string(b), "`"+string(r)+"`") {
+			t.Errorf("README.md does not list the reason code %q", r)
 		}
 	}
 }
