@@ -128,23 +128,11 @@ func locatePixelData(data []byte, lenient bool) (pixelHeader, error) {
 	if m.transferSyntax == midsag.ExplicitVRBigEndian {
 		w.bo = binary.BigEndian
 	}
-	off := m.bodyOffset
-	for {
-		if off+12 > len(data) {
-			return pixelHeader{}, errNeedMore
-		}
-		tag := uint32(w.bo.Uint16(data[off:]))<<16 | uint32(w.bo.Uint16(data[off+2:]))
-		if tag == tagPixelData {
-			hdr := 8
-			if w.explicit {
-				hdr = 12
-			}
-			return pixelHeader{off: off, hdr: hdr, explicit: w.explicit, bo: w.bo}, nil
-		}
-		if off, err = w.element(off, 0); err != nil {
-			return pixelHeader{}, err
-		}
+	off, hdr, err := w.pixelData(m.bodyOffset)
+	if err != nil {
+		return pixelHeader{}, err
 	}
+	return pixelHeader{off: off, hdr: hdr, explicit: w.explicit, bo: w.bo}, nil
 }
 
 // walker skips data set elements in a prefix without checking limits
@@ -153,6 +141,26 @@ type walker struct {
 	data     []byte
 	explicit bool
 	bo       binary.ByteOrder
+}
+
+// pixelData returns the offset and header length of the top-level Pixel
+// Data element (7FE0,0010), walking from off; errNeedMore when the bytes
+// end first.
+func (w walker) pixelData(off int) (at, hdr int, err error) {
+	for {
+		if off+12 > len(w.data) {
+			return 0, 0, errNeedMore
+		}
+		if uint32(w.bo.Uint16(w.data[off:]))<<16|uint32(w.bo.Uint16(w.data[off+2:])) == tagPixelData {
+			if w.explicit {
+				return off, 12, nil
+			}
+			return off, 8, nil
+		}
+		if off, err = w.element(off, 0); err != nil {
+			return 0, 0, err
+		}
+	}
 }
 
 // element skips the element at off and returns the offset after it.
