@@ -78,13 +78,13 @@ func (p *Pipeline) Read(ctx context.Context, sources []Source) ([]*Instance, []s
 		}
 		inst, err := p.readOne(s)
 		if err != nil {
-			r, ok := ReasonOf(err)
-			if !ok {
+			e := RefusalOf(err)
+			if e == nil {
 				return nil, nil, fmt.Errorf("read %s: %w", s.Name, err)
 			}
-			skipped[r]++
+			skipped[e.Reason]++
 			if firstErr == nil {
-				firstErr = fmt.Errorf("%s: %w", s.Name, err)
+				firstErr = fmt.Errorf("%s: %w", s.Name, e.WithDetail("source", s.Name))
 			}
 			continue
 		}

@@ -3,9 +3,11 @@ package cohort
 import (
 	"archive/zip"
 	"context"
+	"errors"
 	"io"
 	"os"
 	"path/filepath"
+	"slices"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -44,39 +46,60 @@ func TestDiscoverRereadsOnlyChanged(t *testing.T) {
 	hr := &countingHeaders{pre: preprocess.New(preprocess.Options{})}
 	ctx := context.Background()
 
-	d1, err := st.Discover(ctx, root, hr, 2)
-	if err != nil {
-		t.Fatal(err)
-	}
+	d1 := discover(t, st, root, hr)
 	files := int(hr.n.Load())
 	if d1.Read != files || d1.Studies != 4 || d1.Refused[midsag.ReasonNotDICOM] != 2 { // labels.csv, truth.json
 		t.Fatalf("first walk: %+v after %d reads", d1, files)
 	}
-	uids, err := st.Studies(ctx)
+	wantStudies(t, st, truths)
+
+	if d2 := discover(t, st, root, hr); hr.n.Load() != 0 || d2.Cached != files || d2.Read != 0 {
+		t.Fatalf("unchanged rerun read %d headers: %+v", hr.n.Load(), d2)
+	}
+
+	s1 := changeCohort(t, root, truths)
+	if d3 := discover(t, st, root, hr); hr.n.Load() != 4 || d3.Read != 4 || d3.Removed != 1 || d3.Cached != files-2 || d3.Studies != 4 {
+		t.Fatalf("after one change, one removal and a 3-entry zip: %d reads, %+v", hr.n.Load(), d3)
+	}
+	if d4 := discover(t, st, root, hr); hr.n.Load() != 0 || d4.Cached != files+2 {
+		t.Fatalf("rerun with the zip: %d reads, %+v", hr.n.Load(), d4)
+	}
+	sf, err := st.studyFiles(ctx, truths[1].StudyInstanceUID)
+	if err != nil || len(sf) != len(s1)+3 {
+		t.Fatalf("study 1 has %d files (%v), want %d", len(sf), err, len(s1)+3)
+	}
+}
+
+// discover runs one discovery on two workers with the read count reset.
+func discover(t *testing.T, st *Store, root string, hr *countingHeaders) *Discovery {
+	t.Helper()
+	hr.n.Store(0)
+	d, err := st.Discover(context.Background(), root, hr, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return d
+}
+
+// wantStudies checks every study of the phantom's truth was discovered.
+func wantStudies(t *testing.T, st *Store, truths []phantom.StudyTruth) {
+	t.Helper()
+	uids, err := st.Studies(context.Background())
 	if err != nil {
 		t.Fatal(err)
 	}
 	for _, tr := range truths {
-		found := false
-		for _, u := range uids {
-			found = found || u == tr.StudyInstanceUID
-		}
-		if !found {
+		if !slices.Contains(uids, tr.StudyInstanceUID) {
 			t.Errorf("study %s not discovered", tr.StudyInstanceUID)
 		}
 	}
+}
 
-	hr.n.Store(0)
-	d2, err := st.Discover(ctx, root, hr, 2)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if hr.n.Load() != 0 || d2.Cached != files || d2.Read != 0 {
-		t.Fatalf("unchanged rerun read %d headers: %+v", hr.n.Load(), d2)
-	}
-
-	// Change one file (new mtime), remove one, add a zip of one study's
-	// files under another folder.
+// changeCohort changes one file of study 0 (new mtime), removes another,
+// and adds a zip of three of study 1's files under another folder; it
+// returns study 1's files.
+func changeCohort(t *testing.T, root string, truths []phantom.StudyTruth) []string {
+	t.Helper()
 	s0, _ := filepath.Glob(filepath.Join(root, truths[0].Study, "*"))
 	later := time.Now().Add(time.Hour)
 	if err := os.Chtimes(s0[0], later, later); err != nil {
@@ -96,24 +119,48 @@ func TestDiscoverRereadsOnlyChanged(t *testing.T) {
 		w, _ := zw.Create("copy/" + filepath.Base(f))
 		w.Write(b)
 	}
-	zw.Close()
+	if err := zw.Close(); err != nil {
+		t.Fatal(err)
+	}
 	zf.Close()
+	return s1
+}
 
-	hr.n.Store(0)
-	d3, err := st.Discover(ctx, root, hr, 2)
+// cancellingHeaders cancels the discovery's context at its first read.
+type cancellingHeaders struct {
+	countingHeaders
+	cancel context.CancelFunc
+}
+
+func (c *cancellingHeaders) ReadHeader(name string, r io.Reader, size int64) (*midsag.Instance, error) {
+	c.cancel()
+	return c.countingHeaders.ReadHeader(name, r, size)
+}
+
+// TestDiscoverHonoursContext: once the context is cancelled, discovery
+// reads no further header and returns the context's error, recording
+// nothing of the batch it was in.
+func TestDiscoverHonoursContext(t *testing.T) {
+	root := t.TempDir()
+	if _, err := phantom.Generate(root, phantom.Options{Studies: 2, Seed: 23, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}}); err != nil {
+		t.Fatal(err)
+	}
+	st, err := Open(t.TempDir())
 	if err != nil {
 		t.Fatal(err)
 	}
-	if hr.n.Load() != 4 || d3.Read != 4 || d3.Removed != 1 || d3.Cached != files-2 || d3.Studies != 4 {
-		t.Fatalf("after one change, one removal and a 3-entry zip: %d reads, %+v", hr.n.Load(), d3)
+	defer st.Close()
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	hr := &cancellingHeaders{countingHeaders: countingHeaders{pre: preprocess.New(preprocess.Options{})}, cancel: cancel}
+	if _, err := st.Discover(ctx, root, hr, 1); !errors.Is(err, context.Canceled) {
+		t.Fatalf("Discover after cancel: %v, want context.Canceled", err)
 	}
-	hr.n.Store(0)
-	if d4, err := st.Discover(ctx, root, hr, 2); err != nil || hr.n.Load() != 0 || d4.Cached != files+2 {
-		t.Fatalf("rerun with the zip: %d reads, %+v, %v", hr.n.Load(), d4, err)
+	if n := hr.n.Load(); n != 1 {
+		t.Errorf("%d headers read after the context was cancelled at the first, want 1", n)
 	}
-	sf, err := st.studyFiles(ctx, truths[1].StudyInstanceUID)
-	if err != nil || len(sf) != len(s1)+3 {
-		t.Fatalf("study 1 has %d files (%v), want %d", len(sf), err, len(s1)+3)
+	if uids, err := st.Studies(context.Background()); err != nil || len(uids) != 0 {
+		t.Errorf("a cancelled batch was recorded: %v, %v", uids, err)
 	}
 }
 
@@ -192,7 +239,7 @@ func TestDiscoverFollowsLinks(t *testing.T) {
 		t.Fatal(err)
 	}
 	files1, _ := filepath.Glob(filepath.Join(store, truths[1].Study, "*"))
-	if d.Studies != 2 || d.Files != len(files0)+len(files1)+1 || d.Refused[ReasonUnreadable] != 1 {
+	if d.Studies != 2 || d.Files != len(files0)+len(files1)+1 || d.Refused[midsag.ReasonUnreadable] != 1 {
 		t.Errorf("discovery %+v; want 2 studies, %d files, 1 unreadable (the dangling link)", d, len(files0)+len(files1)+1)
 	}
 }

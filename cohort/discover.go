@@ -1,7 +1,6 @@
 package cohort
 
 import (
-	"archive/zip"
 	"context"
 	"database/sql"
 	"errors"
@@ -11,7 +10,8 @@ import (
 	"os"
 	"path/filepath"
 	"sort"
-	"sync"
+
+	"golang.org/x/sync/errgroup"
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/inputs"
@@ -25,12 +25,10 @@ type HeaderReader interface {
 	ReadHeader(name string, r io.Reader, size int64) (*midsag.Instance, error)
 }
 
-// ReasonUnreadable marks a file that could not be opened or read (a
-// permission or I/O error), as opposed to one read and refused.
-const ReasonUnreadable midsag.Reason = "unreadable"
-
-// reasonArchive marks a zip archive's own index entry; its entries have
-// theirs.
+// reasonArchive marks a zip archive's own index entry in the reason
+// column of the header index; its entries have theirs. It is never
+// reported: Discovery.Refused and the batch tables leave it out, so it is
+// not a midsag.Reason.
 const reasonArchive = "archive"
 
 // discoverBatch is how many files are looked up, read and recorded
@@ -175,23 +173,10 @@ func (s *Store) discoverBatch(ctx context.Context, files []fileInfo, gen int64, 
 		d.Cached += int(n)
 		d.Files += int(n)
 	}
-	results := make([][]indexRow, len(miss))
-	var wg sync.WaitGroup
-	next := make(chan int)
-	for w := 0; w < min(workers, len(miss)); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for i := range next {
-				results[i] = readFile(miss[i], hr)
-			}
-		}()
+	results, err := readFiles(ctx, miss, hr, workers)
+	if err != nil {
+		return err
 	}
-	for i := range miss {
-		next <- i
-	}
-	close(next)
-	wg.Wait()
 	for _, rows := range results {
 		for _, r := range rows {
 			if _, err := tx.ExecContext(ctx, `INSERT OR REPLACE INTO files(path, file, entry, size, mtime, study, reason, gen)
@@ -207,16 +192,41 @@ func (s *Store) discoverBatch(ctx context.Context, files []fileInfo, gen int64, 
 	return tx.Commit()
 }
 
+// readFiles reads the headers of files on at most workers goroutines and
+// returns each file's rows in order. A cancelled ctx stops it before the
+// next file.
+func readFiles(ctx context.Context, files []fileInfo, hr HeaderReader, workers int) ([][]indexRow, error) {
+	results := make([][]indexRow, len(files))
+	g, gctx := errgroup.WithContext(ctx)
+	g.SetLimit(max(workers, 1))
+	for i := range files {
+		if gctx.Err() != nil {
+			break
+		}
+		g.Go(func() error {
+			if err := gctx.Err(); err != nil {
+				return err
+			}
+			results[i] = readFile(files[i], hr)
+			return nil
+		})
+	}
+	if err := g.Wait(); err != nil {
+		return nil, err
+	}
+	return results, ctx.Err()
+}
+
 // readFile reads one file's header, or every entry's of a zip archive.
 func readFile(fi fileInfo, hr HeaderReader) []indexRow {
 	row := indexRow{path: fi.path, file: fi.path, size: fi.size, mtime: fi.mtime}
 	if fi.size < 0 {
-		row.reason = string(ReasonUnreadable)
+		row.reason = string(midsag.ReasonUnreadable)
 		return []indexRow{row}
 	}
 	f, err := os.Open(fi.path)
 	if err != nil {
-		row.reason = string(ReasonUnreadable)
+		row.reason = string(midsag.ReasonUnreadable)
 		return []indexRow{row}
 	}
 	defer f.Close()
@@ -234,7 +244,7 @@ func headerRow(row indexRow, inst *midsag.Instance, err error) indexRow {
 		row.study = inst.StudyInstanceUID
 	}
 	if err != nil {
-		row.reason = string(ReasonUnreadable)
+		row.reason = string(midsag.ReasonUnreadable)
 		if r, ok := midsag.ReasonOf(err); ok {
 			row.reason = string(r)
 		}
@@ -242,30 +252,22 @@ func headerRow(row indexRow, inst *midsag.Instance, err error) indexRow {
 	return row
 }
 
-// readZip reads every entry of an archive; the archive's own row marks
-// it, so an unchanged archive is not opened again.
+// readZip reads every entry of an archive within the input limits
+// (inputs.ZipEntries); the archive's own row marks it, so an unchanged
+// archive is not opened again. An archive refused whole (unreadable,
+// too many entries) has that reason on its own row.
 func readZip(f *os.File, arch indexRow, hr HeaderReader) []indexRow {
-	zr, err := zip.NewReader(f, arch.size)
+	entries, err := inputs.ZipEntries(f, arch.size, arch.path, inputs.DefaultLimits)
 	if err != nil {
-		arch.reason = string(midsag.ReasonNotDICOM)
-		return []indexRow{arch}
-	}
-	if len(zr.File) > inputs.MaxZipEntries {
-		arch.reason = string(midsag.ReasonTooLarge)
-		return []indexRow{arch}
+		return []indexRow{headerRow(arch, nil, err)}
 	}
 	arch.reason = reasonArchive
 	out := []indexRow{arch}
-	for _, zf := range zr.File {
-		if inputs.SkipZipEntry(zf) {
-			continue
-		}
-		row := indexRow{path: arch.path + "!" + zf.Name, file: arch.path, entry: zf.Name,
-			size: int64(zf.UncompressedSize64), mtime: arch.mtime}
-		rc, err := zf.Open()
+	for _, e := range entries {
+		row := indexRow{path: e.Name, file: arch.path, entry: e.Path, size: e.Size, mtime: arch.mtime}
+		rc, err := e.Open()
 		if err != nil {
-			row.reason = string(ReasonUnreadable)
-			out = append(out, row)
+			out = append(out, headerRow(row, nil, err))
 			continue
 		}
 		inst, err := hr.ReadHeader(row.path, rc, row.size)
@@ -345,10 +347,11 @@ func (s *Store) studyFiles(ctx context.Context, uid string) ([]studyFile, error)
 }
 
 // sources opens the study's zip archives once each and returns one
-// Source per file, with a function that closes the archives.
+// Source per file, its entries read within the input limits
+// (inputs.ZipEntries), with a function that closes the archives.
 func sources(files []studyFile) ([]midsag.Source, func()) {
-	archives := map[string]*zip.ReadCloser{}
-	entries := map[string]map[string]*zip.File{}
+	archives := map[string]*os.File{}
+	entries := map[string]map[string]midsag.Source{}
 	var out []midsag.Source
 	for _, f := range files {
 		if f.entry == "" {
@@ -356,29 +359,46 @@ func sources(files []studyFile) ([]midsag.Source, func()) {
 			continue
 		}
 		if _, ok := archives[f.file]; !ok {
-			zr, err := zip.OpenReader(f.file)
-			archives[f.file] = zr
-			entries[f.file] = map[string]*zip.File{}
-			if err == nil {
-				for _, zf := range zr.File {
-					entries[f.file][zf.Name] = zf
-				}
-			}
+			archives[f.file], entries[f.file] = openArchive(f.file)
 		}
-		name, zf := f.file+"!"+f.entry, entries[f.file][f.entry]
-		out = append(out, midsag.Source{Name: name, Open: func() (io.ReadCloser, error) {
-			if zf == nil {
+		name := f.file + "!" + f.entry
+		src, ok := entries[f.file][f.entry]
+		if !ok {
+			src = midsag.Source{Name: name, Open: func() (io.ReadCloser, error) {
 				return nil, fmt.Errorf("open %s: entry is gone from the archive", name)
-			}
-			return zf.Open()
-		}})
+			}}
+		}
+		out = append(out, src)
 	}
 	sort.SliceStable(out, func(i, j int) bool { return out[i].Name < out[j].Name })
 	return out, func() {
-		for _, zr := range archives {
-			if zr != nil {
-				zr.Close()
+		for _, f := range archives {
+			if f != nil {
+				f.Close()
 			}
 		}
 	}
+}
+
+// openArchive opens a zip archive and indexes its entries by name; an
+// archive that can no longer be read has none, so its entries report
+// themselves gone.
+func openArchive(path string) (*os.File, map[string]midsag.Source) {
+	byName := map[string]midsag.Source{}
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, byName
+	}
+	st, err := f.Stat()
+	if err != nil {
+		return f, byName
+	}
+	entries, err := inputs.ZipEntries(f, st.Size(), path, inputs.DefaultLimits)
+	if err != nil {
+		return f, byName
+	}
+	for _, e := range entries {
+		byName[e.Path] = e.Source
+	}
+	return f, byName
 }

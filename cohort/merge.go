@@ -7,18 +7,11 @@ import (
 	"github.com/midsag/midsag"
 )
 
-// Refusal reasons of Merge.
-const (
-	// ReasonMixedModels refuses shards scored with different models.
-	ReasonMixedModels midsag.Reason = "mixed_models"
-	// ReasonOverlappingStudies refuses shards that share a study.
-	ReasonOverlappingStudies midsag.Reason = "overlapping_studies"
-)
-
 // Merge reads results.jsonl from each shard folder and writes out's
 // results.csv and results.jsonl, the same files one run over the whole
 // cohort writes. It refuses shards made with different model sha256s, and
-// shards that share a study, with a *midsag.Error.
+// shards that share a study, with a *midsag.Error (midsag.ReasonMixedModels,
+// midsag.ReasonOverlappingStudies).
 func Merge(out string, shardDirs []string) (int, error) {
 	var (
 		all   []Row
@@ -36,10 +29,10 @@ func Merge(out string, shardDirs []string) (int, error) {
 				model, from = r.ModelSHA256, dir
 			}
 			if r.ModelSHA256 != model {
-				return 0, midsag.Rejectf(ReasonMixedModels, "%s was scored with model sha256 %.12s, %s with %.12s", dir, r.ModelSHA256, from, model)
+				return 0, midsag.Rejectf(midsag.ReasonMixedModels, "%s was scored with model sha256 %.12s, %s with %.12s", dir, r.ModelSHA256, from, model)
 			}
 			if prev, dup := seen[r.StudyInstanceUID]; dup {
-				return 0, midsag.Rejectf(ReasonOverlappingStudies, "a study is in both %s and %s", prev, dir)
+				return 0, midsag.Rejectf(midsag.ReasonOverlappingStudies, "a study is in both %s and %s", prev, dir)
 			}
 			seen[r.StudyInstanceUID] = dir
 			all = append(all, r)

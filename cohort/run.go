@@ -274,7 +274,7 @@ func (s *Store) scoreStudy(ctx context.Context, p *midsag.Pipeline, onScored fun
 
 func failed(row Row, err error, t0 time.Time) Row {
 	row.Status = StatusFailed
-	row.Reason = ReasonError
+	row.Reason = string(midsag.ReasonError)
 	row.Message = oneLine(err.Error())
 	row.ElapsedMS = msSince(t0)
 	return row

@@ -13,6 +13,7 @@ import (
 	"strconv"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 // Status is a study's outcome in a batch.
@@ -25,9 +26,6 @@ const (
 	StatusRejected Status = "rejected"
 	StatusFailed   Status = "failed"
 )
-
-// ReasonError is the reason of a failed row: the message column says more.
-const ReasonError = "error"
 
 // Output file names in a batch's folder.
 const (
@@ -100,7 +98,7 @@ func WriteTables(dir string, rows []Row) error {
 type tableWriter struct {
 	dir       string
 	withLabel bool
-	files     [2]*os.File // csv, jsonl
+	files     [2]*atomicfile.File // csv, jsonl
 	cw        *csv.Writer
 	jb        *bufio.Writer
 	enc       *json.Encoder
@@ -109,17 +107,13 @@ type tableWriter struct {
 func newTableWriter(dir string, withLabel bool) (*tableWriter, error) {
 	tw := &tableWriter{dir: dir, withLabel: withLabel}
 	for i, name := range []string{CSVName, JSONLName} {
-		f, err := os.CreateTemp(dir, "."+name+".tmp*")
+		// Outputs are ordinary files other users may read.
+		f, err := atomicfile.Create(filepath.Join(dir, name), atomicfile.Perm(0o644))
 		if err != nil {
 			tw.abort()
 			return nil, fmt.Errorf("cohort: write %s: %w", name, err)
 		}
 		tw.files[i] = f
-		// CreateTemp makes the file owner-only; outputs are ordinary files.
-		if err := f.Chmod(0o644); err != nil {
-			tw.abort()
-			return nil, fmt.Errorf("cohort: write %s: %w", name, err)
-		}
 	}
 	tw.cw = csv.NewWriter(bufio.NewWriter(tw.files[0]))
 	tw.jb = bufio.NewWriter(tw.files[1])
@@ -161,41 +155,23 @@ func (tw *tableWriter) write(r Row) error {
 	return nil
 }
 
-// commit flushes and syncs both files, renames them into place and syncs
-// the folder, so the new tables survive a crash whole or not at all.
+// commit flushes both files and commits them (atomicfile), so each new
+// table survives a crash whole or not at all.
 func (tw *tableWriter) commit() error {
 	tw.cw.Flush()
 	err := tw.cw.Error()
 	if err == nil {
 		err = tw.jb.Flush()
 	}
-	for _, f := range tw.files {
-		if err == nil {
-			err = f.Sync()
-		}
-	}
 	if err != nil {
 		tw.abort()
 		return fmt.Errorf("cohort: write table: %w", err)
 	}
-	for i, name := range []string{CSVName, JSONLName} {
-		f := tw.files[i]
-		if err := f.Close(); err != nil {
+	for _, f := range tw.files {
+		if err := f.Commit(); err != nil {
 			tw.abort()
-			return fmt.Errorf("cohort: write %s: %w", name, err)
+			return fmt.Errorf("cohort: %w", err)
 		}
-		if err := os.Rename(f.Name(), filepath.Join(tw.dir, name)); err != nil {
-			tw.abort()
-			return fmt.Errorf("cohort: write %s: %w", name, err)
-		}
-	}
-	d, err := os.Open(tw.dir)
-	if err != nil {
-		return fmt.Errorf("cohort: sync %s: %w", tw.dir, err)
-	}
-	defer d.Close()
-	if err := d.Sync(); err != nil {
-		return fmt.Errorf("cohort: sync %s: %w", tw.dir, err)
 	}
 	return nil
 }
@@ -204,8 +180,7 @@ func (tw *tableWriter) commit() error {
 func (tw *tableWriter) abort() {
 	for _, f := range tw.files {
 		if f != nil {
-			f.Close()
-			os.Remove(f.Name())
+			f.Abort()
 		}
 	}
 }
@@ -235,47 +210,4 @@ func ReadRows(dir string) ([]Row, error) {
 		return nil, fmt.Errorf("cohort: read %s: %w", path, err)
 	}
 	return out, nil
-}
-
-// writeAtomic writes data to a synced temporary file beside path, renames
-// it into place and syncs the folder, so the new name survives a crash.
-func writeAtomic(path string, data []byte) error {
-	dir := filepath.Dir(path)
-	tmp, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return fmt.Errorf("cohort: write %s: %w", path, err)
-	}
-	name := tmp.Name()
-	fail := func(err error) error {
-		tmp.Close()
-		os.Remove(name)
-		return fmt.Errorf("cohort: write %s: %w", path, err)
-	}
-	// CreateTemp makes the file owner-only; outputs are ordinary files.
-	if err := tmp.Chmod(0o644); err != nil {
-		return fail(err)
-	}
-	if _, err := tmp.Write(data); err != nil {
-		return fail(err)
-	}
-	if err := tmp.Sync(); err != nil {
-		return fail(err)
-	}
-	if err := tmp.Close(); err != nil {
-		os.Remove(name)
-		return fmt.Errorf("cohort: write %s: %w", path, err)
-	}
-	if err := os.Rename(name, path); err != nil {
-		os.Remove(name)
-		return fmt.Errorf("cohort: write %s: %w", path, err)
-	}
-	d, err := os.Open(dir)
-	if err != nil {
-		return fmt.Errorf("cohort: sync %s: %w", dir, err)
-	}
-	defer d.Close()
-	if err := d.Sync(); err != nil {
-		return fmt.Errorf("cohort: sync %s: %w", dir, err)
-	}
-	return nil
 }

@@ -81,67 +81,102 @@ func ReadTable(table io.Reader, tableName string, labels io.Reader, labelsName s
 	if cols.Reader != "" {
 		t.Reader = []bool{}
 	}
-	seen := map[string]int{}
+	rr := rowReader{t: t, cols: cols, at: at, truth: truth, name: tableName, seen: map[string]int{}}
 	for i, row := range rows {
-		line := i + 2 // 1-based, after the header
-		var id, label string
-		if truth != nil {
-			id = row[at[cols.ID]]
-			if prev, dup := seen[id]; dup {
-				return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: id %q already on line %d", tableName, line, id, prev)
-			}
-			seen[id] = line
-			var ok bool
-			if label, ok = truth[id]; !ok {
-				t.Excluded["no_label"]++
-				continue
-			}
-		} else {
-			label = row[at[cols.Label]]
+		if err := rr.add(row, i+2); err != nil { // 1-based, after the header
+			return nil, err
 		}
-		cell := func(c string) string { return strings.TrimSpace(row[at[c]]) }
-		switch {
-		case strings.TrimSpace(label) == "":
-			t.Excluded["empty_label"]++
-			continue
-		case cell(cols.Score) == "":
-			t.Excluded["empty_score"]++
-			continue
-		case cols.Compare != "" && cell(cols.Compare) == "":
-			t.Excluded["empty_compare"]++
-			continue
-		case cols.Reader != "" && cell(cols.Reader) == "":
-			t.Excluded["empty_reader"]++
-			continue
-		}
-		pos, err := t.label(strings.TrimSpace(label), cols.Positive)
-		if err != nil {
-			return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: %v", tableName, line, err)
-		}
-		s, err := number(cell(cols.Score))
-		if err != nil {
-			return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: column %q: %v", tableName, line, cols.Score, err)
-		}
-		if cols.Compare != "" {
-			c, err := number(cell(cols.Compare))
-			if err != nil {
-				return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: column %q: %v", tableName, line, cols.Compare, err)
-			}
-			t.Compare = append(t.Compare, c)
-		}
-		if cols.Reader != "" {
-			switch r := cell(cols.Reader); r {
-			case "0", "1":
-				t.Reader = append(t.Reader, r == "1")
-			default:
-				return nil, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: reader call %q in column %q is not 0 or 1", tableName, line, r, cols.Reader)
-			}
-		}
-		t.IDs = append(t.IDs, id)
-		t.Labels = append(t.Labels, pos)
-		t.Scores = append(t.Scores, s)
 	}
 	return t, nil
+}
+
+// rowReader adds the rows of one table to t.
+type rowReader struct {
+	t     *Table
+	cols  Columns
+	at    map[string]int
+	truth map[string]string // id → label from the labels file, or nil
+	name  string
+	seen  map[string]int // id → line, for a join
+}
+
+// add adds one row (at line) to the table, counts it as excluded, or
+// refuses it.
+func (rr *rowReader) add(row []string, line int) error {
+	cols := rr.cols
+	id, label, ok, err := rr.idLabel(row, line)
+	if err != nil || !ok {
+		return err
+	}
+	cell := func(c string) string { return strings.TrimSpace(row[rr.at[c]]) }
+	if reason := emptyCell(label, cell, cols); reason != "" {
+		rr.t.Excluded[reason]++
+		return nil
+	}
+	bad := func(format string, args ...any) error {
+		return midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: "+format, append([]any{rr.name, line}, args...)...)
+	}
+	pos, err := rr.t.label(strings.TrimSpace(label), cols.Positive)
+	if err != nil {
+		return bad("%v", err)
+	}
+	s, err := number(cell(cols.Score))
+	if err != nil {
+		return bad("column %q: %v", cols.Score, err)
+	}
+	if cols.Compare != "" {
+		c, err := number(cell(cols.Compare))
+		if err != nil {
+			return bad("column %q: %v", cols.Compare, err)
+		}
+		rr.t.Compare = append(rr.t.Compare, c)
+	}
+	if cols.Reader != "" {
+		switch r := cell(cols.Reader); r {
+		case "0", "1":
+			rr.t.Reader = append(rr.t.Reader, r == "1")
+		default:
+			return bad("reader call %q in column %q is not 0 or 1", r, cols.Reader)
+		}
+	}
+	rr.t.IDs = append(rr.t.IDs, id)
+	rr.t.Labels = append(rr.t.Labels, pos)
+	rr.t.Scores = append(rr.t.Scores, s)
+	return nil
+}
+
+// idLabel returns the row's id and label: from the labels file in a join
+// (ok false, counted as no_label, when the id has none there; a duplicate
+// id refused), else from the label column.
+func (rr *rowReader) idLabel(row []string, line int) (id, label string, ok bool, err error) {
+	if rr.truth == nil {
+		return "", row[rr.at[rr.cols.Label]], true, nil
+	}
+	id = row[rr.at[rr.cols.ID]]
+	if prev, dup := rr.seen[id]; dup {
+		return "", "", false, midsag.Rejectf(midsag.ReasonBadTable, "%s line %d: id %q already on line %d", rr.name, line, id, prev)
+	}
+	rr.seen[id] = line
+	if label, ok = rr.truth[id]; !ok {
+		rr.t.Excluded["no_label"]++
+	}
+	return id, label, ok, nil
+}
+
+// emptyCell names the exclusion of a row with an empty cell in a used
+// column, or "" when every used cell holds something.
+func emptyCell(label string, cell func(string) string, cols Columns) string {
+	switch {
+	case strings.TrimSpace(label) == "":
+		return "empty_label"
+	case cell(cols.Score) == "":
+		return "empty_score"
+	case cols.Compare != "" && cell(cols.Compare) == "":
+		return "empty_compare"
+	case cols.Reader != "" && cell(cols.Reader) == "":
+		return "empty_reader"
+	}
+	return ""
 }
 
 // label maps a label value to positive or negative, allowing exactly one

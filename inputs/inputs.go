@@ -1,10 +1,13 @@
-// Package inputs turns what a user points midsag at (files, folders
-// searched recursively, zip archives) into midsag.Sources, with the rules
-// every entry point shares: hidden files and folders are skipped, a zip
-// archive is recognised by its signature whatever its name, and within
-// it folders, hidden entries and __MACOSX metadata are skipped, at most
-// MaxZipEntries entries per archive. The score command collects its
-// inputs here; batch discovery and the REST upload apply the same rules.
+// Package inputs turns what a user or a client gives midsag (files,
+// folders searched recursively, zip archives, multipart bodies) into
+// midsag.Sources and instance bytes, with the rules and the one set of
+// Limits every entry point shares: hidden files and folders are skipped, a
+// zip archive is recognised by its signature whatever its name, and within
+// it folders, hidden entries and __MACOSX metadata are skipped; entries,
+// parts and bytes are bounded by Limits. The score command collects its
+// inputs with Collect; batch discovery reads archives with ZipEntries and
+// walks with Walk; the REST upload and STOW-RS read with ZipEntries, Parts
+// and ReadEntry.
 package inputs
 
 import (
@@ -19,11 +22,6 @@ import (
 
 	"github.com/midsag/midsag"
 )
-
-// MaxZipEntries bounds the entries read from one zip archive, against
-// archive bombs: a cervical spine MR study has a few hundred to a few
-// thousand instances (our choice).
-const MaxZipEntries = 20000
 
 // zipSignature is the local file header signature that starts a zip
 // archive (APPNOTE.TXT 4.3.7).
@@ -50,13 +48,13 @@ func File(path string) midsag.Source {
 
 // Collect expands paths into one source per file: files as given, folders
 // walked recursively in name order following symbolic links (see Walk),
-// and zip archives opened entry by entry. An entry of a folder that
-// cannot be read, such as a broken link, becomes a source whose Open
-// returns a ReasonNoInput refusal naming it, so it is reported rather than
-// skipped silently. The returned function closes the archives. A missing path or
-// nothing found is ReasonNoInput, an unreadable archive ReasonNotDICOM,
-// one with too many entries ReasonTooLarge.
-func Collect(paths []string) ([]midsag.Source, func(), error) {
+// and zip archives opened entry by entry within lim (ZipEntries). An entry
+// of a folder that cannot be read, such as a broken link, becomes a
+// source whose Open returns a ReasonNoInput refusal naming it, so it is
+// reported rather than skipped silently. The returned function closes the
+// archives. A missing path or nothing found is ReasonNoInput, an
+// unreadable archive ReasonNotDICOM, one beyond lim ReasonTooLarge.
+func Collect(paths []string, lim Limits) ([]midsag.Source, func(), error) {
 	var (
 		out     []midsag.Source
 		closers []io.Closer
@@ -66,57 +64,72 @@ func Collect(paths []string) ([]midsag.Source, func(), error) {
 			c.Close()
 		}
 	}
-	fail := func(err error) ([]midsag.Source, func(), error) {
-		closeAll()
-		return nil, nil, err
-	}
 	for _, p := range paths {
-		st, err := os.Stat(p)
+		srcs, closer, err := collectOne(p, lim)
+		if closer != nil {
+			closers = append(closers, closer)
+		}
 		if err != nil {
-			return fail(midsag.Reject(midsag.ReasonNoInput, "cannot open input", err))
+			closeAll()
+			return nil, nil, err
 		}
-		if st.IsDir() {
-			var files []midsag.Source
-			err := Walk(p, nil, func(path string, _ fs.FileInfo, err error) error {
-				if err != nil {
-					// Reported through the source: reading it gives the
-					// refusal, which Pipeline.Read counts as a skipped file.
-					refusal := midsag.Reject(midsag.ReasonNoInput, "cannot read "+path, err)
-					files = append(files, midsag.Source{Name: path, Open: func() (io.ReadCloser, error) { return nil, refusal }})
-					return nil
-				}
-				files = append(files, File(path))
-				return nil
-			})
-			if err != nil {
-				return fail(midsag.Reject(midsag.ReasonNoInput, "cannot read folder "+p, err))
-			}
-			sort.Slice(files, func(i, j int) bool { return files[i].Name < files[j].Name })
-			out = append(out, files...)
-			continue
-		}
-		if !zipFile(p) {
-			out = append(out, File(p))
-			continue
-		}
-		zr, err := zip.OpenReader(p)
-		if err != nil {
-			return fail(midsag.Reject(midsag.ReasonNotDICOM, "cannot read zip archive "+p, err))
-		}
-		closers = append(closers, zr)
-		if len(zr.File) > MaxZipEntries {
-			return fail(midsag.Rejectf(midsag.ReasonTooLarge, "zip archive %s has %d entries, above the limit of %d", p, len(zr.File), MaxZipEntries))
-		}
-		for _, zf := range zr.File {
-			if !SkipZipEntry(zf) {
-				out = append(out, midsag.Source{Name: p + "!" + zf.Name, Open: zf.Open})
-			}
-		}
+		out = append(out, srcs...)
 	}
 	if len(out) == 0 {
-		return fail(midsag.Rejectf(midsag.ReasonNoInput, "no files found in %s", strings.Join(paths, ", ")))
+		closeAll()
+		return nil, nil, midsag.Rejectf(midsag.ReasonNoInput, "no files found in %s", strings.Join(paths, ", "))
 	}
 	return out, closeAll, nil
+}
+
+// collectOne expands one path: a folder, a zip archive (with the file to
+// close once its entries are read) or a plain file.
+func collectOne(p string, lim Limits) ([]midsag.Source, io.Closer, error) {
+	st, err := os.Stat(p)
+	if err != nil {
+		return nil, nil, midsag.Reject(midsag.ReasonNoInput, "cannot open input", err)
+	}
+	if st.IsDir() {
+		files, err := folder(p)
+		return files, nil, err
+	}
+	if !zipFile(p) {
+		return []midsag.Source{File(p)}, nil, nil
+	}
+	f, err := os.Open(p)
+	if err != nil {
+		return nil, nil, midsag.Reject(midsag.ReasonNoInput, "cannot open input", err)
+	}
+	entries, err := ZipEntries(f, st.Size(), p, lim)
+	if err != nil {
+		return nil, f, err
+	}
+	out := make([]midsag.Source, len(entries))
+	for i, e := range entries {
+		out[i] = e.Source
+	}
+	return out, f, nil
+}
+
+// folder lists the files under p in name order.
+func folder(p string) ([]midsag.Source, error) {
+	var files []midsag.Source
+	err := Walk(p, nil, func(path string, _ fs.FileInfo, err error) error {
+		if err != nil {
+			// Reported through the source: reading it gives the
+			// refusal, which Pipeline.Read counts as a skipped file.
+			refusal := midsag.Reject(midsag.ReasonNoInput, "cannot read "+path, err)
+			files = append(files, midsag.Source{Name: path, Open: func() (io.ReadCloser, error) { return nil, refusal }})
+			return nil
+		}
+		files = append(files, File(path))
+		return nil
+	})
+	if err != nil {
+		return nil, midsag.Reject(midsag.ReasonNoInput, "cannot read folder "+p, err)
+	}
+	sort.Slice(files, func(i, j int) bool { return files[i].Name < files[j].Name })
+	return files, nil
 }
 
 // zipFile reports whether the file at path starts with the zip signature.

@@ -51,7 +51,7 @@ func TestCollect(t *testing.T) {
 	}
 	arch := filepath.Join(dir, "export.bin")
 	makeZip(t, arch, "study/", "study/IM1", "study/._IM1", "__MACOSX/study/._IM1", "IM2")
-	srcs, done, err := Collect([]string{filepath.Join(dir, "s"), arch})
+	srcs, done, err := Collect([]string{filepath.Join(dir, "s"), arch}, DefaultLimits)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -79,7 +79,7 @@ func TestCollectRefusals(t *testing.T) {
 	broken := filepath.Join(dir, "broken.zip")
 	write(t, broken, []byte("PK\x03\x04 not really a zip"))
 	many := filepath.Join(dir, "many.zip")
-	names := make([]string, MaxZipEntries+1)
+	names := make([]string, DefaultLimits.MaxEntries+1)
 	for i := range names {
 		names[i] = "f" + strings.Repeat("x", i%7) + string(rune('a'+i%26)) + "/" + string(rune('0'+i%10))
 	}
@@ -90,7 +90,7 @@ func TestCollectRefusals(t *testing.T) {
 		broken:                        midsag.ReasonNotDICOM,
 		many:                          midsag.ReasonTooLarge,
 	} {
-		_, _, err := Collect([]string{path})
+		_, _, err := Collect([]string{path}, DefaultLimits)
 		if r, ok := midsag.ReasonOf(err); !ok || r != want {
 			t.Errorf("%s: %v, want reason %s", filepath.Base(path), err, want)
 		}
@@ -136,7 +136,7 @@ func TestCollectFollowsLinks(t *testing.T) {
 	if err := os.Symlink(root, rootLink); err != nil {
 		t.Fatal(err)
 	}
-	srcs, done, err := Collect([]string{rootLink})
+	srcs, done, err := Collect([]string{rootLink}, DefaultLimits)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -170,7 +170,7 @@ func TestCollectFollowsLinks(t *testing.T) {
 	if err := os.Symlink(loopRoot, filepath.Join(loopRoot, "again")); err != nil {
 		t.Fatal(err)
 	}
-	srcs, done2, err := Collect([]string{loopRoot})
+	srcs, done2, err := Collect([]string{loopRoot}, DefaultLimits)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -7,7 +7,6 @@ package part10
 
 import (
 	"encoding/binary"
-	"fmt"
 	"strings"
 
 	"github.com/midsag/midsag"
@@ -83,53 +82,73 @@ func Wrap(m Meta, dataset []byte) []byte {
 	return append(Header(m, len(dataset)), dataset...)
 }
 
-// Parse reads the File Meta Information of a Part 10 file: the group 0002
-// elements after the preamble and "DICM", up to the first element of
-// another group, which starts the returned dataset. The Media Storage SOP
-// Class and Instance UIDs and the Transfer Syntax UID are required.
-func Parse(b []byte) (Meta, []byte, error) {
+// LongVR reports whether an explicit VR has a 2-byte reserved field and a
+// 4-byte value length (PS3.5 7.1.2, Table 7.1-1); the others have a
+// 2-byte length.
+func LongVR(vr string) bool { return longVR[vr] }
+
+var longVR = map[string]bool{"OB": true, "OD": true, "OF": true, "OL": true, "OV": true,
+	"OW": true, "SQ": true, "SV": true, "UC": true, "UN": true, "UR": true, "UT": true, "UV": true}
+
+// ReadMeta reads the File Meta Information elements at the start of b:
+// group 0002, always Explicit VR Little Endian (PS3.10 7.1), up to the
+// first element of another group. It returns them with the number of
+// bytes they take. A group cut short is a midsag.ReasonTruncated refusal;
+// no element is required (Parse checks what a Part 10 file must hold).
+func ReadMeta(b []byte) (Meta, int, error) {
 	var m Meta
-	if len(b) < PrefixLen || string(b[128:132]) != "DICM" {
-		return m, nil, fmt.Errorf("not a DICOM Part 10 file: no DICM prefix")
-	}
-	p := b[PrefixLen:]
-	off := PrefixLen
-	for len(p) >= 8 && binary.LittleEndian.Uint16(p) == 0x0002 {
-		elem := binary.LittleEndian.Uint16(p[2:])
-		vr := string(p[4:6])
+	off := 0
+	for off+8 <= len(b) && binary.LittleEndian.Uint16(b[off:]) == 0x0002 {
+		elem := binary.LittleEndian.Uint16(b[off+2:])
 		var n, hl int
-		switch vr {
-		case "OB", "OW", "OF", "SQ", "UT", "UN":
-			if len(p) < 12 {
-				return m, nil, fmt.Errorf("file meta: truncated element (0002,%04X)", elem)
+		if LongVR(string(b[off+4 : off+6])) {
+			if off+12 > len(b) {
+				return m, 0, midsag.Rejectf(midsag.ReasonTruncated, "file meta information is cut short")
 			}
-			n, hl = int(binary.LittleEndian.Uint32(p[8:])), 12
-		default:
-			n, hl = int(binary.LittleEndian.Uint16(p[6:])), 8
+			n, hl = int(binary.LittleEndian.Uint32(b[off+8:])), 12
+		} else {
+			n, hl = int(binary.LittleEndian.Uint16(b[off+6:])), 8
 		}
-		if n < 0 || n > len(p)-hl {
-			return m, nil, fmt.Errorf("file meta: element (0002,%04X) length %d exceeds the file", elem, n)
+		if n < 0 || n > len(b)-off-hl {
+			return m, 0, midsag.Rejectf(midsag.ReasonTruncated, "file meta element (0002,%04X) runs past the end", elem)
 		}
-		v := strings.TrimRight(string(p[hl:hl+n]), "\x00 ")
-		switch elem {
-		case 0x0002:
-			m.SOPClassUID = v
-		case 0x0003:
-			m.SOPInstanceUID = v
-		case 0x0010:
-			m.TransferSyntaxUID = v
-		case 0x0012:
-			m.ImplementationClassUID = v
-		case 0x0013:
-			m.ImplementationVersionName = v
-		case 0x0016:
-			m.SourceAETitle = v
-		}
-		p = p[hl+n:]
+		m.set(elem, strings.TrimRight(string(b[off+hl:off+hl+n]), "\x00 "))
 		off += hl + n
 	}
-	if m.SOPClassUID == "" || m.SOPInstanceUID == "" || m.TransferSyntaxUID == "" {
-		return m, nil, fmt.Errorf("file meta: missing Media Storage SOP Class/Instance UID or Transfer Syntax UID")
+	if rest := b[off:]; len(rest) >= 2 && len(rest) < 8 && binary.LittleEndian.Uint16(rest) == 0x0002 {
+		return m, 0, midsag.Rejectf(midsag.ReasonTruncated, "file meta information is cut short")
 	}
-	return m, b[off:], nil
+	return m, off, nil
+}
+
+// set stores the value of File Meta element (0002,elem), if midsag
+// keeps it (PS3.10 Table 7.1-1).
+func (m *Meta) set(elem uint16, v string) {
+	fields := map[uint16]*string{
+		0x0002: &m.SOPClassUID, 0x0003: &m.SOPInstanceUID, 0x0010: &m.TransferSyntaxUID,
+		0x0012: &m.ImplementationClassUID, 0x0013: &m.ImplementationVersionName, 0x0016: &m.SourceAETitle,
+	}
+	if f := fields[elem]; f != nil {
+		*f = v
+	}
+}
+
+// Parse reads the File Meta Information of a Part 10 file (ReadMeta)
+// after the preamble and "DICM"; the first element of another group
+// starts the returned dataset. The Media Storage SOP Class and Instance
+// UIDs and the Transfer Syntax UID are required. Refusals are
+// *midsag.Error: not_dicom without the prefix or the UIDs, truncated for
+// a group cut short.
+func Parse(b []byte) (Meta, []byte, error) {
+	if len(b) < PrefixLen || string(b[128:132]) != "DICM" {
+		return Meta{}, nil, midsag.Rejectf(midsag.ReasonNotDICOM, "not a DICOM Part 10 file: no DICM prefix (PS3.10 7.1)")
+	}
+	m, n, err := ReadMeta(b[PrefixLen:])
+	if err != nil {
+		return m, nil, err
+	}
+	if m.SOPClassUID == "" || m.SOPInstanceUID == "" || m.TransferSyntaxUID == "" {
+		return m, nil, midsag.Rejectf(midsag.ReasonNotDICOM, "file meta: missing Media Storage SOP Class/Instance UID or Transfer Syntax UID")
+	}
+	return m, b[PrefixLen+n:], nil
 }

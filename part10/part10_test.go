@@ -77,19 +77,42 @@ func TestWrapParseRoundTrip(t *testing.T) {
 }
 
 // TestParseRefusesDamage: a file without DICM, a truncated element and a
-// group without the required UIDs are errors, never a panic.
+// group without the required UIDs are refusals with a reason code, never
+// a panic: not_dicom without the PS3.10 7.1 prefix or the required
+// elements (PS3.10 Table 7.1-1), truncated for an element running past
+// the end.
 func TestParseRefusesDamage(t *testing.T) {
 	good := Wrap(Meta{SOPClassUID: "1.2", SOPInstanceUID: "1.3", TransferSyntaxUID: midsag.ExplicitVRLittleEndian}, nil)
-	cases := map[string][]byte{
-		"empty":       nil,
-		"no DICM":     make([]byte, 200),
-		"truncated":   good[:150],
-		"no UIDs":     Wrap(Meta{}, nil),
-		"long length": append(append([]byte(nil), good[:144]...), 0x02, 0x00, 0x02, 0x00, 'U', 'I', 0xFF, 0x7F),
+	cases := map[string]struct {
+		b    []byte
+		want midsag.Reason
+	}{
+		"empty":       {nil, midsag.ReasonNotDICOM},
+		"no DICM":     {make([]byte, 200), midsag.ReasonNotDICOM},
+		"truncated":   {good[:150], midsag.ReasonTruncated},
+		"no UIDs":     {Wrap(Meta{}, nil), midsag.ReasonNotDICOM},
+		"long length": {append(append([]byte(nil), good[:144]...), 0x02, 0x00, 0x02, 0x00, 'U', 'I', 0xFF, 0x7F), midsag.ReasonTruncated},
+		"OB cut":      {append(append([]byte(nil), good[:144]...), 0x02, 0x00, 0x01, 0x00, 'O', 'B', 0, 0), midsag.ReasonTruncated},
 	}
-	for name, b := range cases {
-		if _, _, err := Parse(b); err == nil {
-			t.Errorf("%s: no error", name)
+	for name, c := range cases {
+		_, _, err := Parse(c.b)
+		if r, ok := midsag.ReasonOf(err); !ok || r != c.want {
+			t.Errorf("%s: %v, want reason %s", name, err, c.want)
 		}
+	}
+}
+
+// TestReadMetaWithoutPreamble: ReadMeta reads a bare group 0002 (as
+// preprocess's lenient mode meets it) and stops at the first element of
+// another group, which it does not consume.
+func TestReadMetaWithoutPreamble(t *testing.T) {
+	b := Header(Meta{TransferSyntaxUID: midsag.ImplicitVRLittleEndian}, 0)[PrefixLen:]
+	ds := []byte{0x08, 0x00, 0x18, 0x00, 4, 0, 0, 0, '1', '.', '2', 0}
+	m, n, err := ReadMeta(append(append([]byte(nil), b...), ds...))
+	if err != nil || m.TransferSyntaxUID != midsag.ImplicitVRLittleEndian || n != len(b) {
+		t.Errorf("meta %+v, %d bytes of %d, %v", m, n, len(b), err)
+	}
+	if !LongVR("OB") || !LongVR("UV") || LongVR("UI") || LongVR("US") {
+		t.Error("LongVR disagrees with PS3.5 Table 7.1-1")
 	}
 }

@@ -10,6 +10,8 @@ import (
 	"path/filepath"
 	"runtime"
 	"sync"
+
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 // Generate writes opts.Studies studies under dir as dir/study-NNNN/...,
@@ -83,14 +85,14 @@ feed:
 	if err := cw.WriteAll(rows); err != nil {
 		return nil, fmt.Errorf("generate: labels: %w", err)
 	}
-	if err := writeAtomic(filepath.Join(dir, "labels.csv"), labels.Bytes()); err != nil {
+	if err := atomicfile.WriteFile(filepath.Join(dir, "labels.csv"), labels.Bytes()); err != nil {
 		return nil, fmt.Errorf("generate: %w", err)
 	}
 	js, err := json.MarshalIndent(truths, "", "  ")
 	if err != nil {
 		return nil, fmt.Errorf("generate: truth: %w", err)
 	}
-	if err := writeAtomic(filepath.Join(dir, "truth.json"), append(js, '\n')); err != nil {
+	if err := atomicfile.WriteFile(filepath.Join(dir, "truth.json"), append(js, '\n')); err != nil {
 		return nil, fmt.Errorf("generate: %w", err)
 	}
 	return truths, nil
@@ -101,38 +103,23 @@ func writeStudy(dir string, opts Options, index int) (StudyTruth, error) {
 	if err != nil {
 		return truth, err
 	}
+	// Each file is synced as it is written; each folder once, after its
+	// files, rather than once per file.
+	folders := map[string]bool{}
 	for _, f := range files {
 		p := filepath.Join(dir, filepath.FromSlash(f.Name))
 		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
 			return truth, fmt.Errorf("study %d: %w", index, err)
 		}
-		if err := writeAtomic(p, f.Data); err != nil {
+		if err := atomicfile.WriteFile(p, f.Data, atomicfile.SkipDirSync()); err != nil {
+			return truth, fmt.Errorf("study %d: %w", index, err)
+		}
+		folders[filepath.Dir(p)] = true
+	}
+	for d := range folders {
+		if err := atomicfile.SyncDir(d); err != nil {
 			return truth, fmt.Errorf("study %d: %w", index, err)
 		}
 	}
 	return truth, nil
-}
-
-// writeAtomic writes data to a temporary file beside path and renames it
-// into place.
-func writeAtomic(path string, data []byte) error {
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-*")
-	if err != nil {
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	name := tmp.Name()
-	if _, err := tmp.Write(data); err != nil {
-		tmp.Close()
-		os.Remove(name)
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	if err := tmp.Close(); err != nil {
-		os.Remove(name)
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	if err := os.Rename(name, path); err != nil {
-		os.Remove(name)
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	return nil
 }

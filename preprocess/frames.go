@@ -288,30 +288,18 @@ func offsetTable(ds dicom.Dataset, body []byte, explicit bool) []uint64 {
 // encapsulated Pixel Data element of a little-endian data set body, or nil.
 func basicOffsetTable(body []byte, explicit bool) []byte {
 	w := walker{data: body, explicit: explicit, bo: binary.LittleEndian}
-	off := 0
-	for off+12 <= len(body) {
-		t := uint32(w.bo.Uint16(body[off:]))<<16 | uint32(w.bo.Uint16(body[off+2:]))
-		if t == tagPixelData {
-			hdr := 8
-			if explicit {
-				hdr = 12
-			}
-			at := off + hdr
-			if at+8 > len(body) {
-				return nil
-			}
-			it := uint32(w.bo.Uint16(body[at:]))<<16 | uint32(w.bo.Uint16(body[at+2:]))
-			n := int(w.bo.Uint32(body[at+4:]))
-			if it != tagItem || n < 0 || at+8+n > len(body) {
-				return nil
-			}
-			return body[at+8 : at+8+n]
-		}
-		next, err := w.element(off, 0)
-		if err != nil || next <= off {
-			return nil
-		}
-		off = next
+	off, hdr, err := w.pixelData(0)
+	if err != nil {
+		return nil
 	}
-	return nil
+	at := off + hdr
+	if at+8 > len(body) {
+		return nil
+	}
+	it := uint32(w.bo.Uint16(body[at:]))<<16 | uint32(w.bo.Uint16(body[at+2:]))
+	n := int(w.bo.Uint32(body[at+4:]))
+	if it != tagItem || n < 0 || at+8+n > len(body) {
+		return nil
+	}
+	return body[at+8 : at+8+n]
 }

@@ -54,7 +54,7 @@ func enhancedFile(frames int, perFrame [][]byte, pixelBytes int) []byte {
 		seq(0x5200, 0x9230, perFrame...),
 		elem(0x7FE0, 0x0010, "OW", make([]byte, pixelBytes)),
 	}, nil)
-	return part10(body)
+	return part10File(body)
 }
 
 func framePos(x string) []byte {

@@ -20,7 +20,7 @@ func FuzzRead(f *testing.F) {
 			f.Add(b[:min(len(b), 2048)])
 		}
 	}
-	f.Add(part10(elem(0x0008, 0x0018, "UI", []byte("1.2.3\x00"))))
+	f.Add(part10File(elem(0x0008, 0x0018, "UI", []byte("1.2.3\x00"))))
 	pre := New(Options{Lenient: true, Limits: Limits{MaxFileBytes: 1 << 20}})
 	f.Fuzz(func(t *testing.T, data []byte) {
 		inst, err := pre.Read("fuzz", bytes.NewReader(data))

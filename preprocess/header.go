@@ -7,6 +7,7 @@ import (
 	"io"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // headerChunk is the first read of ReadHeader: two pages. Scanner headers
@@ -106,57 +107,32 @@ type pixelHeader struct {
 }
 
 // locatePixelData finds the top-level Pixel Data element in data, which
-// holds the first bytes of a Part 10 stream. It follows the same rules as
-// parse for the preamble and the transfer syntax. Any other outcome than
+// holds the first bytes of a Part 10 stream, framed as parse frames it
+// (framing). Any other outcome than
 // success means: read more, or parse what there is.
 func locatePixelData(data []byte, lenient bool) (pixelHeader, error) {
-	var (
-		m   meta
-		err error
-	)
-	switch {
-	case len(data) >= 132 && string(data[128:132]) == "DICM":
-		if m, err = readMeta(data, 132); err != nil {
-			return pixelHeader{}, errNeedMore
-		}
-	case len(data) < 132:
+	if len(data) < 132 {
 		return pixelHeader{}, errNeedMore
-	case !lenient || binary.LittleEndian.Uint16(data) > 0x0028:
+	}
+	m, err := framing(data, lenient)
+	if r, _ := midsag.ReasonOf(err); r == midsag.ReasonNotDICOM {
 		// parse refuses these bytes whatever follows them.
 		return pixelHeader{}, errParseNow
-	case binary.LittleEndian.Uint16(data) == 0x0002:
-		if m, err = readMeta(data, 0); err != nil {
-			return pixelHeader{}, errNeedMore
-		}
-	default:
-		if isUpper(data[4]) && isUpper(data[5]) {
-			m.transferSyntax = midsag.ExplicitVRLittleEndian
-		}
+	} else if err != nil {
+		return pixelHeader{}, errNeedMore
 	}
 	if m.transferSyntax == midsag.DeflatedExplicitVRLittleEndian {
 		return pixelHeader{}, errWholeFile
 	}
-	w := walker{data: data, explicit: m.transferSyntax != "" && m.transferSyntax != midsag.ImplicitVRLittleEndian, bo: binary.LittleEndian}
+	w := walker{data: data, explicit: m.transferSyntax != midsag.ImplicitVRLittleEndian, bo: binary.LittleEndian}
 	if m.transferSyntax == midsag.ExplicitVRBigEndian {
 		w.bo = binary.BigEndian
 	}
-	off := m.bodyOffset
-	for {
-		if off+12 > len(data) {
-			return pixelHeader{}, errNeedMore
-		}
-		tag := uint32(w.bo.Uint16(data[off:]))<<16 | uint32(w.bo.Uint16(data[off+2:]))
-		if tag == tagPixelData {
-			hdr := 8
-			if w.explicit {
-				hdr = 12
-			}
-			return pixelHeader{off: off, hdr: hdr, explicit: w.explicit, bo: w.bo}, nil
-		}
-		if off, err = w.element(off, 0); err != nil {
-			return pixelHeader{}, err
-		}
+	off, hdr, err := w.pixelData(m.bodyOffset)
+	if err != nil {
+		return pixelHeader{}, err
 	}
+	return pixelHeader{off: off, hdr: hdr, explicit: w.explicit, bo: w.bo}, nil
 }
 
 // walker skips data set elements in a prefix without checking limits
@@ -165,6 +141,26 @@ type walker struct {
 	data     []byte
 	explicit bool
 	bo       binary.ByteOrder
+}
+
+// pixelData returns the offset and header length of the top-level Pixel
+// Data element (7FE0,0010), walking from off; errNeedMore when the bytes
+// end first.
+func (w walker) pixelData(off int) (at, hdr int, err error) {
+	for {
+		if off+12 > len(w.data) {
+			return 0, 0, errNeedMore
+		}
+		if uint32(w.bo.Uint16(w.data[off:]))<<16|uint32(w.bo.Uint16(w.data[off+2:])) == tagPixelData {
+			if w.explicit {
+				return off, 12, nil
+			}
+			return off, 8, nil
+		}
+		if off, err = w.element(off, 0); err != nil {
+			return 0, 0, err
+		}
+	}
 }
 
 // element skips the element at off and returns the offset after it.
@@ -176,7 +172,7 @@ func (w walker) element(off, depth int) (int, error) {
 	var length uint32
 	hdr := 8
 	if w.explicit && group != 0xFFFE {
-		if longVR[string(w.data[off+4:off+6])] {
+		if part10.LongVR(string(w.data[off+4 : off+6])) {
 			if off+12 > len(w.data) {
 				return 0, errNeedMore
 			}

@@ -1,10 +1,13 @@
 package preprocess
 
+import "github.com/midsag/midsag/inputs"
+
 // Limits bound what Read accepts, so a hostile or corrupt file is refused
 // before it costs memory or time.
 type Limits struct {
 	// MaxFileBytes caps the size of one Part 10 stream (after inflating a
-	// deflated dataset). Default 256 MiB.
+	// deflated dataset). Default inputs.MaxInstanceBytes, the bound every
+	// input edge puts on one instance.
 	MaxFileBytes int64
 	// MaxPixels caps Rows x Columns of one frame. Default 4096 x 4096.
 	MaxPixels int64
@@ -25,7 +28,7 @@ type Options struct {
 
 func (o Options) withDefaults() Options {
 	if o.Limits.MaxFileBytes <= 0 {
-		o.Limits.MaxFileBytes = 256 << 20
+		o.Limits.MaxFileBytes = inputs.MaxInstanceBytes
 	}
 	if o.Limits.MaxPixels <= 0 {
 		o.Limits.MaxPixels = 4096 * 4096

@@ -14,6 +14,7 @@ import (
 	"github.com/suyashkumar/dicom/pkg/tag"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // Read parses one DICOM Part 10 stream (PS3.10 7.1) into an Instance. Pixel
@@ -57,59 +58,52 @@ type meta struct {
 	bodyOffset     int
 }
 
-// readMeta parses the group 0002 elements, always Explicit VR Little
-// Endian (PS3.10 7.1), starting at off.
+// readMeta reads the File Meta Information starting at off through
+// part10.ReadMeta, which refuses a group cut short as truncated.
 func readMeta(data []byte, off int) (meta, error) {
-	m := meta{bodyOffset: off}
-	for off+8 <= len(data) && binary.LittleEndian.Uint16(data[off:]) == 0x0002 {
-		elem := binary.LittleEndian.Uint16(data[off+2:])
-		vr := string(data[off+4 : off+6])
-		var length, hdr int
-		if longVR[vr] {
-			if off+12 > len(data) {
-				return m, midsag.Rejectf(midsag.ReasonTruncated, "file meta information is cut short")
-			}
-			length, hdr = int(binary.LittleEndian.Uint32(data[off+8:])), 12
-		} else {
-			length, hdr = int(binary.LittleEndian.Uint16(data[off+6:])), 8
-		}
-		if length < 0 || off+hdr+length > len(data) {
-			return m, midsag.Rejectf(midsag.ReasonTruncated, "file meta element (0002,%04X) runs past the end", elem)
-		}
-		if elem == 0x0010 {
-			m.transferSyntax = strings.TrimRight(string(data[off+hdr:off+hdr+length]), "\x00 ")
-		}
-		off += hdr + length
+	m, n, err := part10.ReadMeta(data[off:])
+	if err != nil {
+		return meta{bodyOffset: off}, err
 	}
-	m.bodyOffset = off
+	return meta{transferSyntax: m.TransferSyntaxUID, bodyOffset: off + n}, nil
+}
+
+// framing reads how a stream is framed (PS3.10 7.1): the File Meta
+// Information through part10 after the preamble and "DICM", or, when
+// lenient, a bare group 0002 or a bare data set whose syntax is guessed
+// (PS3.5 10.1 makes Implicit VR Little Endian the default; a VR after the
+// first tag shows explicit VR). Bytes that are not DICOM are refused as
+// not_dicom, a meta group cut short as truncated.
+func framing(data []byte, lenient bool) (meta, error) {
+	var (
+		m   meta
+		err error
+	)
+	switch {
+	case len(data) >= 132 && string(data[128:132]) == "DICM":
+		m, err = readMeta(data, 132)
+	case !lenient:
+		return m, midsag.Rejectf(midsag.ReasonNotDICOM, "%s", sniff(data))
+	case len(data) >= 8 && binary.LittleEndian.Uint16(data) == 0x0002:
+		m, err = readMeta(data, 0)
+	case len(data) < 8 || binary.LittleEndian.Uint16(data) > 0x0028:
+		return m, midsag.Rejectf(midsag.ReasonNotDICOM, "%s, and the data does not start like a data set", sniff(data))
+	case isUpper(data[4]) && isUpper(data[5]):
+		m.transferSyntax = midsag.ExplicitVRLittleEndian
+	}
+	if err != nil {
+		return m, err
+	}
+	if m.transferSyntax == "" {
+		m.transferSyntax = midsag.ImplicitVRLittleEndian
+	}
 	return m, nil
 }
 
 func (p *Preprocessor) parse(data []byte) (inst *midsag.Instance, err error) {
-	var m meta
-	switch {
-	case len(data) >= 132 && string(data[128:132]) == "DICM":
-		if m, err = readMeta(data, 132); err != nil {
-			return nil, err
-		}
-	case !p.opts.Lenient:
-		return nil, midsag.Rejectf(midsag.ReasonNotDICOM, "%s", sniff(data))
-	case len(data) >= 8 && binary.LittleEndian.Uint16(data) == 0x0002:
-		if m, err = readMeta(data, 0); err != nil {
-			return nil, err
-		}
-	default:
-		// No meta information: PS3.5 10.1 makes Implicit VR Little Endian
-		// the default; a VR after the first tag shows explicit VR.
-		if len(data) < 8 || binary.LittleEndian.Uint16(data) > 0x0028 {
-			return nil, midsag.Rejectf(midsag.ReasonNotDICOM, "%s, and the data does not start like a data set", sniff(data))
-		}
-		if isUpper(data[4]) && isUpper(data[5]) {
-			m.transferSyntax = midsag.ExplicitVRLittleEndian
-		}
-	}
-	if m.transferSyntax == "" {
-		m.transferSyntax = midsag.ImplicitVRLittleEndian
+	m, err := framing(data, p.opts.Lenient)
+	if err != nil {
+		return nil, err
 	}
 	body := data[m.bodyOffset:]
 	if m.transferSyntax == midsag.DeflatedExplicitVRLittleEndian {
@@ -162,10 +156,10 @@ func datasetSyntax(ts string) string {
 }
 
 // parseDataset runs the DICOM parser over a data set body, converting a
-// panic inside it into a refusal. The body is preceded by a minimal file
-// meta information group naming its transfer syntax (PS3.10 7.1): without
-// one the parser guesses the syntax by trial parses, which is slow and
-// allocates.
+// panic inside it into a refusal. The body is preceded by a file meta
+// information group naming its transfer syntax (PS3.10 7.1, written by
+// part10.Header): without one the parser guesses the syntax by trial
+// parses, which is slow and allocates.
 func parseDataset(body []byte, ts string) (ds dicom.Dataset, err error) {
 	defer func() {
 		// The panic value is Go runtime text, never shown to a person:
@@ -174,7 +168,9 @@ func parseDataset(body []byte, ts string) (ds dicom.Dataset, err error) {
 			err = midsag.Rejectf(midsag.ReasonNotDICOM, "the DICOM parser could not read this file's data set")
 		}
 	}()
-	head := metaHeader(ts)
+	// Only the transfer syntax matters to the parser; part10 fills in
+	// midsag's implementation UIDs.
+	head := part10.Header(part10.Meta{TransferSyntaxUID: ts}, 0)
 	parser, err := dicom.NewParser(io.MultiReader(bytes.NewReader(head), bytes.NewReader(body)), int64(len(head)+len(body)), nil,
 		dicom.SkipProcessingPixelDataValue(), dicom.AllowUnknownSpecificCharacterSet(), dicom.AllowMismatchPixelDataLength())
 	if err != nil {
@@ -195,27 +191,6 @@ func parseDataset(body []byte, ts string) (ds dicom.Dataset, err error) {
 		elems = append(elems, e)
 	}
 	return dicom.Dataset{Elements: elems}, nil
-}
-
-// metaHeader returns a preamble, "DICM" and a group 0002 holding only its
-// group length and the transfer syntax UID, in Explicit VR Little Endian.
-func metaHeader(ts string) []byte {
-	if len(ts)%2 == 1 {
-		ts += "\x00"
-	}
-	tsElem := binary.LittleEndian.AppendUint16(nil, 0x0002)
-	tsElem = binary.LittleEndian.AppendUint16(tsElem, 0x0010)
-	tsElem = append(tsElem, 'U', 'I')
-	tsElem = binary.LittleEndian.AppendUint16(tsElem, uint16(len(ts)))
-	tsElem = append(tsElem, ts...)
-	b := make([]byte, 128, 128+4+12+len(tsElem))
-	b = append(b, "DICM"...)
-	b = binary.LittleEndian.AppendUint16(b, 0x0002)
-	b = binary.LittleEndian.AppendUint16(b, 0x0000)
-	b = append(b, 'U', 'L')
-	b = binary.LittleEndian.AppendUint16(b, 4)
-	b = binary.LittleEndian.AppendUint32(b, uint32(len(tsElem)))
-	return append(b, tsElem...)
 }
 
 // instance extracts the attributes midsag uses and checks the limits on

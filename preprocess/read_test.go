@@ -12,6 +12,7 @@ import (
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/internal/testtool"
+	"github.com/midsag/midsag/part10"
 )
 
 func readFile(t *testing.T, p *Preprocessor, path string) (*midsag.Instance, error) {
@@ -165,9 +166,9 @@ func TestRejectsNonDICOM(t *testing.T) {
 	}
 }
 
-// part10 builds a minimal Explicit VR Little Endian Part 10 stream
+// part10File builds a minimal Explicit VR Little Endian Part 10 stream
 // (PS3.10 7.1) from raw element bytes.
-func part10(body []byte) []byte {
+func part10File(body []byte) []byte {
 	var b bytes.Buffer
 	b.Write(make([]byte, 128))
 	b.WriteString("DICM")
@@ -182,7 +183,7 @@ func elem(group, el uint16, vr string, val []byte) []byte {
 	binary.Write(&b, binary.LittleEndian, group)
 	binary.Write(&b, binary.LittleEndian, el)
 	b.WriteString(vr)
-	if longVR[vr] {
+	if part10.LongVR(vr) {
 		b.Write([]byte{0, 0})
 		binary.Write(&b, binary.LittleEndian, uint32(len(val)))
 	} else {
@@ -198,7 +199,7 @@ func us(v uint16) []byte { return binary.LittleEndian.AppendUint16(nil, v) }
 // before any allocation of their size.
 func TestLimits(t *testing.T) {
 	p := New(Options{})
-	huge := part10(bytes.Join([][]byte{
+	huge := part10File(bytes.Join([][]byte{
 		elem(0x0008, 0x0018, "UI", []byte("1.2.3.4\x00")),
 		elem(0x0028, 0x0010, "US", us(60000)),
 		elem(0x0028, 0x0011, "US", us(60000)),
@@ -208,7 +209,7 @@ func TestLimits(t *testing.T) {
 		t.Errorf("60000x60000 header: %v, want too_large", err)
 	}
 	// An OB element claiming 4 GB in a 200-byte file.
-	lying := part10(append(elem(0x0008, 0x0018, "UI", []byte("1.2.3.4\x00")),
+	lying := part10File(append(elem(0x0008, 0x0018, "UI", []byte("1.2.3.4\x00")),
 		[]byte{0x09, 0x00, 0x10, 0x10, 'O', 'B', 0, 0, 0xf0, 0xff, 0xff, 0xff}...))
 	_, err = p.Read("lying", bytes.NewReader(lying))
 	if r, _ := midsag.ReasonOf(err); r != midsag.ReasonTooLarge && r != midsag.ReasonTruncated {

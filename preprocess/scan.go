@@ -5,6 +5,7 @@ import (
 	"fmt"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/part10"
 )
 
 // undefinedLength is the value length 0xFFFFFFFF (PS3.5 7.1.1).
@@ -26,11 +27,6 @@ type scanner struct {
 	bo       binary.ByteOrder
 	maxElem  int64
 }
-
-// longVR lists the explicit VRs with a 2-byte reserved field and a 4-byte
-// length (PS3.5 7.1.2, Table 7.1-1).
-var longVR = map[string]bool{"OB": true, "OD": true, "OF": true, "OL": true, "OV": true,
-	"OW": true, "SQ": true, "SV": true, "UC": true, "UN": true, "UR": true, "UT": true, "UV": true}
 
 // dataset walks elements from off until end, or until an item delimiter
 // when end < 0; it returns the offset after what it consumed.
@@ -66,7 +62,7 @@ func (s *scanner) dataset(off, end, depth int) (int, error) {
 				// is midsag's own copy of the stream.
 				s.data[off+4], s.data[off+5] = 'O', 'B'
 			}
-			if longVR[vr] {
+			if part10.LongVR(vr) {
 				if off+12 > limit {
 					return 0, midsag.Rejectf(midsag.ReasonTruncated, "element header at byte %d runs past the end", off)
 				}

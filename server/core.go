@@ -98,6 +98,11 @@ func (c *Core) Ingest(ctx context.Context, origin Origin, data []byte) (Stored, 
 	if inst.StudyInstanceUID == "" || inst.SeriesInstanceUID == "" {
 		return Stored{}, midsag.Rejectf(midsag.ReasonNotDICOM, "instance has no Study or Series Instance UID")
 	}
+	if origin.Study != "" && inst.StudyInstanceUID != origin.Study {
+		named := Stored{StudyInstanceUID: inst.StudyInstanceUID, SeriesInstanceUID: inst.SeriesInstanceUID,
+			SOPInstanceUID: inst.SOPInstanceUID, SOPClassUID: inst.SOPClassUID}
+		return named, midsag.Rejectf(midsag.ReasonMultipleStudies, "instance of another study than the request's")
+	}
 	rec, dup, err := c.cfg.Store.Put(ctx, store.Instance{
 		StudyInstanceUID:  inst.StudyInstanceUID,
 		SeriesInstanceUID: inst.SeriesInstanceUID,

@@ -129,7 +129,7 @@ func TestCoreScoresRequestAndSettledStudy(t *testing.T) {
 // every queue slot taken a request is refused as overloaded and nothing is
 // recorded for it.
 func TestCoreRefusalsAndOverload(t *testing.T) {
-	c, _, stop := newCore(t, t.TempDir(), time.Hour)
+	c, st, stop := newCore(t, t.TempDir(), time.Hour)
 	defer stop()
 	files, _, _ := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 10, NoDecoys: true}, 0)
 	uids := ingestAll(t, c, files[:2])
@@ -147,6 +147,15 @@ func TestCoreRefusalsAndOverload(t *testing.T) {
 	}
 	if _, err := c.Ingest(context.Background(), Origin{Listener: "test"}, []byte("not dicom")); err == nil {
 		t.Error("non-DICOM ingested")
+	}
+	// STOW-RS /studies/{study} (PS3.18 10.5): an instance of another
+	// study is refused before it is stored, and still named.
+	other, err := c.Ingest(context.Background(), Origin{Listener: "stow", Study: "1.2.3.999"}, files[2].Data)
+	if r, _ := midsag.ReasonOf(err); r != midsag.ReasonMultipleStudies || other.SOPInstanceUID == "" {
+		t.Errorf("instance of another study: %+v, %v", other, err)
+	}
+	if got, _ := st.InstancesBySOP(context.Background(), []string{other.SOPInstanceUID}); len(got) != 0 {
+		t.Errorf("an instance of another study was stored")
 	}
 	before, _, _ := c.Results(context.Background(), Query{})
 	for i := 0; i < cap(c.slots); i++ {

@@ -2,11 +2,7 @@ package server
 
 import (
 	"context"
-	"net/http"
 
-	"google.golang.org/grpc/codes"
-
-	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/server/store"
 )
 
@@ -34,6 +30,10 @@ type Origin struct {
 	CallingAE string
 	// Remote is the peer's network address.
 	Remote string
+	// Study, when set, is the only Study Instance UID Ingest accepts
+	// (STOW-RS /studies/{study}): an instance of another study is refused
+	// as midsag.ReasonMultipleStudies before anything is stored.
+	Study string
 }
 
 // Stored identifies an instance after Ingest has made it durable.
@@ -75,7 +75,8 @@ type ModelEntry struct {
 // Backend is what every listener calls. Core implements it.
 type Backend interface {
 	// Ingest parses the header of one DICOM Part 10 instance and stores it
-	// durably (spool file and database row) before returning.
+	// durably (spool file and database row) before returning. A refusal
+	// after the header was read comes with the Stored UIDs it names.
 	Ingest(ctx context.Context, origin Origin, data []byte) (Stored, error)
 	// Score scores the request's instances as one study. Without Async it
 	// waits for the result; with Async it returns the pending record.
@@ -92,37 +93,4 @@ type Backend interface {
 	// Artifact returns a file made with a result, such as "heatmap.png"
 	// for an explained result (store.ErrNotFound if there is none).
 	Artifact(ctx context.Context, id, name string) ([]byte, error)
-}
-
-// HTTPStatus maps a refusal reason to an HTTP status (DESIGN.md: 400, 413,
-// 415, 422, 429, 503).
-func HTTPStatus(r midsag.Reason) int {
-	switch r {
-	case midsag.ReasonTooLarge:
-		return http.StatusRequestEntityTooLarge
-	case midsag.ReasonNotDICOM, midsag.ReasonUnsupportedSyntax:
-		return http.StatusUnsupportedMediaType
-	case midsag.ReasonOverloaded:
-		return http.StatusTooManyRequests
-	case midsag.ReasonNoInput, midsag.ReasonTruncated, midsag.ReasonBadPixelData, midsag.ReasonMultipleStudies:
-		return http.StatusBadRequest
-	case midsag.ReasonNoSagittalT2, midsag.ReasonTooFewSlices, midsag.ReasonInconsistentGeometry,
-		midsag.ReasonIncompleteSeries, midsag.ReasonDuplicateInstance, midsag.ReasonMidlineNotInSlab,
-		midsag.ReasonModelInputMismatch, midsag.ReasonBadModel:
-		return http.StatusUnprocessableEntity
-	}
-	return http.StatusBadRequest
-}
-
-// GRPCCode maps a refusal reason to a gRPC status code.
-func GRPCCode(r midsag.Reason) codes.Code {
-	switch r {
-	case midsag.ReasonOverloaded:
-		return codes.ResourceExhausted
-	case midsag.ReasonNoSagittalT2, midsag.ReasonTooFewSlices, midsag.ReasonInconsistentGeometry,
-		midsag.ReasonIncompleteSeries, midsag.ReasonDuplicateInstance, midsag.ReasonMidlineNotInSlab,
-		midsag.ReasonModelInputMismatch, midsag.ReasonBadModel:
-		return codes.FailedPrecondition
-	}
-	return codes.InvalidArgument
 }

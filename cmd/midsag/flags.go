@@ -9,10 +9,11 @@ import (
 	"strings"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/server"
 )
 
-// flagHelp is returned when -h was asked for; the usage is already printed.
-var flagHelp = errors.New("help requested")
+// errFlagHelp is returned when -h was asked for; the usage is already printed.
+var errFlagHelp = errors.New("help requested")
 
 // newFlags returns a FlagSet for verb whose usage text goes to stderr.
 func newFlags(verb, argsUsage, about string, stderr io.Writer) *flag.FlagSet {
@@ -30,7 +31,7 @@ func newFlags(verb, argsUsage, about string, stderr io.Writer) *flag.FlagSet {
 func parseFlags(fs *flag.FlagSet, args []string) error {
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
-			return flagHelp
+			return errFlagHelp
 		}
 		return &usageError{msg: err.Error()}
 	}
@@ -53,14 +54,16 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 
 // rejectionCode returns exitRejected for an input refusal, else 0.
 func rejectionCode(err error) int {
-	if _, ok := midsag.ReasonOf(err); ok {
+	if isRefusal(err) {
 		return exitRejected
 	}
 	return 0
 }
 
-// isRefusal reports whether err is an input refusal with a reason code.
+// isRefusal reports whether err is an input refusal with a reason code:
+// any code but the failures that server.ReasonTable marks as faults
+// (internal, error), which exit as runtime failures.
 func isRefusal(err error) bool {
-	_, ok := midsag.ReasonOf(err)
-	return ok
+	r, ok := midsag.ReasonOf(err)
+	return ok && !server.MappingOf(r).Fault
 }

@@ -13,6 +13,7 @@ import (
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/inputs"
+	"github.com/midsag/midsag/internal/atomicfile"
 	"github.com/midsag/midsag/preprocess"
 )
 
@@ -84,15 +85,10 @@ func writeHeatmaps(dir string, res *midsag.Result) error {
 	return writeFileAtomic(filepath.Join(dir, "heatmap.dcm"), dcm)
 }
 
-// scoreStudy runs the one Pipeline on the given paths.
-func scoreStudy(ctx context.Context, mf *modelFlags, lenient bool, paths []string) (*midsag.Result, error) {
-	return scoreStudyWith(ctx, mf, lenient, nil, paths)
-}
-
 // scoreStudyWith runs the one Pipeline on the given paths with an
 // Explainer, which may be nil.
 func scoreStudyWith(ctx context.Context, mf *modelFlags, lenient bool, expl midsag.Explainer, paths []string) (*midsag.Result, error) {
-	sources, closeSources, err := inputs.Collect(paths)
+	sources, closeSources, err := inputs.Collect(paths, inputs.DefaultLimits)
 	if err != nil {
 		return nil, err
 	}
@@ -114,12 +110,15 @@ func reportRejection(err error, asJSON bool, stderr io.Writer) error {
 	if e == nil {
 		return err
 	}
-	msg := strings.Replace(err.Error(), string(e.Reason)+": ", "", 1)
+	msg := e.Message()
 	if asJSON {
-		if perr := printJSON(stderr, midsag.NewRefusalBody(e.Reason, msg, e.Candidates)); perr != nil {
+		if perr := printJSON(stderr, midsag.NewRefusalBody(e, msg)); perr != nil {
 			return perr
 		}
 		return &reportedError{err: err, code: exitRejected}
+	}
+	if src := e.Details["source"]; src != "" {
+		msg = src + ": " + msg
 	}
 	fmt.Fprintf(stderr, "midsag: rejected (%s): %s\n", e.Reason, msg)
 	for _, c := range e.Candidates {
@@ -152,36 +151,10 @@ func writeJSONFile(path string, v any) error {
 	return writeFileAtomic(path, b.Bytes())
 }
 
+// writeFileAtomic writes an output file atomically and durably
+// (atomicfile); outputs are ordinary files other users may read.
 func writeFileAtomic(path string, data []byte) error {
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return err
-	}
-	// CreateTemp makes the file owner-only; outputs are ordinary files.
-	if err := tmp.Chmod(0o644); err != nil {
-		tmp.Close()
-		os.Remove(tmp.Name())
-		return err
-	}
-	if _, err := tmp.Write(data); err != nil {
-		tmp.Close()
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := tmp.Sync(); err != nil {
-		tmp.Close()
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := tmp.Close(); err != nil {
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := os.Rename(tmp.Name(), path); err != nil {
-		os.Remove(tmp.Name())
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	return nil
+	return atomicfile.WriteFile(path, data, atomicfile.Perm(0o644))
 }
 
 // printSummary prints a short human-readable account of a result.

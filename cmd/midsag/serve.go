@@ -323,8 +323,9 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 }
 
 // storeHandler answers a C-STORE with success only once the instance is
-// durable; a refusal maps to "cannot understand" (PS3.4 B.2.3, from memory)
-// and a storage failure to "out of resources".
+// durable; a refusal maps to its reason's DIMSE status (server.ReasonTable:
+// "cannot understand", or "out of resources" for too_large) and a storage
+// failure to "out of resources" (PS3.4 B.2.3, from memory).
 func storeHandler(core *server.Core) dimse.StoreHandler {
 	return func(ctx context.Context, a dimse.Association, part10 []byte) uint16 {
 		_, err := core.Ingest(ctx, server.Origin{Listener: "dicom", CallingAE: a.CallingAE, Remote: a.Remote}, part10)
@@ -332,7 +333,7 @@ func storeHandler(core *server.Core) dimse.StoreHandler {
 		case err == nil:
 			return 0x0000
 		case isRefusal(err):
-			return 0xC000
+			return server.RefusalStatus(err)
 		default:
 			return 0xA700
 		}

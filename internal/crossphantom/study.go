@@ -34,6 +34,8 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 // Scenario names how a study's target series holds the midline.
@@ -555,7 +557,7 @@ func Write(dir string, cfg Config, n int) ([]Truth, error) {
 			if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
 				return nil, fmt.Errorf("crossphantom: study %d: %w", i, err)
 			}
-			if err := writeFile(p, f.Data); err != nil {
+			if err := atomicfile.WriteFile(p, f.Data); err != nil {
 				return nil, fmt.Errorf("crossphantom: study %d: %w", i, err)
 			}
 		}
@@ -565,31 +567,8 @@ func Write(dir string, cfg Config, n int) ([]Truth, error) {
 	if err != nil {
 		return nil, fmt.Errorf("crossphantom: truth: %w", err)
 	}
-	if err := writeFile(filepath.Join(dir, "truth.json"), b); err != nil {
+	if err := atomicfile.WriteFile(filepath.Join(dir, "truth.json"), b); err != nil {
 		return nil, fmt.Errorf("crossphantom: truth: %w", err)
 	}
 	return all, nil
-}
-
-// writeFile writes b to path through a synced temporary file and a
-// rename, so a reader never sees a partial file.
-func writeFile(path string, b []byte) error {
-	f, err := os.CreateTemp(filepath.Dir(path), ".tmp-*")
-	if err != nil {
-		return err
-	}
-	_, err = f.Write(b)
-	if err == nil {
-		err = f.Sync()
-	}
-	if cerr := f.Close(); err == nil {
-		err = cerr
-	}
-	if err == nil {
-		err = os.Rename(f.Name(), path)
-	}
-	if err != nil {
-		os.Remove(f.Name())
-	}
-	return err
 }

@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/part10"
 )
 
@@ -30,9 +31,10 @@ const (
 	// DefaultARTIM is the ARTIM timer (PS3.8 9.1.5); 30 s matches the
 	// ACSE timeout DCMTK's tools use by default (storescu --help).
 	DefaultARTIM = 30 * time.Second
-	// DefaultMaxDatasetBytes bounds one C-STORE dataset: well above a
-	// multi-frame Enhanced MR series of a spine study.
-	DefaultMaxDatasetBytes = 512 << 20
+	// DefaultMaxDatasetBytes bounds one C-STORE dataset: the bound every
+	// input edge puts on one instance (inputs.MaxInstanceBytes), which
+	// the header reader behind the store applies too.
+	DefaultMaxDatasetBytes = inputs.MaxInstanceBytes
 	// DefaultDrainTimeout is how long Serve lets running associations
 	// finish after its context is cancelled.
 	DefaultDrainTimeout = 10 * time.Second

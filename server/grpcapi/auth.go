@@ -7,6 +7,8 @@ import (
 	"strings"
 
 	"google.golang.org/grpc/metadata"
+
+	"github.com/midsag/midsag"
 )
 
 // tokens checks bearer tokens (RFC 6750 2.1) in constant time per token.
@@ -67,7 +69,7 @@ func (t tokens) wrap(a *httpAPI, h http.Handler) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		if !t.accepts(r.Header.Get("Authorization")) {
 			w.Header().Set("WWW-Authenticate", `Bearer realm="midsag"`) // RFC 6750 3
-			writeError(w, a.cfg.Logger, newAPIError(ReasonUnauthenticated, "a bearer token is required (Authorization: Bearer TOKEN)"))
+			writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonUnauthenticated, "a bearer token is required (Authorization: Bearer TOKEN)"))
 			return
 		}
 		h.ServeHTTP(w, r)

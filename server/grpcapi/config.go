@@ -5,7 +5,7 @@ import (
 	"log/slog"
 	"time"
 
-	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/server"
 )
 
@@ -14,20 +14,6 @@ import (
 // (a few thousand 512x512 16-bit slices) with room to spare, while a
 // runaway client is cut off before it fills the spool disk. Our choice.
 const DefaultMaxBodyBytes int64 = 1 << 30
-
-// Request-level reason codes. They are not input refusals (those are
-// midsag.Reason constants) but share their vocabulary in error bodies.
-const (
-	// ReasonNotFound: the named result does not exist.
-	ReasonNotFound midsag.Reason = "not_found"
-	// ReasonUnauthenticated: a bearer token is required and was missing or
-	// unknown.
-	ReasonUnauthenticated midsag.Reason = "unauthenticated"
-	// ReasonBadRequest: a parameter of the request is malformed.
-	ReasonBadRequest midsag.Reason = "bad_request"
-	// ReasonInternal: the service failed; the log has the cause.
-	ReasonInternal midsag.Reason = "internal"
-)
 
 // Config configures both the gRPC server and the HTTP handler.
 type Config struct {
@@ -38,6 +24,10 @@ type Config struct {
 	// it the request is refused with too_large (HTTP 413). Zero means
 	// DefaultMaxBodyBytes.
 	MaxBodyBytes int64
+	// Limits bound the entries of an uploaded zip, the parts of a
+	// multipart body and each instance (inputs.Limits); zero fields are
+	// inputs.DefaultLimits.
+	Limits inputs.Limits
 	// Tokens are the accepted bearer tokens. Empty means no
 	// authentication. /healthz, /readyz, /metrics and the gRPC health
 	// service never need one.
@@ -57,6 +47,7 @@ func (c Config) withDefaults() (Config, error) {
 	if c.MaxBodyBytes <= 0 {
 		c.MaxBodyBytes = DefaultMaxBodyBytes
 	}
+	c.Limits = c.Limits.OrDefault()
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.DiscardHandler)
 	}

@@ -4,12 +4,12 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"log/slog"
 	"net/http"
 	"strings"
 
 	"google.golang.org/genproto/googleapis/rpc/errdetails"
-	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
 
 	"github.com/midsag/midsag"
@@ -20,139 +20,96 @@ import (
 // errorDomain is the ErrorInfo domain of every midsag gRPC error.
 const errorDomain = "midsag"
 
-// apiError is a failure as both transports report it.
-type apiError struct {
-	reason     midsag.Reason
-	msg        string
-	candidates []midsag.SeriesCandidate
-	cause      error // logged, never sent: it may name files or internals
-}
-
-func (e *apiError) Error() string {
-	if e.cause != nil {
-		return string(e.reason) + ": " + e.msg + ": " + e.cause.Error()
-	}
-	return string(e.reason) + ": " + e.msg
-}
-
-func (e *apiError) Unwrap() error { return e.cause }
-
-func newAPIError(reason midsag.Reason, msg string) *apiError {
-	return &apiError{reason: reason, msg: msg}
-}
-
 // classify turns any error from the Backend or from request handling into
-// an apiError. Refusals keep their reason and message; unknown errors
-// become internal so their text stays in the log.
-func classify(err error) *apiError {
-	var ae *apiError
-	if errors.As(err, &ae) {
-		return ae
+// a *midsag.Error. Refusals keep their reason, message and details;
+// unknown errors become internal, their text kept as the cause for the
+// log.
+func classify(err error) *midsag.Error {
+	// A body cut off at MaxBodyBytes is too large, also where a reader
+	// reported the cut as a malformed body.
+	var mbe *http.MaxBytesError
+	if errors.As(err, &mbe) {
+		return tooLarge(mbe.Limit)
 	}
 	if e := midsag.RefusalOf(err); e != nil {
-		msg := strings.Replace(err.Error(), string(e.Reason)+": ", "", 1)
-		return &apiError{reason: e.Reason, msg: msg, candidates: e.Candidates}
+		return e
 	}
-	var mbe *http.MaxBytesError
 	switch {
-	case errors.As(err, &mbe):
-		return tooLarge(mbe.Limit)
 	case errors.Is(err, store.ErrNotFound):
-		return &apiError{reason: ReasonNotFound, msg: "no result with this id", cause: err}
+		// The cause is store.ErrNotFound itself: nothing to log.
+		return midsag.Rejectf(midsag.ReasonNotFound, "no result with this id")
 	case errors.Is(err, context.Canceled), errors.Is(err, context.DeadlineExceeded):
-		return &apiError{reason: ReasonInternal, msg: "the request was cancelled or timed out", cause: err}
+		return midsag.Reject(midsag.ReasonInternal, "the request was cancelled or timed out", err)
 	}
-	return &apiError{reason: ReasonInternal, msg: "internal error", cause: err}
+	return midsag.Reject(midsag.ReasonInternal, "internal error", err)
 }
 
-// httpStatus maps a reason to an HTTP status: the request-level codes here,
-// refusals through server.HTTPStatus.
-func httpStatus(r midsag.Reason) int {
-	switch r {
-	case ReasonNotFound:
-		return http.StatusNotFound
-	case ReasonUnauthenticated:
-		return http.StatusUnauthorized
-	case ReasonBadRequest:
-		return http.StatusBadRequest
-	case ReasonInternal:
-		return http.StatusInternalServerError
+// sentMessage is what a client is told: the message with its cause for a
+// refusal; for a failure (server.Mapping.Fault) the message alone, as the
+// cause may name files or internals.
+func sentMessage(e *midsag.Error) string {
+	if server.MappingOf(e.Reason).Fault {
+		return e.Msg
 	}
-	return server.HTTPStatus(r)
+	return e.Message()
 }
 
-// grpcCode maps a reason to a gRPC code, refusals through server.GRPCCode.
-func grpcCode(r midsag.Reason) codes.Code {
-	switch r {
-	case ReasonNotFound:
-		return codes.NotFound
-	case ReasonUnauthenticated:
-		return codes.Unauthenticated
-	case ReasonBadRequest:
-		return codes.InvalidArgument
-	case ReasonInternal:
-		return codes.Internal
+// logCause logs the cause of a failure, which the client is not sent.
+func logCause(log *slog.Logger, e *midsag.Error) {
+	if e.Err != nil && sentMessage(e) == e.Msg {
+		log.Error("request failed", "reason", e.Reason, "err", e.Err)
 	}
-	return server.GRPCCode(r)
 }
 
-// reasonOfCode names a reason for a gRPC status that carries none (the
-// gateway's own parameter errors, the transport's).
-func reasonOfCode(c codes.Code) midsag.Reason {
-	switch c {
-	case codes.NotFound:
-		return ReasonNotFound
-	case codes.Unauthenticated:
-		return ReasonUnauthenticated
-	case codes.InvalidArgument, codes.OutOfRange:
-		return ReasonBadRequest
-	case codes.ResourceExhausted:
-		return midsag.ReasonOverloaded
-	}
-	return ReasonInternal
-}
-
-// grpcStatus is the status a gRPC call returns for err: the code from the
-// reason, "reason: message" as the message, and an ErrorInfo detail.
+// grpcStatus is the status a gRPC call returns for err: the code from
+// server.ReasonTable, "reason: message" as the message, and an ErrorInfo
+// detail with the reason and the refusal's details as metadata.
 func grpcStatus(err error) error {
-	ae := classify(err)
-	st := status.New(grpcCode(ae.reason), string(ae.reason)+": "+ae.msg)
-	if withInfo, derr := st.WithDetails(&errdetails.ErrorInfo{Reason: string(ae.reason), Domain: errorDomain}); derr == nil {
+	e := classify(err)
+	st := status.New(server.GRPCCode(e.Reason), string(e.Reason)+": "+sentMessage(e))
+	info := &errdetails.ErrorInfo{Reason: string(e.Reason), Domain: errorDomain, Metadata: e.Details}
+	if withInfo, derr := st.WithDetails(info); derr == nil {
 		st = withInfo
 	}
 	return st.Err()
 }
 
-// fromStatus recovers the apiError carried by a gRPC status error.
-func fromStatus(err error) *apiError {
+// fromStatus recovers the *midsag.Error carried by a gRPC status error.
+func fromStatus(err error) *midsag.Error {
 	st, ok := status.FromError(err)
 	if !ok {
 		return classify(err)
 	}
-	reason := reasonOfCode(st.Code())
+	e := &midsag.Error{Reason: server.ReasonOfCode(st.Code())}
 	for _, d := range st.Details() {
 		if info, ok := d.(*errdetails.ErrorInfo); ok && info.GetDomain() == errorDomain {
-			reason = midsag.Reason(info.GetReason())
+			e.Reason = midsag.Reason(info.GetReason())
+			e.Details = info.GetMetadata()
 		}
 	}
-	return &apiError{reason: reason, msg: strings.TrimPrefix(st.Message(), string(reason)+": ")}
+	// The status message is "reason: message" (grpcStatus); the reason is
+	// carried apart, so only the message is kept.
+	e.Msg = strings.TrimPrefix(st.Message(), string(e.Reason)+": ")
+	return e
 }
 
 // overloadRetryAfter is the Retry-After (seconds) sent with 429: about
 // the time one study takes to score on two cores. Our choice.
 const overloadRetryAfter = "5"
 
-// writeError writes ae as the JSON error body with its HTTP status, and
-// logs internal causes.
-func writeError(w http.ResponseWriter, log *slog.Logger, ae *apiError) {
-	if ae.cause != nil {
-		log.Error("request failed", "reason", ae.reason, "err", ae.cause)
-	}
-	body := midsag.NewRefusalBody(ae.reason, ae.msg, ae.candidates)
-	if ae.reason == midsag.ReasonOverloaded {
+// writeError writes e as the JSON error body with its HTTP status from
+// server.ReasonTable, and logs the causes of failures.
+func writeError(w http.ResponseWriter, log *slog.Logger, e *midsag.Error) {
+	logCause(log, e)
+	if e.Reason == midsag.ReasonOverloaded {
 		w.Header().Set("Retry-After", overloadRetryAfter)
 	}
-	writeJSON(w, httpStatus(ae.reason), "application/json", body)
+	writeJSON(w, server.HTTPStatus(e.Reason), "application/json", midsag.NewRefusalBody(e, sentMessage(e)))
+}
+
+// tooLarge is the refusal for an upload beyond the configured limit.
+func tooLarge(limit int64) *midsag.Error {
+	return midsag.Rejectf(midsag.ReasonTooLarge, "the upload is larger than the %d-byte limit", limit)
 }
 
 // writeJSON encodes v fully before writing, so a marshalling failure never
@@ -161,7 +118,7 @@ func writeJSON(w http.ResponseWriter, code int, contentType string, v any) {
 	b, err := json.Marshal(v)
 	if err != nil {
 		writeBytes(w, http.StatusInternalServerError, "application/json",
-			[]byte(`{"error":{"reason":"internal","message":"encode response"}}`+"\n"))
+			fmt.Appendf(nil, `{"error":{"reason":%q,"message":"encode response"}}`+"\n", midsag.ReasonInternal))
 		return
 	}
 	writeBytes(w, code, contentType, append(b, '\n'))

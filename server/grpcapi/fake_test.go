@@ -48,6 +48,9 @@ func (f *fakeBackend) Ingest(_ context.Context, origin server.Origin, data []byt
 		SOPInstanceUID:    inst.SOPInstanceUID,
 		SOPClassUID:       inst.SOPClassUID,
 	}
+	if origin.Study != "" && st.StudyInstanceUID != origin.Study {
+		return st, midsag.Rejectf(midsag.ReasonMultipleStudies, "instance of another study")
+	}
 	f.mu.Lock()
 	defer f.mu.Unlock()
 	f.ingested = append(f.ingested, st)

@@ -12,6 +12,7 @@ import (
 	"google.golang.org/grpc/reflection"
 	"google.golang.org/grpc/status"
 
+	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
 )
 
@@ -53,7 +54,7 @@ func (g *grpcMiddleware) check(ctx context.Context, method string) error {
 	if strings.HasPrefix(method, healthPrefix) || g.tokens.acceptsContext(ctx) {
 		return nil
 	}
-	return grpcStatus(newAPIError(ReasonUnauthenticated, `a bearer token is required (metadata "authorization: Bearer TOKEN")`))
+	return grpcStatus(midsag.Rejectf(midsag.ReasonUnauthenticated, `a bearer token is required (metadata "authorization: Bearer TOKEN")`))
 }
 
 func (g *grpcMiddleware) done(method string, start time.Time, err error) {

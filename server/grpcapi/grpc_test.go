@@ -102,7 +102,7 @@ func TestGRPCScoreStudyStreamed(t *testing.T) {
 		t.Fatalf("GetResult: %v %v", got, err)
 	}
 	_, err = c.GetResult(ctx, &midsagv1.GetResultRequest{ResultId: "nope"})
-	wantStatus(t, err, codes.NotFound, ReasonNotFound)
+	wantStatus(t, err, codes.NotFound, midsag.ReasonNotFound)
 
 	// A refusal from the Backend keeps its reason: code from
 	// server.GRPCCode, reason in the message and in ErrorInfo.
@@ -113,6 +113,26 @@ func TestGRPCScoreStudyStreamed(t *testing.T) {
 	// A stream without instances, and one over the size limit.
 	_, err = sendStudy(ctx, c, &midsagv1.ScoreOptions{}, nil, 64<<10)
 	wantStatus(t, err, codes.InvalidArgument, midsag.ReasonNoInput)
+
+	// A refused instance is named in the ErrorInfo metadata (AIP-193, from memory:
+	// ErrorInfo carries the machine-readable reason and its context), so
+	// a client learns which one without parsing the message.
+	fake.setScoreErr(nil)
+	_, err = sendStudy(ctx, c, &midsagv1.ScoreOptions{}, []phantom.File{{Name: "junk", Data: []byte("not DICOM")}}, 64<<10)
+	wantStatus(t, err, codes.InvalidArgument, midsag.ReasonNotDICOM)
+	if info := errorInfo(err); info.GetMetadata()["source"] != "instance 1" {
+		t.Errorf("ErrorInfo metadata %v, want source \"instance 1\"", info.GetMetadata())
+	}
+}
+
+// errorInfo returns the ErrorInfo detail of a gRPC status error, or nil.
+func errorInfo(err error) *errdetails.ErrorInfo {
+	for _, d := range status.Convert(err).Details() {
+		if i, ok := d.(*errdetails.ErrorInfo); ok {
+			return i
+		}
+	}
+	return nil
 }
 
 func TestGRPCStreamLimit(t *testing.T) {
@@ -132,12 +152,7 @@ func wantStatus(t *testing.T, err error, code codes.Code, reason midsag.Reason) 
 	if st.Code() != code {
 		t.Fatalf("code %v (%v), want %v", st.Code(), err, code)
 	}
-	var info *errdetails.ErrorInfo
-	for _, d := range st.Details() {
-		if i, ok := d.(*errdetails.ErrorInfo); ok {
-			info = i
-		}
-	}
+	info := errorInfo(err)
 	if info == nil || info.GetReason() != string(reason) || info.GetDomain() != "midsag" {
 		t.Errorf("ErrorInfo %v, want reason %s domain midsag", info, reason)
 	}
@@ -154,12 +169,12 @@ func TestGRPCAuthHealthReflection(t *testing.T) {
 	c := midsagv1.NewStudyScoringClient(cc)
 
 	_, err := c.ListModels(ctx, &midsagv1.ListModelsRequest{})
-	wantStatus(t, err, codes.Unauthenticated, ReasonUnauthenticated)
+	wantStatus(t, err, codes.Unauthenticated, midsag.ReasonUnauthenticated)
 	_, err = sendStudy(ctx, c, &midsagv1.ScoreOptions{}, nil, 1)
-	wantStatus(t, err, codes.Unauthenticated, ReasonUnauthenticated)
+	wantStatus(t, err, codes.Unauthenticated, midsag.ReasonUnauthenticated)
 	bad := metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer nope")
 	_, err = c.ListModels(bad, &midsagv1.ListModelsRequest{})
-	wantStatus(t, err, codes.Unauthenticated, ReasonUnauthenticated)
+	wantStatus(t, err, codes.Unauthenticated, midsag.ReasonUnauthenticated)
 
 	authed := metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer s3cret")
 	models, err := c.ListModels(authed, &midsagv1.ListModelsRequest{})

@@ -11,8 +11,8 @@ import (
 	"github.com/grpc-ecosystem/grpc-gateway/v2/runtime"
 	"google.golang.org/protobuf/encoding/protojson"
 
+	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
-	"github.com/midsag/midsag/preprocess"
 	"github.com/midsag/midsag/server"
 )
 
@@ -23,9 +23,6 @@ var openPaths = map[string]bool{"/healthz": true, "/readyz": true, "/metrics": t
 type httpAPI struct {
 	cfg    Config
 	tokens tokens
-	// pre reads headers of STOW-RS parts before they are stored, to check
-	// the study in the URL (lenient: Ingest has the final word).
-	pre *preprocess.Preprocessor
 }
 
 // NewHTTPHandler returns one handler for the REST API: the gateway routes
@@ -39,7 +36,7 @@ func NewHTTPHandler(ctx context.Context, cfg Config, extra map[string]http.Handl
 	if err != nil {
 		return nil, err
 	}
-	a := &httpAPI{cfg: cfg, tokens: newTokens(cfg.Tokens), pre: preprocess.New(preprocess.Options{Lenient: true})}
+	a := &httpAPI{cfg: cfg, tokens: newTokens(cfg.Tokens)}
 
 	gw := runtime.NewServeMux(
 		runtime.WithMarshalerOption(runtime.MIMEWildcard, &runtime.JSONPb{
@@ -97,7 +94,7 @@ func serveOpenAPI(w http.ResponseWriter, _ *http.Request) {
 }
 
 func (a *httpAPI) notFound(w http.ResponseWriter, r *http.Request) {
-	writeError(w, a.cfg.Logger, newAPIError(ReasonNotFound, fmt.Sprintf("no route for %s %s", r.Method, r.URL.Path)))
+	writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotFound, "no route for %s %s", r.Method, r.URL.Path))
 }
 
 // observe logs each request and reports it to Config.Observe under its

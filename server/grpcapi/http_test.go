@@ -19,6 +19,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/inputs"
 )
 
 // The HTTP tests drive the handler with the real curl (/usr/bin/curl) over
@@ -216,6 +217,37 @@ func TestCurlScoreTooLarge(t *testing.T) {
 	}
 }
 
+// TestCurlScoreInputLimits: the input limits (inputs.Limits) hold for
+// every kind of upload: a zip with more entries than MaxEntries, a
+// multipart/related body with more parts, and a part or a single body
+// beyond MaxEntryBytes are refused as too_large with 413 (RFC 9110
+// 15.5.14) and nothing is ingested.
+func TestCurlScoreInputLimits(t *testing.T) {
+	files := phantomStudy(t)
+	fake := newFake()
+	entry := int64(len(files[0].Data)) - 1
+	srv := newHTTP(t, Config{Backend: fake, Limits: inputs.Limits{MaxEntries: 2, MaxEntryBytes: entry}}, nil)
+	zipPath := writeTemp(t, "three.zip", zipOf(t, files[:3]))
+	r := runCurl(t, "-H", "Content-Type: application/zip", "--data-binary", "@"+zipPath, srv.URL+"/v1/studies:score")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+
+	body, boundary := relatedBody(t, [][]byte{files[0].Data}, []string{"application/dicom"})
+	p := writeTemp(t, "big-part.bin", body)
+	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
+		"--data-binary", "@"+p, srv.URL+"/v1/studies:score")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
+		"--data-binary", "@"+p, srv.URL+"/dicomweb/studies")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+
+	one := writeTemp(t, "one.dcm", files[0].Data)
+	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score")
+	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+	if ingested, _ := fake.counts(); ingested != 0 {
+		t.Errorf("%d instances ingested beyond the limits", ingested)
+	}
+}
+
 func TestCurlScoreAsync(t *testing.T) {
 	files := phantomStudy(t)
 	fake := newFake()
@@ -268,7 +300,7 @@ func TestCurlScoreRefusals(t *testing.T) {
 	wantRefusal(t, r, http.StatusUnsupportedMediaType, midsag.ReasonNotDICOM)
 
 	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score?async=maybe")
-	wantRefusal(t, r, http.StatusBadRequest, ReasonBadRequest)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
 
 	r = runCurl(t, "-X", "POST", "-H", "Content-Type: application/dicom", srv.URL+"/v1/studies:score")
 	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonNoInput)
@@ -292,9 +324,9 @@ func TestCurlGatewayRoutes(t *testing.T) {
 
 	// Without a token: 401 with the JSON body; /healthz stays open.
 	r := runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score")
-	wantRefusal(t, r, http.StatusUnauthorized, ReasonUnauthenticated)
+	wantRefusal(t, r, http.StatusUnauthorized, midsag.ReasonUnauthenticated)
 	r = runCurl(t, "-H", "Authorization: Bearer wrong", srv.URL+"/v1/models")
-	wantRefusal(t, r, http.StatusUnauthorized, ReasonUnauthenticated)
+	wantRefusal(t, r, http.StatusUnauthorized, midsag.ReasonUnauthenticated)
 	if r = runCurl(t, srv.URL+"/healthz"); r.code != http.StatusOK {
 		t.Errorf("/healthz without token: %d", r.code)
 	}
@@ -321,54 +353,11 @@ func TestCurlGatewayRoutes(t *testing.T) {
 		}
 	}
 
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?study_instance_uid="+study+"&status=done&page_size=10")...)
-	var list struct {
-		Results []map[string]any `json:"results"`
-		Next    *string          `json:"next_page_token"`
-	}
-	if err := json.Unmarshal(r.body, &list); err != nil || r.code != http.StatusOK {
-		t.Fatalf("list: %d %s", r.code, r.body)
-	}
-	if len(list.Results) != 1 || list.Results[0]["result_id"] != id || list.Next == nil {
-		t.Errorf("list %s", r.body)
-	}
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?study_instance_uid=9.9.9")...)
-	if r.code != http.StatusOK || !strings.Contains(string(r.body), `"results":[]`) {
-		t.Errorf("list of an unknown study: %d %s", r.code, r.body)
-	}
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?status=bogus")...)
-	wantRefusal(t, r, http.StatusBadRequest, ReasonBadRequest)
-	r = runCurl(t, append(auth, srv.URL+"/v1/results?page_size=ten")...)
-	wantRefusal(t, r, http.StatusBadRequest, ReasonBadRequest)
-	r = runCurl(t, append(auth, srv.URL+"/v1/results/nope")...)
-	wantRefusal(t, r, http.StatusNotFound, ReasonNotFound)
-
-	r = runCurl(t, append(auth, srv.URL+"/v1/models")...)
-	var models struct {
-		Models []struct {
-			Name    string `json:"name"`
-			Default bool   `json:"default"`
-		} `json:"models"`
-	}
-	if err := json.Unmarshal(r.body, &models); err != nil || len(models.Models) != 1 || models.Models[0].Name != "midsag-demo" || !models.Models[0].Default {
-		t.Errorf("models: %d %s", r.code, r.body)
-	}
-
-	r = runCurl(t, append(auth, srv.URL+"/openapi.json")...)
-	var doc struct {
-		Paths map[string]any `json:"paths"`
-	}
-	if err := json.Unmarshal(r.body, &doc); err != nil {
-		t.Fatalf("openapi.json is not JSON: %v", err)
-	}
-	for _, p := range []string{"/v1/results/{result_id}", "/v1/results", "/v1/models"} {
-		if _, ok := doc.Paths[p]; !ok {
-			t.Errorf("openapi.json lacks path %s", p)
-		}
-	}
+	checkResultList(t, srv.URL, auth, id, study)
+	checkModelsAndOpenAPI(t, srv.URL, auth)
 
 	r = runCurl(t, append(auth, srv.URL+"/v2/nothing")...)
-	wantRefusal(t, r, http.StatusNotFound, ReasonNotFound)
+	wantRefusal(t, r, http.StatusNotFound, midsag.ReasonNotFound)
 
 	// Observe gets route patterns, never ids.
 	mu.Lock()
@@ -433,4 +422,64 @@ func TestHeatmapRoute(t *testing.T) {
 			t.Errorf("heatmap %q %q", resp.Header.Get("Content-Type"), body)
 		}
 	}
+}
+
+// checkResultList checks GET /v1/results: the filtered list holds the one
+// result with a next-page token, an unknown study gives an empty list,
+// and malformed filters are bad requests (the gateway's own parse errors
+// too), an unknown id not_found.
+func checkResultList(t *testing.T, base string, auth []string, id, study string) {
+	t.Helper()
+	r := runCurl(t, append(auth, base+"/v1/results?study_instance_uid="+study+"&status=done&page_size=10")...)
+	var list struct {
+		Results []map[string]any `json:"results"`
+		Next    *string          `json:"next_page_token"`
+	}
+	if err := json.Unmarshal(r.body, &list); err != nil || r.code != http.StatusOK {
+		t.Fatalf("list: %d %s", r.code, r.body)
+	}
+	if len(list.Results) != 1 || list.Results[0]["result_id"] != id || list.Next == nil {
+		t.Errorf("list %s", r.body)
+	}
+	r = runCurl(t, append(auth, base+"/v1/results?study_instance_uid=9.9.9")...)
+	if r.code != http.StatusOK || !strings.Contains(string(r.body), `"results":[]`) {
+		t.Errorf("list of an unknown study: %d %s", r.code, r.body)
+	}
+	r = runCurl(t, append(auth, base+"/v1/results?status=bogus")...)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
+	r = runCurl(t, append(auth, base+"/v1/results?page_size=ten")...)
+	wantRefusal(t, r, http.StatusBadRequest, midsag.ReasonBadRequest)
+	r = runCurl(t, append(auth, base+"/v1/results/nope")...)
+	wantRefusal(t, r, http.StatusNotFound, midsag.ReasonNotFound)
+
+}
+
+// checkModelsAndOpenAPI checks GET /v1/models names the demo model as the
+// default, and /openapi.json documents the gateway's paths.
+func checkModelsAndOpenAPI(t *testing.T, base string, auth []string) {
+	t.Helper()
+	r := runCurl(t, append(auth, base+"/v1/models")...)
+	var models struct {
+		Models []struct {
+			Name    string `json:"name"`
+			Default bool   `json:"default"`
+		} `json:"models"`
+	}
+	if err := json.Unmarshal(r.body, &models); err != nil || len(models.Models) != 1 || models.Models[0].Name != "midsag-demo" || !models.Models[0].Default {
+		t.Errorf("models: %d %s", r.code, r.body)
+	}
+
+	r = runCurl(t, append(auth, base+"/openapi.json")...)
+	var doc struct {
+		Paths map[string]any `json:"paths"`
+	}
+	if err := json.Unmarshal(r.body, &doc); err != nil {
+		t.Fatalf("openapi.json is not JSON: %v", err)
+	}
+	for _, p := range []string{"/v1/results/{result_id}", "/v1/results", "/v1/models"} {
+		if _, ok := doc.Paths[p]; !ok {
+			t.Errorf("openapi.json lacks path %s", p)
+		}
+	}
+
 }

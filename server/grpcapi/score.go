@@ -1,7 +1,6 @@
 package grpcapi
 
 import (
-	"archive/zip"
 	"bufio"
 	"bytes"
 	"context"
@@ -20,18 +19,6 @@ import (
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
 	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/server"
-)
-
-// Zip limits against archive bombs. Our choice: a cervical spine MR study
-// has a few hundred to a few thousand instances, and one instance is
-// rarely above 64 MiB.
-const (
-	// maxZipEntryBytes caps one entry's uncompressed size, whatever its
-	// header says.
-	maxZipEntryBytes int64 = 256 << 20
-	// zipExpansion bounds the total uncompressed size at this multiple
-	// of MaxBodyBytes.
-	zipExpansion = 4
 )
 
 // gzipRefusal is the answer to a gzip body: the service cannot tell a
@@ -87,7 +74,7 @@ func scoreOptions(q url.Values) (*midsagv1.ScoreOptions, error) {
 		if v := q.Get(name); v != "" {
 			b, err := strconv.ParseBool(v)
 			if err != nil {
-				return nil, newAPIError(ReasonBadRequest, fmt.Sprintf("%s=%q is not true or false", name, v))
+				return nil, midsag.Rejectf(midsag.ReasonBadRequest, "%s=%q is not true or false", name, v)
 			}
 			*dst = b
 		}
@@ -101,11 +88,11 @@ func scoreOptions(q url.Values) (*midsagv1.ScoreOptions, error) {
 // or missing one is settled by the body's first bytes.
 func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, ing *ingester) error {
 	if strings.Contains(strings.ToLower(h.Get("Content-Encoding")), "gzip") {
-		return newAPIError(midsag.ReasonNotDICOM, gzipRefusal)
+		return midsag.Rejectf(midsag.ReasonNotDICOM, "%s", gzipRefusal)
 	}
 	mt, params, err := mime.ParseMediaType(h.Get("Content-Type"))
 	if err != nil && h.Get("Content-Type") != "" {
-		return newAPIError(ReasonBadRequest, fmt.Sprintf("Content-Type is malformed: %v", err))
+		return midsag.Rejectf(midsag.ReasonBadRequest, "Content-Type is malformed: %v", err)
 	}
 	if mt == "multipart/related" {
 		return a.readMultipart(ctx, params, body, ing)
@@ -115,23 +102,23 @@ func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, 
 	if err != nil && !errors.Is(err, io.EOF) {
 		return fmt.Errorf("read body: %w", err)
 	}
-	isZip := bytes.HasPrefix(head, []byte("PK\x03\x04"))
+	isZip := inputs.IsZip(head)
 	switch {
 	case len(head) == 0:
-		return newAPIError(midsag.ReasonNoInput, "the request body is empty")
+		return midsag.Rejectf(midsag.ReasonNoInput, "the request body is empty")
 	case bytes.HasPrefix(head, []byte{0x1f, 0x8b}), mt == "application/gzip", mt == "application/x-gzip":
-		return newAPIError(midsag.ReasonNotDICOM, gzipRefusal)
+		return midsag.Rejectf(midsag.ReasonNotDICOM, "%s", gzipRefusal)
 	case mt == "application/zip", mt == "application/x-zip-compressed", isZip && genericType(mt):
 		return a.readZip(ctx, br, ing)
 	case mt == "application/dicom", genericType(mt):
-		data, err := io.ReadAll(br)
+		data, err := inputs.ReadEntry(br, a.cfg.Limits)
 		if err != nil {
-			return fmt.Errorf("read body: %w", err)
+			return prefixed("body", err)
 		}
 		return ing.ingest(ctx, "body", data)
 	}
-	return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf(
-		"Content-Type %s is not accepted; send application/zip, application/dicom or multipart/related; type=\"application/dicom\"", mt))
+	return midsag.Rejectf(midsag.ReasonNotDICOM,
+		"Content-Type %s is not accepted; send application/zip, application/dicom or multipart/related; type=\"application/dicom\"", mt)
 }
 
 // genericType reports whether mt says nothing about the payload: none,
@@ -140,32 +127,20 @@ func genericType(mt string) bool {
 	return mt == "" || mt == "application/octet-stream" || mt == "application/x-www-form-urlencoded"
 }
 
-// readMultipart ingests each part of a multipart/related body; every part
-// must be application/dicom (PS3.18 8.6.1.2).
+// readMultipart ingests each part of a multipart/related body within
+// the input limits; every part must be application/dicom (PS3.18
+// 8.6.1.2).
 func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, body io.Reader, ing *ingester) error {
 	mr, err := relatedReader(params, body)
 	if err != nil {
 		return err
 	}
-	for n := 1; ; n++ {
-		part, err := mr.NextRawPart()
-		if errors.Is(err, io.EOF) {
-			return nil
-		}
-		if err != nil {
-			return multipartError(n, err)
-		}
+	return inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, data []byte) error {
 		if err := partIsDICOM(part); err != nil {
-			return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf("part %d: %v", n, err))
+			return midsag.Rejectf(midsag.ReasonNotDICOM, "part %d: %v", n, err)
 		}
-		data, err := io.ReadAll(part)
-		if err != nil {
-			return multipartError(n, err)
-		}
-		if err := ing.ingest(ctx, fmt.Sprintf("part %d", n), data); err != nil {
-			return err
-		}
-	}
+		return ing.ingest(ctx, fmt.Sprintf("part %d", n), data)
+	})
 }
 
 // relatedReader checks a multipart/related media type's parameters and
@@ -173,11 +148,11 @@ func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, b
 // application/dicom is refused; a missing one is taken as DICOM.
 func relatedReader(params map[string]string, body io.Reader) (*multipart.Reader, error) {
 	if t := params["type"]; t != "" && !strings.EqualFold(t, "application/dicom") {
-		return nil, newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf(
-			"multipart/related type %q is not accepted; only application/dicom parts are (PS3.18 8.6.1.2)", t))
+		return nil, midsag.Rejectf(midsag.ReasonNotDICOM,
+			"multipart/related type %q is not accepted; only application/dicom parts are (PS3.18 8.6.1.2)", t)
 	}
 	if params["boundary"] == "" {
-		return nil, newAPIError(ReasonBadRequest, "multipart/related without a boundary parameter")
+		return nil, midsag.Rejectf(midsag.ReasonBadRequest, "multipart/related without a boundary parameter")
 	}
 	return multipart.NewReader(body, params["boundary"]), nil
 }
@@ -196,19 +171,11 @@ func partIsDICOM(p *multipart.Part) error {
 	return nil
 }
 
-// multipartError reports a body that breaks off or is not valid MIME.
-func multipartError(n int, err error) error {
-	var mbe *http.MaxBytesError
-	if errors.As(err, &mbe) {
-		return tooLarge(mbe.Limit)
-	}
-	return midsag.Reject(midsag.ReasonTruncated, fmt.Sprintf("multipart body is malformed at part %d", n), err)
-}
-
 // readZip spools the archive to a temporary file (zip needs random
-// access; memory stays bounded) and ingests each entry. Entries that are
-// not DICOM (a README, DICOMDIR-less junk) are skipped as the CLI skips
-// them in folders; the upload is refused only if none is DICOM.
+// access; memory stays bounded) and ingests each entry within the input
+// limits. Entries that are not DICOM (a README, DICOMDIR-less junk) are
+// skipped as the CLI skips them in folders; the upload is refused only if
+// none is DICOM.
 func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) error {
 	f, err := os.CreateTemp("", "midsag-upload-*.zip")
 	if err != nil {
@@ -222,27 +189,19 @@ func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) er
 	if err != nil {
 		return fmt.Errorf("spool zip: %w", err)
 	}
-	zr, err := zip.NewReader(f, size)
+	entries, err := inputs.ZipEntries(f, size, "upload", a.cfg.Limits)
 	if err != nil {
-		return midsag.Reject(midsag.ReasonNotDICOM, "the body is not a readable zip archive", err)
+		return err
 	}
-	if len(zr.File) > inputs.MaxZipEntries {
-		return newAPIError(midsag.ReasonTooLarge, fmt.Sprintf("the zip has %d entries; at most %d are accepted", len(zr.File), inputs.MaxZipEntries))
-	}
-	budget := zipExpansion * a.cfg.MaxBodyBytes
 	skipped := 0
-	for i, zf := range zr.File {
-		if inputs.SkipZipEntry(zf) {
-			continue
-		}
-		name := fmt.Sprintf("zip entry %d (%s)", i+1, zf.Name)
-		data, err := readZipEntry(zf, min(maxZipEntryBytes, budget))
+	for _, e := range entries {
+		name := fmt.Sprintf("zip entry %d (%s)", e.Index, e.Path)
+		data, err := inputs.ReadSource(e.Source)
 		if err != nil {
 			return prefixed(name, err)
 		}
-		budget -= int64(len(data))
 		if err := ing.ingest(ctx, name, data); err != nil {
-			if classify(err).reason == midsag.ReasonNotDICOM {
+			if classify(err).Reason == midsag.ReasonNotDICOM {
 				skipped++
 				continue
 			}
@@ -250,28 +209,7 @@ func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) er
 		}
 	}
 	if len(ing.uids) == 0 {
-		return newAPIError(midsag.ReasonNotDICOM, fmt.Sprintf("the zip holds no DICOM instance (%d entries skipped)", skipped))
+		return midsag.Rejectf(midsag.ReasonNotDICOM, "the zip holds no DICOM instance (%d entries skipped)", skipped)
 	}
 	return nil
-}
-
-// readZipEntry inflates one entry, reading at most limit bytes whatever
-// the header claims, so a forged size cannot bypass the cap.
-func readZipEntry(zf *zip.File, limit int64) ([]byte, error) {
-	if zf.UncompressedSize64 > uint64(limit) {
-		return nil, midsag.Rejectf(midsag.ReasonTooLarge, "the entry declares %d bytes uncompressed; the limit is %d", zf.UncompressedSize64, limit)
-	}
-	rc, err := zf.Open()
-	if err != nil {
-		return nil, midsag.Reject(midsag.ReasonNotDICOM, "the entry cannot be opened", err)
-	}
-	defer rc.Close()
-	data, err := io.ReadAll(io.LimitReader(rc, limit+1))
-	if err != nil {
-		return nil, midsag.Reject(midsag.ReasonTruncated, "the entry is damaged", err)
-	}
-	if int64(len(data)) > limit {
-		return nil, midsag.Rejectf(midsag.ReasonTooLarge, "the entry inflates beyond the %d-byte limit", limit)
-	}
-	return data, nil
 }

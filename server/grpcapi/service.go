@@ -29,7 +29,7 @@ var statuses = map[string]bool{
 // GetResult returns one result version.
 func (s *service) GetResult(ctx context.Context, req *midsagv1.GetResultRequest) (*midsagv1.Result, error) {
 	if req.GetResultId() == "" {
-		return nil, grpcStatus(newAPIError(ReasonBadRequest, "result_id is required"))
+		return nil, grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "result_id is required"))
 	}
 	rec, err := s.cfg.Backend.Result(ctx, req.GetResultId())
 	if err != nil {
@@ -45,11 +45,10 @@ func (s *service) GetResult(ctx context.Context, req *midsagv1.GetResultRequest)
 // ListResults lists result versions, newest first.
 func (s *service) ListResults(ctx context.Context, req *midsagv1.ListResultsRequest) (*midsagv1.ListResultsResponse, error) {
 	if st := req.GetStatus(); st != "" && !statuses[st] {
-		return nil, grpcStatus(newAPIError(ReasonBadRequest,
-			fmt.Sprintf("status %q is not one of pending, running, done, rejected, failed", st)))
+		return nil, grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "status %q is not one of pending, running, done, rejected, failed", st))
 	}
 	if req.GetPageSize() < 0 {
-		return nil, grpcStatus(newAPIError(ReasonBadRequest, "page_size must not be negative"))
+		return nil, grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "page_size must not be negative"))
 	}
 	recs, next, err := s.cfg.Backend.Results(ctx, server.Query{
 		StudyInstanceUID: req.GetStudyInstanceUid(),
@@ -101,7 +100,7 @@ func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) erro
 		switch part := msg.GetPart().(type) {
 		case *midsagv1.ScoreStudyRequest_Options:
 			if n > 0 {
-				return grpcStatus(newAPIError(ReasonBadRequest, "options may only be the first message of the stream"))
+				return grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "options may only be the first message of the stream"))
 			}
 			opts = part.Options
 		case *midsagv1.ScoreStudyRequest_Chunk:
@@ -110,6 +109,10 @@ func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) erro
 				return grpcStatus(tooLarge(s.cfg.MaxBodyBytes))
 			}
 			buf = append(buf, part.Chunk.GetData()...)
+			if int64(len(buf)) > s.cfg.Limits.MaxEntryBytes {
+				return grpcStatus(midsag.Rejectf(midsag.ReasonTooLarge, "instance %d is larger than the %d-byte limit",
+					len(ing.uids)+1, s.cfg.Limits.MaxEntryBytes))
+			}
 			if part.Chunk.GetEndOfInstance() {
 				if err := ing.ingest(ctx, fmt.Sprintf("instance %d", len(ing.uids)+1), buf); err != nil {
 					return grpcStatus(err)
@@ -118,7 +121,7 @@ func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) erro
 				buf = nil
 			}
 		default:
-			return grpcStatus(newAPIError(ReasonBadRequest, fmt.Sprintf("message %d has neither options nor a chunk", n+1)))
+			return grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "message %d has neither options nor a chunk", n+1))
 		}
 	}
 	if len(buf) > 0 {
@@ -131,11 +134,6 @@ func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) erro
 		return grpcStatus(err)
 	}
 	return stream.SendAndClose(&midsagv1.ScoreStudyResponse{Result: res})
-}
-
-// tooLarge is the refusal for an upload beyond the configured limit.
-func tooLarge(limit int64) *apiError {
-	return newAPIError(midsag.ReasonTooLarge, fmt.Sprintf("the upload is larger than the %d-byte limit", limit))
 }
 
 // ingester stores the instances of one request and remembers their SOP
@@ -157,11 +155,11 @@ func (g *ingester) ingest(ctx context.Context, name string, data []byte) error {
 	return nil
 }
 
-// prefixed names the part of a request an error is about: a refusal keeps
-// its reason with name before its message; other errors are wrapped.
+// prefixed names the part of a request an error is about: a refusal gets
+// it as its "source" detail; other errors are wrapped.
 func prefixed(name string, err error) error {
 	if e := midsag.RefusalOf(err); e != nil {
-		return &apiError{reason: e.Reason, msg: name + ": " + classify(err).msg, candidates: e.Candidates}
+		return e.WithDetail("source", name)
 	}
 	return fmt.Errorf("%s: %w", name, err)
 }
@@ -171,7 +169,7 @@ func prefixed(name string, err error) error {
 // as that refusal, so a 200 or OK always means a finished result.
 func score(ctx context.Context, b server.Backend, uids []string, opts *midsagv1.ScoreOptions) (*midsagv1.Result, error) {
 	if len(uids) == 0 {
-		return nil, newAPIError(midsag.ReasonNoInput, "the request holds no DICOM instance")
+		return nil, midsag.Rejectf(midsag.ReasonNoInput, "the request holds no DICOM instance")
 	}
 	rec, err := b.Score(ctx, server.ScoreRequest{
 		SOPInstanceUIDs: uids,
@@ -184,10 +182,10 @@ func score(ctx context.Context, b server.Backend, uids []string, opts *midsagv1.
 		return nil, err
 	}
 	if !opts.GetAsync() && rec.Status == server.StatusRejected {
-		return nil, newAPIError(midsag.Reason(rec.Reason), rec.Message)
+		return nil, &midsag.Error{Reason: midsag.Reason(rec.Reason), Msg: rec.Message}
 	}
 	if !opts.GetAsync() && rec.Status == server.StatusFailed {
-		return nil, &apiError{reason: ReasonInternal, msg: "scoring failed", cause: fmt.Errorf("result %s failed: %s", rec.ID, rec.Message)}
+		return nil, midsag.Reject(midsag.ReasonInternal, "scoring failed", fmt.Errorf("result %s failed: %s", rec.ID, rec.Message))
 	}
 	return ResultProto(rec)
 }

@@ -1,14 +1,14 @@
 package grpcapi
 
 import (
-	"bytes"
-	"errors"
+	"context"
 	"fmt"
-	"io"
 	"mime"
+	"mime/multipart"
 	"net/http"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/server"
 )
 
@@ -20,21 +20,6 @@ const (
 	tagReferencedSOPSeq      = "00081199" // (0008,1199) SQ
 	tagReferencedSOPClass    = "00081150" // (0008,1150) UI
 	tagReferencedSOPInstance = "00081155" // (0008,1155) UI
-)
-
-// Failure Reason values (PS3.18 10.5.3 refers to the status codes of
-// PS3.4 / PS3.7 Annex C). All from memory.
-const (
-	// failureOutOfResources: refused for size or load (0xA700).
-	failureOutOfResources = 0xA700
-	// failureStudyMismatch: the instance's Study Instance UID is not the
-	// one in the request URL (0xA900, "data set does not match").
-	failureStudyMismatch = 0xA900
-	// failureCannotUnderstand: the part is not a readable DICOM instance
-	// (0xC000).
-	failureCannotUnderstand = 0xC000
-	// failureProcessing: the service failed to store it (0x0110).
-	failureProcessing = 0x0110
 )
 
 // dicomJSON is one data set in the DICOM JSON model (PS3.18 F.2): keys
@@ -61,14 +46,13 @@ func uiAttr(uid string) dicomAttr {
 // study has been quiet. The response has no Retrieve URL (0008,1190)
 // because midsag serves no WADO-RS to retrieve from.
 func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
-	study := r.PathValue("study")
 	if r.ContentLength > a.cfg.MaxBodyBytes {
 		writeError(w, a.cfg.Logger, tooLarge(a.cfg.MaxBodyBytes))
 		return
 	}
 	mt, params, err := mime.ParseMediaType(r.Header.Get("Content-Type"))
 	if err != nil || mt != "multipart/related" {
-		writeError(w, a.cfg.Logger, newAPIError(midsag.ReasonNotDICOM,
+		writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotDICOM,
 			`STOW-RS takes multipart/related; type="application/dicom" (PS3.18 10.5.1)`))
 		return
 	}
@@ -77,35 +61,17 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 		writeError(w, a.cfg.Logger, classify(err))
 		return
 	}
-	origin := server.Origin{Listener: "stow", Remote: r.RemoteAddr}
-	var refs, fails []any
-	for n := 1; ; n++ {
-		part, err := mr.NextRawPart()
-		if errors.Is(err, io.EOF) {
-			break
-		}
-		if err != nil {
-			// Parts before this one are stored (each is durable on its
-			// own); the client learns the body broke and may resend, which
-			// stores nothing twice.
-			writeError(w, a.cfg.Logger, classify(multipartError(n, err)))
-			return
-		}
-		data, err := io.ReadAll(part)
-		if err != nil {
-			writeError(w, a.cfg.Logger, classify(multipartError(n, err)))
-			return
-		}
-		ref, code := a.stowPart(r, origin, study, n, part.Header.Get("Content-Type"), data)
-		if code != 0 {
-			ref[tagFailureReason] = dicomAttr{VR: "US", Value: []any{code}}
-			fails = append(fails, ref)
-			continue
-		}
-		refs = append(refs, ref)
+	origin := server.Origin{Listener: "stow", Remote: r.RemoteAddr, Study: r.PathValue("study")}
+	refs, fails, err := a.stowParts(r.Context(), origin, mr)
+	if err != nil {
+		// Parts before the broken one are stored (each is durable on its
+		// own); the client learns the body broke and may resend, which
+		// stores nothing twice.
+		writeError(w, a.cfg.Logger, classify(err))
+		return
 	}
 	if len(refs)+len(fails) == 0 {
-		writeError(w, a.cfg.Logger, newAPIError(midsag.ReasonNoInput, "the multipart body has no parts"))
+		writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNoInput, "the multipart body has no parts"))
 		return
 	}
 	resp := dicomJSON{}
@@ -127,50 +93,60 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, code, "application/dicom+json", resp)
 }
 
+// stowParts ingests every part of mr and returns the Referenced SOP items
+// of those stored and the failed items of the rest; the error is a body
+// that breaks off, is not valid MIME or is beyond the input limits.
+func (a *httpAPI) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader) (refs, fails []any, err error) {
+	err = inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, data []byte) error {
+		ref, code := a.stowPart(ctx, origin, n, part.Header.Get("Content-Type"), data)
+		if code != 0 {
+			ref[tagFailureReason] = dicomAttr{VR: "US", Value: []any{code}}
+			fails = append(fails, ref)
+			return nil
+		}
+		refs = append(refs, ref)
+		return nil
+	})
+	if err != nil {
+		return nil, nil, err
+	}
+	return refs, fails, nil
+}
+
 // stowPart stores one part and returns its Referenced SOP item, with a
-// nonzero Failure Reason when it was not stored. The header is read
-// first so an instance of another study is refused before it is stored.
-func (a *httpAPI) stowPart(r *http.Request, origin server.Origin, study string, n int, contentType string, data []byte) (dicomJSON, int) {
+// nonzero Failure Reason when it was not stored. The part is parsed once,
+// by Ingest, which also refuses an instance of another study than
+// origin.Study before storing it.
+func (a *httpAPI) stowPart(ctx context.Context, origin server.Origin, n int, contentType string, data []byte) (dicomJSON, int) {
 	item := dicomJSON{tagReferencedSOPClass: uiAttr(""), tagReferencedSOPInstance: uiAttr("")}
-	fail := func(code int, err error) (dicomJSON, int) {
-		ae := classify(err)
-		attrs := []any{"part", n, "failure_reason", fmt.Sprintf("0x%04X", code), "reason", ae.reason}
-		if ae.cause != nil {
-			attrs = append(attrs, "err", ae.cause)
-		}
-		a.cfg.Logger.Info("stow part refused", attrs...)
-		return item, code
-	}
-	if ct := contentType; ct != "" {
-		if mt, _, err := mime.ParseMediaType(ct); err != nil || mt != "application/dicom" {
-			return fail(failureCannotUnderstand, newAPIError(midsag.ReasonNotDICOM, "part is not application/dicom"))
+	if contentType != "" {
+		if mt, _, err := mime.ParseMediaType(contentType); err != nil || mt != "application/dicom" {
+			return a.stowFailed(item, n, midsag.Rejectf(midsag.ReasonNotDICOM, "part is not application/dicom"))
 		}
 	}
-	inst, err := a.pre.Read(fmt.Sprintf("part %d", n), bytes.NewReader(data))
-	if err != nil {
-		return fail(failureCode(err), err)
-	}
-	item[tagReferencedSOPClass] = uiAttr(inst.SOPClassUID)
-	item[tagReferencedSOPInstance] = uiAttr(inst.SOPInstanceUID)
-	if study != "" && inst.StudyInstanceUID != study {
-		return fail(failureStudyMismatch, newAPIError(midsag.ReasonMultipleStudies, "instance of another study"))
-	}
-	st, err := a.cfg.Backend.Ingest(r.Context(), origin, data)
-	if err != nil {
-		return fail(failureCode(err), err)
-	}
+	st, err := a.cfg.Backend.Ingest(ctx, origin, data)
 	item[tagReferencedSOPClass] = uiAttr(st.SOPClassUID)
 	item[tagReferencedSOPInstance] = uiAttr(st.SOPInstanceUID)
+	if err != nil {
+		return a.stowFailed(item, n, err)
+	}
 	return item, 0
 }
 
-// failureCode maps a refusal to a Failure Reason (values from memory).
-func failureCode(err error) int {
-	switch classify(err).reason {
-	case midsag.ReasonTooLarge, midsag.ReasonOverloaded:
-		return failureOutOfResources
-	case ReasonInternal:
-		return failureProcessing
+// stowFailed logs a refused part and returns its item with the Failure
+// Reason for err.
+func (a *httpAPI) stowFailed(item dicomJSON, n int, err error) (dicomJSON, int) {
+	e, code := classify(err), failureCode(err)
+	attrs := []any{"part", n, "failure_reason", fmt.Sprintf("0x%04X", code), "reason", e.Reason}
+	if e.Err != nil {
+		attrs = append(attrs, "err", e.Err)
 	}
-	return failureCannotUnderstand
+	a.cfg.Logger.Info("stow part refused", attrs...)
+	return item, code
+}
+
+// failureCode is the Failure Reason of a refused part: the DIMSE status
+// of its reason in server.ReasonTable.
+func failureCode(err error) int {
+	return int(server.DICOMStatus(classify(err).Reason))
 }

@@ -69,19 +69,7 @@ func TestSTOWRSResponsePS3_18(t *testing.T) {
 	if ref.VR != "SQ" || failed.VR != "SQ" {
 		t.Fatalf("sequences have VR %q and %q, want SQ", ref.VR, failed.VR)
 	}
-	refs := stowItems(t, ref.Value)
-	if len(refs) != 3 {
-		t.Fatalf("%d referenced items, want 3", len(refs))
-	}
-	for i, it := range refs {
-		cls, inst := it["00081150"], it["00081155"]
-		if cls.VR != "UI" || inst.VR != "UI" || len(cls.Value) != 1 || len(inst.Value) != 1 {
-			t.Fatalf("referenced item %d: %v", i, it)
-		}
-		if inst.Value[0] != ingestedOf(fake)[i].SOPInstanceUID || cls.Value[0] != ingestedOf(fake)[i].SOPClassUID {
-			t.Errorf("referenced item %d names %v, stored %+v", i, it, ingestedOf(fake)[i])
-		}
-	}
+	checkReferenced(t, fake, stowItems(t, ref.Value), 3)
 	fails := stowItems(t, failed.Value)
 	if len(fails) != 1 {
 		t.Fatalf("%d failed items, want 1", len(fails))
@@ -97,36 +85,62 @@ func TestSTOWRSResponsePS3_18(t *testing.T) {
 		t.Errorf("origin %+v", originsOf(fake)[0])
 	}
 
-	// /studies/{study}: every instance of another study fails with
-	// 0xA900 (from memory) and nothing is stored; all failed → 409.
-	before, _ := fake.counts()
 	body, boundary = relatedBody(t, [][]byte{files[0].Data}, []string{"application/dicom"})
-	p = writeTemp(t, "stow2.bin", body)
+	one := writeTemp(t, "stow2.bin", body)
+	stowOtherStudy(t, srv.URL, fake, one, boundary)
+
+	// The right study in the URL: all stored → 200.
 	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
-		"--data-binary", "@"+p, srv.URL+"/dicomweb/studies/1.2.3.999")
+		"--data-binary", "@"+one, srv.URL+"/dicomweb/studies/"+ingestedOf(fake)[0].StudyInstanceUID)
+	if r.code != http.StatusOK {
+		t.Errorf("status %d, want 200; body %s", r.code, r.body)
+	}
+
+	// Not multipart/related → 415 with the JSON error body.
+	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/dicomweb/studies")
+	wantRefusal(t, r, http.StatusUnsupportedMediaType, "not_dicom")
+}
+
+// checkReferenced checks the Referenced SOP items (PS3.18 10.5.3): want
+// of them, each naming the class and instance of the stored instance in
+// the same order.
+func checkReferenced(t *testing.T, fake *fakeBackend, refs []stowItem, want int) {
+	t.Helper()
+	if len(refs) != want {
+		t.Fatalf("%d referenced items, want %d", len(refs), want)
+	}
+	stored := ingestedOf(fake)
+	for i, it := range refs {
+		cls, inst := it["00081150"], it["00081155"]
+		if cls.VR != "UI" || inst.VR != "UI" || len(cls.Value) != 1 || len(inst.Value) != 1 {
+			t.Fatalf("referenced item %d: %v", i, it)
+		}
+		if inst.Value[0] != stored[i].SOPInstanceUID || cls.Value[0] != stored[i].SOPClassUID {
+			t.Errorf("referenced item %d names %v, stored %+v", i, it, stored[i])
+		}
+	}
+}
+
+// stowOtherStudy posts the one-part body at path to /studies/{study} of
+// another study: the instance fails with 0xA900 (from memory), is still
+// named, nothing is stored, and all failed gives 409.
+func stowOtherStudy(t *testing.T, base string, fake *fakeBackend, path, boundary string) {
+	t.Helper()
+	before, _ := fake.counts()
+	r := runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
+		"--data-binary", "@"+path, base+"/dicomweb/studies/1.2.3.999")
 	if r.code != http.StatusConflict {
 		t.Fatalf("status %d, want 409; body %s", r.code, r.body)
 	}
-	ds = decodeDICOMJSON(t, r.body)
+	ds := decodeDICOMJSON(t, r.body)
 	if _, ok := ds["00081199"]; ok {
 		t.Error("Referenced SOP Sequence present although nothing was stored")
 	}
-	fails = stowItems(t, ds["00081198"].Value)
+	fails := stowItems(t, ds["00081198"].Value)
 	if len(fails) != 1 || fails[0]["00081197"].Value[0] != float64(0xA900) || fails[0]["00081155"].Value[0] != ingestedOf(fake)[0].SOPInstanceUID {
 		t.Errorf("failed items %v", fails)
 	}
 	if after, _ := fake.counts(); after != before {
 		t.Errorf("an instance of another study was stored")
 	}
-
-	// The right study in the URL: all stored → 200.
-	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
-		"--data-binary", "@"+p, srv.URL+"/dicomweb/studies/"+ingestedOf(fake)[0].StudyInstanceUID)
-	if r.code != http.StatusOK {
-		t.Errorf("status %d, want 200; body %s", r.code, r.body)
-	}
-
-	// Not multipart/related → 415 with the JSON error body.
-	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+p, srv.URL+"/dicomweb/studies")
-	wantRefusal(t, r, http.StatusUnsupportedMediaType, "not_dicom")
 }

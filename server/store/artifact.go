@@ -6,6 +6,8 @@ import (
 	"os"
 	"path/filepath"
 	"regexp"
+
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 // artifactName limits artifact names to plain file names, so a name can
@@ -33,7 +35,7 @@ func (s *Store) WriteArtifact(id, name string, data []byte) error {
 	if err := os.MkdirAll(dir, 0o750); err != nil {
 		return fmt.Errorf("store: artifact folder: %w", err)
 	}
-	if err := writeDurable(dir, p, data); err != nil {
+	if err := atomicfile.WriteFile(p, data, atomicfile.Perm(0o640)); err != nil {
 		return fmt.Errorf("store: write artifact %s: %w", name, err)
 	}
 	return nil
@@ -50,37 +52,4 @@ func (s *Store) ReadArtifact(id, name string) ([]byte, error) {
 		return nil, fmt.Errorf("artifact %s of record %s: %w", name, id, ErrNotFound)
 	}
 	return b, err
-}
-
-// writeDurable writes data to path through a temporary file in dir.
-func writeDurable(dir, path string, data []byte) error {
-	tmp, err := os.CreateTemp(dir, ".artifact-*")
-	if err != nil {
-		return err
-	}
-	defer os.Remove(tmp.Name())
-	if _, err := tmp.Write(data); err != nil {
-		tmp.Close()
-		return err
-	}
-	if err := tmp.Chmod(0o640); err != nil {
-		tmp.Close()
-		return err
-	}
-	if err := tmp.Sync(); err != nil {
-		tmp.Close()
-		return err
-	}
-	if err := tmp.Close(); err != nil {
-		return err
-	}
-	if err := os.Rename(tmp.Name(), path); err != nil {
-		return err
-	}
-	d, err := os.Open(dir)
-	if err != nil {
-		return err
-	}
-	defer d.Close()
-	return d.Sync()
 }

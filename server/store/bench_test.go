@@ -7,6 +7,8 @@ import (
 	"sync/atomic"
 	"testing"
 	"time"
+
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 // benchSize is a typical MR slice as DICOM: 512x512 16-bit pixels plus
@@ -58,7 +60,7 @@ func BenchmarkWriteFsyncOnly(b *testing.B) {
 	b.RunParallel(func(pb *testing.PB) {
 		for pb.Next() {
 			i := n.Add(1)
-			if err := writeSynced(dir, fmt.Sprint(i, ".dcm"), data); err != nil {
+			if err := atomicfile.WriteFile(filepath.Join(dir, fmt.Sprint(i, ".dcm")), data, atomicfile.SkipDirSync()); err != nil {
 				b.Error(err)
 				return
 			}

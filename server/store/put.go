@@ -14,10 +14,12 @@ import (
 	"path/filepath"
 	"sync"
 	"time"
+
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 // tmpSuffix marks files that were never renamed into place; Open removes them.
-const tmpSuffix = ".tmp"
+const tmpSuffix = atomicfile.TempSuffix
 
 // putReq is one Put waiting for its row to commit.
 type putReq struct {
@@ -89,8 +91,10 @@ func (s *Store) Put(ctx context.Context, inst Instance, data []byte) (Instance, 
 	if err := s.ensureDir(dir); err != nil {
 		return Instance{}, false, err
 	}
-	if err := writeSynced(dir, name, data); err != nil {
-		return Instance{}, false, err
+	// The folder's fsync is the committer's, once per folder per batch,
+	// before the rows commit.
+	if err := atomicfile.WriteFile(filepath.Join(dir, name), data, atomicfile.SkipDirSync()); err != nil {
+		return Instance{}, false, fmt.Errorf("store: %w", err)
 	}
 
 	req := &putReq{inst: inst, dir: dir}
@@ -146,36 +150,6 @@ func (s *Store) ensureDir(dir string) error {
 		return err
 	}
 	s.dirs.Store(dir, struct{}{})
-	return nil
-}
-
-// writeSynced writes data to dir/name so that the name never refers to a
-// partial file: temporary file, fsync, close, rename (rename(2) replaces the
-// target atomically, POSIX.1-2017). The caller syncs dir before relying on
-// the new name.
-func writeSynced(dir, name string, data []byte) (err error) {
-	f, err := os.CreateTemp(dir, ".put-*"+tmpSuffix)
-	if err != nil {
-		return fmt.Errorf("store: create temporary file in %s: %w", dir, err)
-	}
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-		}
-	}()
-	if _, err := f.Write(data); err != nil {
-		return fmt.Errorf("store: write %s: %w", f.Name(), err)
-	}
-	if err := f.Sync(); err != nil {
-		return fmt.Errorf("store: fsync %s: %w", f.Name(), err)
-	}
-	if err := f.Close(); err != nil {
-		return fmt.Errorf("store: close %s: %w", f.Name(), err)
-	}
-	if err := os.Rename(f.Name(), filepath.Join(dir, name)); err != nil {
-		return fmt.Errorf("store: rename %s: %w", f.Name(), err)
-	}
 	return nil
 }
 

@@ -12,6 +12,8 @@ import (
 	"slices"
 	"strings"
 	"time"
+
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 const instanceColumns = `seq, study_uid, series_uid, sop_uid, sop_class_uid, transfer_syntax_uid,
@@ -206,7 +208,7 @@ func (s *Store) Stats(ctx context.Context) (Stats, error) {
 // probe file in the spool and commits a write transaction.
 func (s *Store) Ping(ctx context.Context) error {
 	name := fmt.Sprintf(".ping-%d%s", time.Now().UnixNano(), tmpSuffix)
-	if err := writeSynced(s.spool, name, []byte("ping")); err != nil {
+	if err := atomicfile.WriteFile(filepath.Join(s.spool, name), []byte("ping"), atomicfile.SkipDirSync()); err != nil {
 		return fmt.Errorf("store: ping: %w", err)
 	}
 	if err := os.Remove(filepath.Join(s.spool, name)); err != nil {

@@ -16,6 +16,8 @@ import (
 	"time"
 
 	_ "modernc.org/sqlite" // registers the "sqlite" driver
+
+	"github.com/midsag/midsag/internal/atomicfile"
 )
 
 // Options tunes a Store. The zero value is usable.
@@ -352,21 +354,10 @@ func (s *Store) sweepStudy(name string) error {
 	return nil
 }
 
-// syncDir makes the folder's entries (created, renamed or removed files)
-// durable. POSIX leaves directory entries in the page cache until the
-// directory itself is fsynced (fsync(2); common practice since ext4's
-// delayed allocation made it visible).
+// syncDir makes the folder's entries durable (atomicfile.SyncDir).
 func syncDir(dir string) error {
-	d, err := os.Open(dir)
-	if err != nil {
-		return fmt.Errorf("store: open folder %s: %w", dir, err)
-	}
-	if err := d.Sync(); err != nil {
-		d.Close()
-		return fmt.Errorf("store: fsync folder %s: %w", dir, err)
-	}
-	if err := d.Close(); err != nil {
-		return fmt.Errorf("store: close folder %s: %w", dir, err)
+	if err := atomicfile.SyncDir(dir); err != nil {
+		return fmt.Errorf("store: %w", err)
 	}
 	return nil
 }
