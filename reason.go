@@ -9,7 +9,7 @@ import (
 // Reason is a machine-readable code for why an input or a request was
 // refused, or why it failed. The same strings appear in CLI errors, HTTP
 // bodies, gRPC status details and batch tables; they are a public
-// contract (DESIGN.md, README.md) and never change. Every code is declared
+// contract (docs/ARCHITECTURE.md, README.md) and never change. Every code is declared
 // here and listed by AllReasons; server.ReasonTable maps each to its HTTP
 // status and gRPC code.
 type Reason string

@@ -75,7 +75,7 @@ func TestReadmeListsEveryReason(t *testing.T) {
 	}
 }
 
-// TestReasonWireStrings pins the codes named in DESIGN.md's contract and
+// TestReasonWireStrings pins the codes named in docs/ARCHITECTURE.md's contract and
 // the README: they are a public vocabulary and must not change.
 func TestReasonWireStrings(t *testing.T) {
 	want := map[Reason]string{

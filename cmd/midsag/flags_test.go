@@ -8,7 +8,7 @@ import (
 	"github.com/midsag/midsag"
 )
 
-// TestExitCodesOfReasons: DESIGN.md's exit codes, 3 for an input
+// TestExitCodesOfReasons: docs/ARCHITECTURE.md's exit codes, 3 for an input
 // rejected with a reason code and 1 for a runtime failure; the failure
 // codes (internal, error) are runtime failures even though they carry a
 // code.

@@ -102,7 +102,7 @@ func wantRefusal(t *testing.T, r curlResponse, code int, reason midsag.Reason) m
 	return body
 }
 
-// contractKeys are the result JSON field names of DESIGN.md and the
+// contractKeys are the result JSON field names of docs/ARCHITECTURE.md and the
 // record fields; the REST body must hold each (EmitUnpopulated).
 var contractKeys = []string{"result_id", "created_at", "study_instance_uid", "series_instance_uid",
 	"center_sop_instance_uid", "slices", "series_candidates", "model", "raw_output", "probability",
