@@ -139,6 +139,24 @@ func PickSlices(s *Slices) error {
 	if err != nil {
 		return err
 	}
+	d := m.decide()
+	s.CenterEstimate, s.Center = d.est, d.center
+	s.Confidence, s.Flags = d.confidence, d.flags
+	s.Scores = m.scores(s, d.est, d.weights)
+	return nil
+}
+
+// midlineDecision is the pick made from a slab's cues.
+type midlineDecision struct {
+	est        float64 // sub-slice estimate of the plane, in slices
+	center     int     // the slice nearest est
+	weights    []float64
+	confidence float64
+	flags      []string
+}
+
+// decide picks the slice nearest the plane from the measured cues.
+func (m *midlineCues) decide() midlineDecision {
 	obj := m.objective()
 	best := 0
 	for k := range obj {
@@ -154,12 +172,10 @@ func PickSlices(s *Slices) error {
 			est += 0.5 * 0.5 * (l - r) / den
 		}
 	}
-	s.CenterEstimate = est
-	s.Center = min(max(int(math.Round(est)), 0), m.n-1)
-	w := sliceWeights(obj, m.n)
-	s.Confidence, s.Flags = m.judge(s.Center, est, w)
-	s.Scores = m.scores(s, est, w)
-	return nil
+	d := midlineDecision{est: est, center: min(max(int(math.Round(est)), 0), m.n-1)}
+	d.weights = sliceWeights(obj, m.n)
+	d.confidence, d.flags = m.judge(d.center, est, d.weights)
+	return d
 }
 
 // midlineCues is what the cues measured on one slab.
@@ -175,6 +191,7 @@ type midlineCues struct {
 	lowIn, highIn bool      // whether each crossing lies inside the slab
 	centre        float64   // the canal profile's estimate of the plane
 	symLead       bool      // symmetry inside the run is strong and leads
+	secondRun     bool      // another run of the profile reaches half its peak
 }
 
 // measureMidline measures the cues and refuses a slab that does not hold
@@ -187,13 +204,21 @@ func measureMidline(s *Slices) (*midlineCues, error) {
 	}
 	m.cost, m.pairs = mirrorCost(s.Images)
 	m.canal = canalCues(s)
+	return m, m.analyse()
+}
+
+// analyse derives the canal profile, its centre and whether symmetry
+// leads from the measured cues, and refuses a slab that does not hold the
+// midsagittal plane.
+func (m *midlineCues) analyse() error {
+	n := m.n
 	maxCol, heightMM := 0.0, 0.0
 	for _, c := range m.canal {
 		maxCol = max(maxCol, c.ColumnMM)
 		heightMM = max(heightMM, c.HeightMM)
 	}
 	if need := max(CanalMinColumnMM, CanalMinColumnFraction*heightMM); maxCol < need {
-		return nil, midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
+		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
 			"no slice of the %d shows the CSF-cord column of the spinal canal over %.0f mm or more (longest %.0f mm of a %.0f mm field of view): the slab does not hold the midsagittal plane",
 			n, need, maxCol, heightMM)
 	}
@@ -202,6 +227,11 @@ func measureMidline(s *Slices) (*midlineCues, error) {
 		m.anat[i] = c.ColumnMM / maxCol
 	}
 	m.runLo, m.runHi, m.lowIn, m.highIn = halfMaxRun(m.anat)
+	for i, a := range m.anat {
+		if f := float64(i); a >= 0.5 && (f < m.runLo || f > m.runHi) {
+			m.secondRun = true
+		}
+	}
 	halfRun := CanalHalfRunMM / m.spacing
 	switch {
 	case m.lowIn && m.highIn:
@@ -226,11 +256,11 @@ func measureMidline(s *Slices) (*midlineCues, error) {
 		}
 	}
 	if !m.symLead && (m.centre < -1 || m.centre > float64(n)) {
-		return nil, midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
+		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
 			"the canal column runs to the slab's edge and its profile puts the midsagittal plane about %.0f mm beyond the edge slice: the slab does not hold the midline",
 			math.Abs(min(m.centre, 0)+max(m.centre-float64(n-1), 0))*m.spacing)
 	}
-	return m, nil
+	return nil
 }
 
 // mid is the slab's geometric centre along the normal, in mm.
@@ -322,6 +352,9 @@ func (m *midlineCues) judge(center int, est float64, w []float64) (float64, []st
 	switch {
 	case m.symLead && whole && math.Abs(m.centre-float64(center)) >= 0.5:
 		// Symmetry and the canal profile point at different slices.
+		uncertain = true
+	case m.secondRun:
+		// Two runs of the canal profile: the canal is only one of them.
 		uncertain = true
 	case !m.symLead && 0.5-math.Abs(est-math.Round(est)) < max(ambiguousMargin, ambiguousMarginMM/m.spacing):
 		// The canal profile alone puts the plane near the boundary of
