@@ -75,8 +75,10 @@ type canalCue struct {
 	// distance between its CSF maxima.
 	ColumnMM float64
 	DepthMM  float64
-	// HeightMM is the slice's superior-inferior extent.
-	HeightMM float64
+	// HeightMM is the slice's superior-inferior extent; TopMM and
+	// BottomMM bound the column from above and below.
+	HeightMM        float64
+	TopMM, BottomMM float64
 }
 
 // resampleGrid turns a canonical image (rows superior to inferior, columns
@@ -148,9 +150,10 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 	for y := range rows {
 		rows[y] = rowTriplets(sm[y*w:(y+1)*w], bright)
 	}
-	n, seps := longestColumn(rows)
+	n, top, bottom, seps := longestColumn(rows)
 	if n > 0 {
 		cue.ColumnMM, cue.DepthMM = float64(n)*canalGridMM, median(seps)
+		cue.TopMM, cue.BottomMM = float64(top)*canalGridMM, float64(bottom+1)*canalGridMM
 	}
 	return cue
 }
@@ -222,8 +225,9 @@ func rowTriplets(p []float32, bright float64) []triplet {
 
 // longestColumn links crossings of successive rows into columns, each
 // crossing within the drift of one at most canalGapMM above it, and
-// returns the number of rows of the longest and its CSF separations.
-func longestColumn(rows [][]triplet) (int, []float64) {
+// returns the number of rows of the longest, its first and last row and
+// its CSF separations.
+func longestColumn(rows [][]triplet) (n, top, bottom int, seps []float64) {
 	type node struct {
 		count, prevY, prevI int
 		triplet             triplet
@@ -251,13 +255,14 @@ func longestColumn(rows [][]triplet) (int, []float64) {
 			}
 		}
 	}
-	var seps []float64
+	top = bestY
 	for y, i := bestY, bestI; y >= 0; {
 		nd := chains[y][i]
 		seps = append(seps, nd.triplet.sep)
+		top = y
 		y, i = nd.prevY, nd.prevI
 	}
-	return bestN, seps
+	return bestN, top, bestY, seps
 }
 
 func median(v []float64) float64 {
