@@ -45,15 +45,17 @@ const (
 	// canal by well under 1 mm per mm, from memory).
 	canalDriftMM = 1.0
 	// canalBodyLevel and canalInsetMM reject bright-dark-bright crossings
-	// at the body's surface: skin and subcutaneous fat in layers show
-	// the pattern too, along the whole neck. The outline is the outermost
-	// pixel of a row at canalBodyLevel of the bright reference or more
-	// (fat and skin on T2, common practice), and the canal lies deep in
-	// the neck: behind it the posterior elements and the neck muscles,
-	// in front the vertebral bodies and the pharynx, each several
+	// at the body's surface: skin over subcutaneous fat shows the pattern
+	// too, along the whole neck. The outline is the outermost pixel of a
+	// row at canalBodyLevel of the bright reference or more: any tissue
+	// rather than air (a low level, so that on fat-suppressed images,
+	// where fat is dark, muscle still counts as body; 0.1 and 0.3 gave the
+	// same picks on both phantom families). The canal lies deep in the
+	// neck, behind it the posterior elements and the neck muscles, in
+	// front the vertebral bodies and the pharynx, each several
 	// centimetres in adults (from memory), so canalInsetMM is a safe
 	// least distance from either flank to the outline.
-	canalBodyLevel = 0.3
+	canalBodyLevel = 0.1
 	canalInsetMM   = 15.0
 	// CanalMinColumnMM is the shortest column that counts as the canal:
 	// a cervical sagittal field of view holds 100 mm or more of cord
