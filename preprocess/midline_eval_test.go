@@ -208,15 +208,22 @@ func reportEval(t *testing.T, family string, outs []evalOutcome) evalTally {
 		per[o.scenario].add(o)
 	}
 	t.Logf("%s: %v", family, all)
+	logTallies(t, "  "+family+" / %s: %v", per)
+	return all
+}
+
+// logTallies logs every tally of per in the order of its keys, each with
+// format given the key and the tally.
+func logTallies(t *testing.T, format string, per map[string]*evalTally) {
+	t.Helper()
 	names := make([]string, 0, len(per))
 	for k := range per {
 		names = append(names, k)
 	}
 	sort.Strings(names)
 	for _, k := range names {
-		t.Logf("  %s / %s: %v", family, k, *per[k])
+		t.Logf(format, k, *per[k])
 	}
-	return all
 }
 
 // packagePhantomCases returns n studies of package phantom (the family the
@@ -378,14 +385,7 @@ func reportBands(t *testing.T, family string, outs []evalOutcome) {
 		}
 		per[band].add(o)
 	}
-	names := make([]string, 0, len(per))
-	for k := range per {
-		names = append(names, k)
-	}
-	sort.Strings(names)
-	for _, k := range names {
-		t.Logf("  %s, %s slices: %v", family, k, *per[k])
-	}
+	logTallies(t, "  "+family+", %s slices: %v", per)
 }
 
 // TestMidlineEvaluationCrossPhantom measures the midline picker on the
@@ -409,5 +409,10 @@ func TestMidlineEvaluationCrossPhantom(t *testing.T) {
 	outs := runEval(crossPhantomCases(t, n))
 	tl := reportEval(t, "crossphantom", outs)
 	reportBands(t, "crossphantom", outs)
-	checkGoals(t, "crossphantom", tl, goals{exact: 89, near: 99, missingRefused: 96})
+	g := goals{exact: 89, near: 99, missingRefused: 96}
+	if testing.Short() {
+		// 27 in-slab series: one miss moves the exact rate by 3.7 points.
+		g.exact, g.near = 85, 96
+	}
+	checkGoals(t, "crossphantom", tl, g)
 }

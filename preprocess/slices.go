@@ -132,8 +132,9 @@ type Slices struct {
 // symmetry inside it is strong; symmetry counts only where the canal is.
 // The pick carries a confidence and the flags midline_uncertain and
 // midline_at_slab_edge when the evidence is weak, disagrees or runs to the
-// slab's edge. When no slice shows the canal column, the plane is not in
-// the slab and PickSlices refuses with midline_not_in_slab.
+// slab's edge. When no slice, with its neighbours, shows a dense canal
+// column long enough, the plane is not in the slab and PickSlices refuses
+// with midline_not_in_slab.
 func PickSlices(s *Slices) error {
 	if len(s.Images) != len(s.Instances) {
 		s.Images = make([]*midsag.Image, len(s.Instances))
