@@ -44,6 +44,19 @@ const (
 	// anterior-posterior axis per millimetre of height (lordosis bends the
 	// canal by well under 1 mm per mm, from memory).
 	canalDriftMM = 1.0
+	// canalBodyLevel and canalInsetMM reject bright-dark-bright crossings
+	// at the body's surface: skin over subcutaneous fat shows the pattern
+	// too, along the whole neck. The outline is the outermost pixel of a
+	// row at canalBodyLevel of the bright reference or more: any tissue
+	// rather than air (a low level, so that on fat-suppressed images,
+	// where fat is dark, muscle still counts as body; 0.1 and 0.3 gave the
+	// same picks on both phantom families). The canal lies deep in the
+	// neck, behind it the posterior elements and the neck muscles, in
+	// front the vertebral bodies and the pharynx, each several
+	// centimetres in adults (from memory), so canalInsetMM is a safe
+	// least distance from either flank to the outline.
+	canalBodyLevel = 0.1
+	canalInsetMM   = 15.0
 	// CanalMinColumnMM is the shortest column that counts as the canal:
 	// a cervical sagittal field of view holds 100 mm or more of cord
 	// (common practice), and chance bright-dark-bright runs in muscle and
@@ -64,8 +77,10 @@ type canalCue struct {
 	// distance between its CSF maxima.
 	ColumnMM float64
 	DepthMM  float64
-	// HeightMM is the slice's superior-inferior extent.
-	HeightMM float64
+	// HeightMM is the slice's superior-inferior extent; TopMM and
+	// BottomMM bound the column from above and below.
+	HeightMM        float64
+	TopMM, BottomMM float64
 }
 
 // resampleGrid turns a canonical image (rows superior to inferior, columns
@@ -128,11 +143,26 @@ type triplet struct {
 // measureCanal finds the longest continuous CSF-cord-CSF column in a grid
 // of h x w millimetre pixels.
 func measureCanal(pix []float32, h, w int, bright float64) canalCue {
+	cue := canalCue{HeightMM: float64(h) * canalGridMM}
 	if h < 3 || w < 3 || bright <= 0 {
-		return canalCue{HeightMM: float64(h) * canalGridMM}
+		return cue
 	}
-	// Smooth over three rows: the column runs superior-inferior, noise
-	// does not.
+	rows := make([][]triplet, h)
+	sm := smoothColumns(pix, h, w)
+	for y := range rows {
+		rows[y] = rowTriplets(sm[y*w:(y+1)*w], bright)
+	}
+	n, top, bottom, seps := longestColumn(rows)
+	if n > 0 {
+		cue.ColumnMM, cue.DepthMM = float64(n)*canalGridMM, median(seps)
+		cue.TopMM, cue.BottomMM = float64(top)*canalGridMM, float64(bottom+1)*canalGridMM
+	}
+	return cue
+}
+
+// smoothColumns averages every pixel with the rows above and below it:
+// the column runs superior-inferior, noise does not.
+func smoothColumns(pix []float32, h, w int) []float32 {
 	sm := make([]float32, h*w)
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
@@ -147,45 +177,67 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 			sm[y*w+x] = s / float32(n)
 		}
 	}
+	return sm
+}
+
+// rowTriplets returns the bright-dark-bright crossings of one row p
+// (anterior to posterior) that could be CSF either side of the cord.
+func rowTriplets(p []float32, bright float64) []triplet {
+	w := len(p)
 	reach := int(canalMaxSepMM / canalGridMM)
 	flank := float32(canalFlank * bright)
-	rows := make([][]triplet, h)
-	for y := 0; y < h; y++ {
-		p := sm[y*w : (y+1)*w]
-		for x := 1; x < w-1; x++ {
-			if !(p[x] <= p[x-1] && p[x] < p[x+1]) {
-				continue
+	// The body's outline in this row: its outermost pixels as bright as
+	// fat or CSF.
+	first, last := -1, -1
+	for x, v := range p {
+		if v >= float32(canalBodyLevel*bright) {
+			if first < 0 {
+				first = x
 			}
-			l, li := p[x], x
-			for xx := x - 1; xx >= max(0, x-reach); xx-- {
-				if p[xx] > l {
-					l, li = p[xx], xx
-				}
-			}
-			r, ri := p[x], x
-			for xx := x + 1; xx < min(w, x+reach); xx++ {
-				if p[xx] > r {
-					r, ri = p[xx], xx
-				}
-			}
-			lo := min(l, r)
-			sep := float64(ri-li) * canalGridMM
-			if lo < flank || p[x] > lo*(1-canalDip) || p[x] < lo*canalCordFloor || sep < canalMinSepMM || sep > canalMaxSepMM {
-				continue
-			}
-			rows[y] = append(rows[y], triplet{mid: float64(x) * canalGridMM, sep: sep})
+			last = x
 		}
 	}
-	// Longest chain: rows with a crossing, each within the drift of a
-	// crossing at most canalGapMM above it.
+	inset := int(canalInsetMM / canalGridMM)
+	var out []triplet
+	for x := 1; x < w-1; x++ {
+		if !(p[x] <= p[x-1] && p[x] < p[x+1]) {
+			continue
+		}
+		l, li := p[x], x
+		for xx := x - 1; xx >= max(0, x-reach); xx-- {
+			if p[xx] > l {
+				l, li = p[xx], xx
+			}
+		}
+		r, ri := p[x], x
+		for xx := x + 1; xx < min(w, x+reach); xx++ {
+			if p[xx] > r {
+				r, ri = p[xx], xx
+			}
+		}
+		lo := min(l, r)
+		sep := float64(ri-li) * canalGridMM
+		if lo < flank || p[x] > lo*(1-canalDip) || p[x] < lo*canalCordFloor || sep < canalMinSepMM || sep > canalMaxSepMM || li-first < inset || last-ri < inset {
+			continue
+		}
+		out = append(out, triplet{mid: float64(x) * canalGridMM, sep: sep})
+	}
+	return out
+}
+
+// longestColumn links crossings of successive rows into columns, each
+// crossing within the drift of one at most canalGapMM above it, and
+// returns the number of rows of the longest, its first and last row and
+// its CSF separations.
+func longestColumn(rows [][]triplet) (n, top, bottom int, seps []float64) {
 	type node struct {
 		count, prevY, prevI int
 		triplet             triplet
 	}
 	gap := int(canalGapMM / canalGridMM)
-	chains := make([][]node, h)
+	chains := make([][]node, len(rows))
 	bestY, bestI, bestN := -1, -1, 0
-	for y := 0; y < h; y++ {
+	for y := range rows {
 		chains[y] = make([]node, len(rows[y]))
 		for i, t := range rows[y] {
 			nd := node{count: 1, prevY: -1, prevI: -1, triplet: t}
@@ -205,16 +257,14 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 			}
 		}
 	}
-	if bestN == 0 {
-		return canalCue{HeightMM: float64(h) * canalGridMM}
-	}
-	var seps []float64
+	top = bestY
 	for y, i := bestY, bestI; y >= 0; {
 		nd := chains[y][i]
 		seps = append(seps, nd.triplet.sep)
+		top = y
 		y, i = nd.prevY, nd.prevI
 	}
-	return canalCue{HeightMM: float64(h) * canalGridMM, ColumnMM: float64(bestN) * canalGridMM, DepthMM: median(seps)}
+	return bestN, top, bestY, seps
 }
 
 func median(v []float64) float64 {

@@ -35,3 +35,76 @@ func TestHalfMaxRun(t *testing.T) {
 		}
 	}
 }
+
+// TestRowTripletsBodyOutline checks, on rows built by hand, that a
+// bright-dark-bright crossing deep in the body counts and the same
+// crossing at the body's surface (skin over subcutaneous fat, which is
+// bright on T2, common practice) does not.
+func TestRowTripletsBodyOutline(t *testing.T) {
+	// row returns 120 mm of background with body from lo to hi a little
+	// above the outline level, and CSF (1.0) over c-5..c+5 either side of
+	// a cord (0.5) over c-2..c+2: the crossing's flanks are the CSF pixels
+	// next to the cord, c-3 and c+3.
+	body := float32(canalBodyLevel + 0.05)
+	row := func(lo, hi, c int) []float32 {
+		p := make([]float32, 120)
+		for x := lo; x <= hi; x++ {
+			p[x] = body
+		}
+		for x := c - 5; x <= c+5; x++ {
+			p[x] = 1
+		}
+		for x := c - 2; x <= c+2; x++ {
+			p[x] = 0.5
+		}
+		return p
+	}
+	cases := []struct {
+		name string
+		p    []float32
+		want bool
+	}{
+		{"deep", row(10, 110, 60), true},
+		// The posterior flank is 2 mm inside the outline.
+		{"posterior surface", row(10, 105, 100), false},
+		// The anterior flank is 11 mm inside the outline.
+		{"anterior surface", row(10, 110, 24), false},
+		// The anterior flank exactly canalInsetMM (15 mm) inside it, and
+		// one millimetre short of that.
+		{"at the inset", row(0, 119, 18), true},
+		{"short of the inset", row(0, 119, 17), false},
+	}
+	for _, c := range cases {
+		tr := rowTriplets(c.p, 1)
+		if got := len(tr) > 0; got != c.want {
+			t.Errorf("%s: crossing found %v, want %v (%v)", c.name, got, c.want, tr)
+		}
+	}
+}
+
+// TestNeighbourSpan checks the column length that keeps a slab on
+// columns worked by hand: a neighbour's column adds the rows it reaches
+// beyond the slice's own, and a column whose rows cover less than
+// CanalMinDensity of its extent counts for nothing.
+func TestNeighbourSpan(t *testing.T) {
+	cues := []canalCue{
+		{ColumnMM: 60, TopMM: 10, BottomMM: 70},   // joins slice 1 above
+		{ColumnMM: 80, TopMM: 60, BottomMM: 140},  // the middle
+		{ColumnMM: 50, TopMM: 130, BottomMM: 180}, // joins below
+		{ColumnMM: 40, TopMM: 10, BottomMM: 200},  // sparse: 40 of 190 mm
+		{ColumnMM: 30, TopMM: 160, BottomMM: 190}, // its only neighbour is sparse
+	}
+	m := &midlineCues{n: len(cues), canal: cues}
+	want := []float64{
+		60 + 70, // rows 70..140 of slice 1 beyond its own 10..70
+		80 + 50 + 40,
+		50 + 70, // slice 1 reaches 70 mm above; slice 3 is sparse
+		0,
+		30,
+	}
+	for i, w := range want {
+		if got := m.neighbourSpan(i); got != w {
+			t.Errorf("slice %d: span %.0f mm, want %.0f", i, got, w)
+		}
+	}
+}

@@ -7,6 +7,7 @@ import (
 	"os"
 	"runtime"
 	"sort"
+	"strings"
 	"sync"
 	"testing"
 
@@ -23,6 +24,11 @@ type evalCase struct {
 	files    []phantom.File
 	target   string // Series Instance UID of the target series
 	midline  string // SOP Instance UID of the midline slice; "" if outside
+	// offsetMM is the true plane's distance from the midline slice's
+	// centre, for the figure on cases clear of a slice boundary; cord,
+	// when set, is a point of the plane from which evalOne measures it.
+	offsetMM float64
+	cord     *[3]float64
 }
 
 // evalOutcome is what the picker made of one case.
@@ -33,6 +39,7 @@ type evalOutcome struct {
 	diff     int // picked index minus true index (in slab, not refused)
 	baseDiff int // geometric centre minus true index
 	flagged  bool
+	clear    bool // the true plane lies within a quarter slice of the midline slice's centre
 	err      error
 }
 
@@ -41,6 +48,7 @@ type evalTally struct {
 	inSlab, exact, near, flagged, refused, baseExact, baseNear int
 	missing, missingRefused, missingFlagged, missingUnflagged  int
 	wrongUnflagged                                             int
+	clear, clearExact                                          int
 }
 
 func (t *evalTally) add(o evalOutcome) {
@@ -72,6 +80,12 @@ func (t *evalTally) add(o evalOutcome) {
 	if o.diff == 0 {
 		t.exact++
 	}
+	if o.clear {
+		t.clear++
+		if o.diff == 0 {
+			t.clearExact++
+		}
+	}
 	if o.diff >= -1 && o.diff <= 1 {
 		t.near++
 	}
@@ -90,9 +104,9 @@ func pct(a, b int) float64 {
 }
 
 func (t evalTally) String() string {
-	return fmt.Sprintf("midline in slab: %d series, exact %.1f%%, within one slice %.1f%%, flagged %.1f%%, refused %.1f%%, wrong and unflagged %d; "+
+	return fmt.Sprintf("midline in slab: %d series, exact %.1f%% (%.1f%% of %d clear of a slice boundary), within one slice %.1f%%, flagged %.1f%%, refused %.1f%%, wrong and unflagged %d; "+
 		"geometric centre exact %.1f%%, within one %.1f%%; midline not in slab: %d series, refused %.1f%%, flagged %.1f%%, unflagged %d",
-		t.inSlab, pct(t.exact, t.inSlab), pct(t.near, t.inSlab), pct(t.flagged, t.inSlab), pct(t.refused, t.inSlab), t.wrongUnflagged,
+		t.inSlab, pct(t.exact, t.inSlab), pct(t.clearExact, t.clear), t.clear, pct(t.near, t.inSlab), pct(t.flagged, t.inSlab), pct(t.refused, t.inSlab), t.wrongUnflagged,
 		pct(t.baseExact, t.inSlab), pct(t.baseNear, t.inSlab), t.missing, pct(t.missingRefused, t.missing), pct(t.missingFlagged, t.missing), t.missingUnflagged)
 }
 
@@ -169,6 +183,11 @@ func evalOne(pre *Preprocessor, c evalCase) evalOutcome {
 	}
 	o.diff = sl.Center - truth
 	o.baseDiff = (len(sl.Instances)-1)/2 - truth
+	off := c.offsetMM
+	if c.cord != nil {
+		off = sl.Positions[truth] - PositionAlong(&midsag.Instance{ImagePosition: *c.cord}, sl.Normal)
+	}
+	o.clear = math.Abs(off) <= sl.SpacingMM/4
 	return o
 }
 
@@ -189,15 +208,22 @@ func reportEval(t *testing.T, family string, outs []evalOutcome) evalTally {
 		per[o.scenario].add(o)
 	}
 	t.Logf("%s: %v", family, all)
+	logTallies(t, "  "+family+" / %s: %v", per)
+	return all
+}
+
+// logTallies logs every tally of per in the order of its keys, each with
+// format given the key and the tally.
+func logTallies(t *testing.T, format string, per map[string]*evalTally) {
+	t.Helper()
 	names := make([]string, 0, len(per))
 	for k := range per {
 		names = append(names, k)
 	}
 	sort.Strings(names)
 	for _, k := range names {
-		t.Logf("  %s / %s: %v", family, k, *per[k])
+		t.Logf(format, k, *per[k])
 	}
-	return all
 }
 
 // packagePhantomCases returns n studies of package phantom (the family the
@@ -215,7 +241,8 @@ func packagePhantomCases(t *testing.T, n int) []evalCase {
 		if err != nil {
 			t.Fatal(err)
 		}
-		cases = append(cases, evalCase{scenario: "as_generated", files: files, target: truth.TargetSeriesUID, midline: truth.CenterSOPInstanceUID})
+		cord := truth.CordPointMM
+		cases = append(cases, evalCase{scenario: "as_generated", files: files, target: truth.TargetSeriesUID, midline: truth.CenterSOPInstanceUID, cord: &cord})
 		// Sort the target's files along the normal to cut slabs.
 		type sorted struct {
 			f   phantom.File
@@ -256,7 +283,7 @@ func packagePhantomCases(t *testing.T, n int) []evalCase {
 		// Partial transfer: the slab cut one or two slices past the midline.
 		keep := min(len(tgt), c+2+i%2)
 		if keep >= 5 {
-			cases = append(cases, evalCase{scenario: "partial", files: pick(0, keep), target: truth.TargetSeriesUID, midline: truth.CenterSOPInstanceUID})
+			cases = append(cases, evalCase{scenario: "partial", files: pick(0, keep), target: truth.TargetSeriesUID, midline: truth.CenterSOPInstanceUID, cord: &cord})
 		}
 	}
 	return cases
@@ -275,17 +302,18 @@ func TestMidlineEvaluationPackagePhantom(t *testing.T) {
 	}
 	outs := runEval(packagePhantomCases(t, n))
 	tl := reportEval(t, "package phantom", outs)
-	checkGoals(t, "package phantom", tl, goals{exact: 99, near: 100})
+	checkGoals(t, "package phantom", tl, goals{exact: 99, near: 100, missingRefused: 99})
 }
 
 // goals are the rates a family must reach. The goal is at
 // least 99% exact on every family and no unflagged pick on a slab that
 // misses the midline; package phantom meets it, internal/crossphantom
-// does not yet, so its floors are the rates measured when the picker last
-// changed, less a margin for the smaller default sample, and guard
-// against regressions only.
+// meets the second but not the first, so its floors sit just below the
+// rates measured at the default sample size when the picker last
+// changed, and guard against regressions only.
 type goals struct {
 	exact, near      float64 // least exact and within-one rates, %
+	missingRefused   float64 // least rate of refusal of slabs that miss the midline, %
 	missingUnflagged int     // most unflagged picks on slabs that miss the midline
 	wrongUnflagged   int     // most wrong picks without a flag
 }
@@ -297,6 +325,9 @@ func checkGoals(t *testing.T, family string, tl evalTally, g goals) {
 	}
 	if got := pct(tl.near, tl.inSlab); got < g.near {
 		t.Errorf("%s: within-one-slice rate %.1f%% < %.1f%%", family, got, g.near)
+	}
+	if got := pct(tl.missingRefused, tl.missing); got < g.missingRefused {
+		t.Errorf("%s: %.1f%% of slabs that miss the midline refused < %.1f%%", family, got, g.missingRefused)
 	}
 	if tl.missingUnflagged > g.missingUnflagged {
 		t.Errorf("%s: %d slabs that miss the midline were scored without a flag (at most %d)", family, tl.missingUnflagged, g.missingUnflagged)
@@ -323,23 +354,50 @@ func crossPhantomCases(t *testing.T, n int) []evalCase {
 		for j, f := range files {
 			pf[j] = phantom.File{Name: f.Name, Data: f.Data}
 		}
-		c := evalCase{scenario: fmt.Sprintf("%s %.0f-%.0f mm", truth.Scenario, math.Floor(truth.ThicknessMM), math.Ceil(truth.ThicknessMM)), files: pf, target: truth.SeriesInstanceUID}
+		c := evalCase{scenario: string(truth.Scenario) + " " + thicknessBand(truth.ThicknessMM), files: pf, target: truth.SeriesInstanceUID}
 		if truth.InSlab {
-			c.midline = truth.MidlineSOPInstanceUID
+			c.midline, c.offsetMM = truth.MidlineSOPInstanceUID, truth.MidlineDistanceMM
 		}
 		cases = append(cases, c)
 	}
 	return cases
 }
 
+// thicknessBand names the band of internal/crossphantom's DefaultConfig
+// that a slice thickness falls in: 1-1.5, 2-2.5, 3-3.5 or 4 mm.
+func thicknessBand(mm float64) string {
+	if b := math.Floor(mm); b < 4 {
+		return fmt.Sprintf("%.0f-%.1f mm", b, b+0.5)
+	}
+	return "4 mm"
+}
+
+// reportBands logs the tally per thickness band, the last word pair of
+// every scenario name.
+func reportBands(t *testing.T, family string, outs []evalOutcome) {
+	t.Helper()
+	per := map[string]*evalTally{}
+	for _, o := range outs {
+		f := strings.Fields(o.scenario)
+		band := strings.Join(f[max(0, len(f)-2):], " ")
+		if per[band] == nil {
+			per[band] = &evalTally{}
+		}
+		per[band].add(o)
+	}
+	logTallies(t, "  "+family+", %s slices: %v", per)
+}
+
 // TestMidlineEvaluationCrossPhantom measures the midline picker on the
-// independently written family; nothing of the picker was tuned on it.
+// independently written family. The picker has been tuned against it as
+// well as package phantom (README, "Midline"), so it is a regression
+// check, not a held-out one.
 //
-// Measured with n = 200 (MIDSAG_LONG=1): exact 87.9%, within one slice
-// 97.9%, no wrong pick of 140 unflagged, and of 60 slabs that miss the
-// midline 96.7% refused, 1.7% flagged, 1 unflagged. Before the picker
-// was changed with this family in view (tuned on package phantom only)
-// it scored exact 59.3%, within one 82.9%, and 9 of 60 unflagged.
+// Measured with the default n = 100: exact 89.9%, within one slice 100%,
+// no wrong pick unflagged, and of 31 slabs that miss the midline 96.8%
+// refused, 1 flagged, none unflagged. Before the picker was changed with
+// this family in view (tuned on package phantom only) it scored, with
+// n = 200, exact 59.3%, within one 82.9%, and 9 of 60 unflagged.
 func TestMidlineEvaluationCrossPhantom(t *testing.T) {
 	n := 100
 	switch {
@@ -350,5 +408,11 @@ func TestMidlineEvaluationCrossPhantom(t *testing.T) {
 	}
 	outs := runEval(crossPhantomCases(t, n))
 	tl := reportEval(t, "crossphantom", outs)
-	checkGoals(t, "crossphantom", tl, goals{exact: 82, near: 95, missingUnflagged: 2, wrongUnflagged: 1})
+	reportBands(t, "crossphantom", outs)
+	g := goals{exact: 89, near: 99, missingRefused: 96}
+	if testing.Short() {
+		// 27 in-slab series: one miss moves the exact rate by 3.7 points.
+		g.exact, g.near = 85, 96
+	}
+	checkGoals(t, "crossphantom", tl, g)
 }

@@ -25,7 +25,8 @@ func TestMidlineAccuracyOnPhantoms(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		cases[i] = evalCase{scenario: truth.TransferSyntaxUID, files: files, target: truth.TargetSeriesUID, midline: truth.CenterSOPInstanceUID}
+		cord := truth.CordPointMM
+		cases[i] = evalCase{scenario: truth.TransferSyntaxUID, files: files, target: truth.TargetSeriesUID, midline: truth.CenterSOPInstanceUID, cord: &cord}
 	}
 	tl := reportEval(t, "package phantom, every transfer syntax", runEval(cases))
 	checkGoals(t, "package phantom, every transfer syntax", tl, goals{exact: 99, near: 100})
