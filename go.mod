@@ -5,6 +5,7 @@ go 1.26.8
 require (
 	github.com/suyashkumar/dicom v1.1.0
 	github.com/yalue/onnxruntime_go v1.27.0
+	golang.org/x/sync v0.24.0
 	google.golang.org/protobuf v1.36.12
 )
 

@@ -145,7 +145,7 @@ func (r *Registry) retire(e *entry) {
 // Acquire returns the model with the given name and version ("" for the
 // default model; an empty version takes the newest loaded version of the
 // name) and a release function the caller must call when done.
-func (r *Registry) Acquire(name, version string) (*Model, func(), error) {
+func (r *Registry) Acquire(name, version string) (midsag.Model, func(), error) {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	if r.closed {

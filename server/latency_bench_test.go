@@ -84,7 +84,7 @@ func BenchmarkRESTScore(b *testing.B) {
 	ctx, cancel := context.WithCancel(context.Background())
 	defer cancel()
 	go core.Run(ctx, time.Second)
-	h, err := grpcapi.NewHTTPHandler(ctx, grpcapi.Config{Backend: core}, nil)
+	h, err := grpcapi.NewHTTPHandler(ctx, grpcapi.Config{Backend: core, Pre: preprocess.New(preprocess.Options{Lenient: true})}, nil)
 	if err != nil {
 		b.Fatal(err)
 	}

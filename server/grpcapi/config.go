@@ -33,6 +33,11 @@ const (
 type Config struct {
 	// Backend stores instances, scores studies and keeps results.
 	Backend server.Backend
+	// Pre reads each STOW-RS part's header before it is stored, so an
+	// instance of another study than the URL's is refused unstored; it
+	// may be lenient, as Ingest has the final word. NewHTTPHandler needs
+	// it.
+	Pre midsag.Preprocessor
 	// MaxBodyBytes bounds one upload: an HTTP request body (Content-Length
 	// or streamed size) or the total bytes of a ScoreStudy stream. Beyond
 	// it the request is refused with too_large (HTTP 413). Zero means

@@ -2,6 +2,7 @@ package grpcapi
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"net/http"
 	"strconv"
@@ -11,8 +12,8 @@ import (
 	"github.com/grpc-ecosystem/grpc-gateway/v2/runtime"
 	"google.golang.org/protobuf/encoding/protojson"
 
+	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
-	"github.com/midsag/midsag/preprocess"
 	"github.com/midsag/midsag/server"
 )
 
@@ -24,8 +25,8 @@ type httpAPI struct {
 	cfg    Config
 	tokens tokens
 	// pre reads headers of STOW-RS parts before they are stored, to check
-	// the study in the URL (lenient: Ingest has the final word).
-	pre *preprocess.Preprocessor
+	// the study in the URL.
+	pre midsag.Preprocessor
 }
 
 // NewHTTPHandler returns one handler for the REST API: the gateway routes
@@ -39,7 +40,10 @@ func NewHTTPHandler(ctx context.Context, cfg Config, extra map[string]http.Handl
 	if err != nil {
 		return nil, err
 	}
-	a := &httpAPI{cfg: cfg, tokens: newTokens(cfg.Tokens), pre: preprocess.New(preprocess.Options{Lenient: true})}
+	if cfg.Pre == nil {
+		return nil, errors.New("grpcapi: Config.Pre is nil")
+	}
+	a := &httpAPI{cfg: cfg, tokens: newTokens(cfg.Tokens), pre: cfg.Pre}
 
 	gw := runtime.NewServeMux(
 		runtime.WithMarshalerOption(runtime.MIMEWildcard, &runtime.JSONPb{

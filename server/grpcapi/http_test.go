@@ -19,6 +19,7 @@ import (
 	"time"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/preprocess"
 )
 
 // The HTTP tests drive the handler with the real curl (/usr/bin/curl) over
@@ -69,6 +70,9 @@ func runCurl(t *testing.T, args ...string) curlResponse {
 
 func newHTTP(t *testing.T, cfg Config, extra map[string]http.Handler) *httptest.Server {
 	t.Helper()
+	if cfg.Pre == nil {
+		cfg.Pre = preprocess.New(preprocess.Options{Lenient: true})
+	}
 	h, err := NewHTTPHandler(context.Background(), cfg, extra)
 	if err != nil {
 		t.Fatal(err)
@@ -397,7 +401,7 @@ func slicesContain(s []string, v string) bool {
 func TestHeatmapRoute(t *testing.T) {
 	fake := newFake()
 	files := phantomStudy(t)
-	h, err := NewHTTPHandler(context.Background(), Config{Backend: fake}, nil)
+	h, err := NewHTTPHandler(context.Background(), Config{Backend: fake, Pre: preprocess.New(preprocess.Options{Lenient: true})}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
