@@ -11,8 +11,8 @@ import (
 	"github.com/midsag/midsag"
 )
 
-// flagHelp is returned when -h was asked for; the usage is already printed.
-var flagHelp = errors.New("help requested")
+// errHelp is returned when -h was asked for; the usage is already printed.
+var errHelp = errors.New("help requested")
 
 // newFlags returns a FlagSet for verb whose usage text goes to stderr.
 func newFlags(verb, argsUsage, about string, stderr io.Writer) *flag.FlagSet {
@@ -30,7 +30,7 @@ func newFlags(verb, argsUsage, about string, stderr io.Writer) *flag.FlagSet {
 func parseFlags(fs *flag.FlagSet, args []string) error {
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
-			return flagHelp
+			return errHelp
 		}
 		return &usageError{msg: err.Error()}
 	}
