@@ -18,7 +18,8 @@ import (
 type Options struct {
 	// Root is the folder to discover studies in.
 	Root string
-	// Headers reads file headers for discovery.
+	// Headers reads file headers for discovery; nil uses the Pipeline's
+	// preprocessor when it is a HeaderReader.
 	Headers HeaderReader
 	// Pipeline scores one study; its Model's sha256 keys finished rows.
 	Pipeline *midsag.Pipeline

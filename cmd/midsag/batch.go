@@ -100,7 +100,6 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	sum, err := store.Run(ctx, cohort.Options{
 		OnScored: onScored,
 		Root:     root,
-		Headers:  pipeline.Preprocessor(cfg.Preprocess),
 		Pipeline: pipe,
 		Workers:  *workers,
 		Shard:    shard,
