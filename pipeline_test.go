@@ -7,6 +7,7 @@ import (
 	"io"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/midsag/midsag"
 )
@@ -43,9 +44,21 @@ func src(name, body string) midsag.Source {
 	return midsag.Source{Name: name, Open: func() (io.ReadCloser, error) { return io.NopCloser(strings.NewReader(body)), nil }}
 }
 
+// slowSrc is a source whose Open takes at least d, so reading it takes a
+// known least time.
+func slowSrc(name, body string, d time.Duration) midsag.Source {
+	return midsag.Source{Name: name, Open: func() (io.ReadCloser, error) {
+		time.Sleep(d)
+		return io.NopCloser(strings.NewReader(body)), nil
+	}}
+}
+
+// TestPipelineRunSkipsUnreadableFiles: an unreadable file is skipped and
+// counted in the flags; the read time (at least the 20 ms one source
+// takes to open) is reported as "read" and included in "total".
 func TestPipelineRunSkipsUnreadableFiles(t *testing.T) {
 	p := &midsag.Pipeline{Pre: fakePre{}, Model: fakeModel{outputs: 1}, NewID: func() string { return "id1" }}
-	res, err := p.Run(context.Background(), []midsag.Source{src("a", "DICM..."), src("notes.txt", "hello"), src("b", "DICM")})
+	res, err := p.Run(context.Background(), []midsag.Source{src("a", "DICM..."), src("notes.txt", "hello"), slowSrc("b", "DICM", 20*time.Millisecond)})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -53,8 +66,12 @@ func TestPipelineRunSkipsUnreadableFiles(t *testing.T) {
 	if flags != "prep_flag,skipped_files:not_dicom:1" {
 		t.Errorf("flags %q", flags)
 	}
-	if res.Notice != midsag.Notice || res.ResultID != "id1" || res.CalibratedProb != 0.25 || res.TimingsMS["read"] < 0 {
+	if res.Notice != midsag.Notice || res.ResultID != "id1" || res.CalibratedProb != 0.25 {
 		t.Errorf("result %+v", res)
+	}
+	read, total := res.TimingsMS["read"], res.TimingsMS["total"]
+	if read < 20 || total < read {
+		t.Errorf("timings read %v ms (want at least 20), total %v ms (want at least read)", read, total)
 	}
 }
 

@@ -9,5 +9,5 @@
 // run writes.
 //
 //	st, err := cohort.Open(outDir)
-//	sum, err := st.Run(ctx, cohort.Options{Root: root, Headers: pre, Pipeline: p, Workers: 2})
+//	sum, err := st.Run(ctx, cohort.Options{Root: root, Pipeline: p, Workers: 2})
 package cohort

@@ -9,6 +9,8 @@ import (
 	"sync"
 	"time"
 
+	"golang.org/x/sync/errgroup"
+
 	"github.com/midsag/midsag"
 )
 
@@ -16,7 +18,8 @@ import (
 type Options struct {
 	// Root is the folder to discover studies in.
 	Root string
-	// Headers reads file headers for discovery.
+	// Headers reads file headers for discovery; nil uses the Pipeline's
+	// preprocessor when it is a HeaderReader.
 	Headers HeaderReader
 	// Pipeline scores one study; its Model's sha256 keys finished rows.
 	Pipeline *midsag.Pipeline
@@ -68,147 +71,163 @@ type Summary struct {
 // finishes, and writes results.csv and results.jsonl (all of the shard's
 // recorded rows, sorted by Study Instance UID) every FlushEvery and at
 // the end. If ctx is cancelled the studies in flight are dropped, the
-// tables are written and ctx's error is returned.
+// tables are written and ctx's error is returned. Without opts.Headers
+// the Pipeline's preprocessor reads the headers, if it can.
 func (s *Store) Run(ctx context.Context, opts Options) (*Summary, error) {
 	start := time.Now()
+	if opts.Headers == nil && opts.Pipeline != nil {
+		opts.Headers, _ = opts.Pipeline.Pre.(HeaderReader)
+	}
 	if opts.Pipeline == nil || opts.Pipeline.Model == nil || opts.Headers == nil {
 		return nil, errors.New("cohort: run needs a pipeline with a model and a header reader")
 	}
-	workers := max(opts.Workers, 1)
-	modelSHA := opts.Pipeline.Model.Info().SHA256
-	disc, err := s.Discover(ctx, opts.Root, opts.Headers, workers)
+	opts.Workers = max(opts.Workers, 1)
+	pl, err := s.plan(ctx, opts)
 	if err != nil {
+		return nil, err
+	}
+	sum := &Summary{Discovery: pl.disc, InShard: len(pl.inShard), Done: pl.done, ByStatus: map[Status]int{}, ByReason: map[string]int{}}
+	if opts.OnStart != nil {
+		opts.OnStart(pl.disc, len(pl.todo), pl.done)
+	}
+	runErr := s.scoreAll(ctx, opts, pl, sum)
+	if err := s.writeTables(ctx, opts, pl); err != nil {
+		runErr = cmpErr(runErr, err)
+	}
+	sum.Elapsed = time.Since(start)
+	if h := sum.Elapsed.Hours(); h > 0 {
+		sum.StudiesPerHour = float64(sum.Scored) / h
+	}
+	if runErr != nil {
+		return sum, runErr
+	}
+	return sum, ctx.Err()
+}
+
+// runPlan is what a Run found to do.
+type runPlan struct {
+	disc     *Discovery
+	modelSHA string
+	// inShard holds the shard's studies, todo those to score now; done
+	// counts those recorded before.
+	inShard map[string]bool
+	todo    []string
+	done    int
+}
+
+// plan discovers the studies and picks the shard's studies still to do.
+func (s *Store) plan(ctx context.Context, opts Options) (*runPlan, error) {
+	pl := &runPlan{modelSHA: opts.Pipeline.Model.Info().SHA256, inShard: map[string]bool{}}
+	var err error
+	if pl.disc, err = s.Discover(ctx, opts.Root, opts.Headers, opts.Workers); err != nil {
 		return nil, err
 	}
 	all, err := s.Studies(ctx)
 	if err != nil {
 		return nil, err
 	}
-	inShard := map[string]bool{}
-	var mine []string
-	for _, uid := range all {
-		if opts.Shard.Has(uid) {
-			inShard[uid] = true
-			mine = append(mine, uid)
-		}
-	}
 	done := map[string]bool{}
 	if !opts.Rescore {
-		if done, err = s.done(ctx, modelSHA); err != nil {
+		if done, err = s.done(ctx, pl.modelSHA); err != nil {
 			return nil, err
 		}
 	}
-	var todo []string
-	nDone := 0
-	for _, uid := range mine {
-		if done[uid] {
-			nDone++
-		} else {
-			todo = append(todo, uid)
+	for _, uid := range all {
+		switch {
+		case !opts.Shard.Has(uid):
+		case done[uid]:
+			pl.inShard[uid] = true
+			pl.done++
+		default:
+			pl.inShard[uid] = true
+			pl.todo = append(pl.todo, uid)
 		}
 	}
-	sum := &Summary{Discovery: disc, InShard: len(mine), Done: nDone, ByStatus: map[Status]int{}, ByReason: map[string]int{}}
-	if opts.OnStart != nil {
-		opts.OnStart(disc, len(todo), nDone)
-	}
+	return pl, nil
+}
 
-	// The tables are streamed from the database in study order, so
-	// writing them needs memory for one row whatever the cohort's size.
-	writeTables := func() error {
-		tw, err := newTableWriter(s.dir, opts.Labels != nil)
-		if err != nil {
-			return err
-		}
-		err = s.eachRow(context.WithoutCancel(ctx), modelSHA, inShard, func(r Row) error {
-			if opts.Labels != nil {
-				l := opts.Labels[r.StudyInstanceUID]
-				r.Label = &l
-			}
-			return tw.write(r)
-		})
-		if err != nil {
-			tw.abort()
-			return err
-		}
-		return tw.commit()
+// writeTables writes results.csv and results.jsonl from the database.
+// The rows are streamed in study order, so writing them needs memory for
+// one row whatever the cohort's size.
+func (s *Store) writeTables(ctx context.Context, opts Options, pl *runPlan) error {
+	tw, err := newTableWriter(s.dir, opts.Labels != nil)
+	if err != nil {
+		return err
 	}
+	err = s.eachRow(context.WithoutCancel(ctx), pl.modelSHA, pl.inShard, func(r Row) error {
+		if opts.Labels != nil {
+			l := opts.Labels[r.StudyInstanceUID]
+			r.Label = &l
+		}
+		return tw.write(r)
+	})
+	if err != nil {
+		tw.abort()
+		return err
+	}
+	return tw.commit()
+}
 
-	var (
-		mu       sync.Mutex
-		firstErr error
-		wg       sync.WaitGroup
-	)
-	next := make(chan string)
-	runCtx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for uid := range next {
-				row, ok := s.scoreStudy(runCtx, opts.Pipeline, opts.OnScored, uid, modelSHA)
-				if !ok {
-					continue
-				}
-				if err := s.put(context.WithoutCancel(runCtx), row); err != nil {
-					mu.Lock()
-					firstErr = cmpErr(firstErr, err)
-					mu.Unlock()
-					cancel()
-					continue
-				}
-				mu.Lock()
-				sum.Scored++
-				sum.ByStatus[row.Status]++
-				key := string(row.Status)
-				if row.Reason != "" {
-					key += ":" + row.Reason
-				}
-				sum.ByReason[key]++
-				mu.Unlock()
-				if opts.OnRow != nil {
-					opts.OnRow(row)
-				}
-			}
-		}()
-	}
+// scoreAll scores the plan's studies with at most opts.Workers at once,
+// recording each row as it finishes and rewriting the tables every
+// FlushEvery. The first failure to record a row or write the tables
+// stops the run and is returned.
+func (s *Store) scoreAll(ctx context.Context, opts Options, pl *runPlan, sum *Summary) error {
 	every := opts.FlushEvery
 	if every <= 0 {
 		every = time.Minute
 	}
 	tick := time.NewTicker(every)
 	defer tick.Stop()
-feed:
-	for _, uid := range todo {
-		for {
-			select {
-			case next <- uid:
-				continue feed
-			case <-runCtx.Done():
-				break feed
-			case <-tick.C:
-				if err := writeTables(); err != nil {
-					mu.Lock()
-					firstErr = cmpErr(firstErr, err)
-					mu.Unlock()
-					cancel()
-				}
-			}
+	runCtx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	g, gctx := errgroup.WithContext(runCtx)
+	g.SetLimit(opts.Workers)
+	var mu sync.Mutex
+	var flushErr error
+	for _, uid := range pl.todo {
+		if gctx.Err() != nil {
+			break
 		}
+		select {
+		case <-tick.C:
+			if flushErr = s.writeTables(ctx, opts, pl); flushErr != nil {
+				cancel()
+			}
+		default:
+		}
+		if flushErr != nil {
+			break
+		}
+		g.Go(func() error {
+			row, ok := s.scoreStudy(gctx, opts.Pipeline, opts.OnScored, uid, pl.modelSHA)
+			if !ok {
+				return nil
+			}
+			if err := s.put(context.WithoutCancel(gctx), row); err != nil {
+				return err
+			}
+			mu.Lock()
+			sum.count(row)
+			mu.Unlock()
+			if opts.OnRow != nil {
+				opts.OnRow(row)
+			}
+			return nil
+		})
 	}
-	close(next)
-	wg.Wait()
-	if err := writeTables(); err != nil {
-		firstErr = cmpErr(firstErr, err)
+	return cmpErr(flushErr, g.Wait())
+}
+
+// count adds a recorded row to the summary's counts.
+func (sum *Summary) count(row Row) {
+	sum.Scored++
+	sum.ByStatus[row.Status]++
+	key := string(row.Status)
+	if row.Reason != "" {
+		key += ":" + row.Reason
 	}
-	sum.Elapsed = time.Since(start)
-	if h := sum.Elapsed.Hours(); h > 0 {
-		sum.StudiesPerHour = float64(sum.Scored) / h
-	}
-	if firstErr != nil {
-		return sum, firstErr
-	}
-	return sum, ctx.Err()
+	sum.ByReason[key]++
 }
 
 func cmpErr(first, err error) error {

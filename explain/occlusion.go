@@ -7,7 +7,8 @@ import (
 	"math"
 	"slices"
 	"sort"
-	"sync"
+
+	"golang.org/x/sync/errgroup"
 
 	"github.com/midsag/midsag"
 )
@@ -482,42 +483,16 @@ func (r *runner) run(ctx context.Context, ps []Patch) error {
 	for s := 0; s < len(idx); s += r.opts.BatchSize {
 		batches = append(batches, idx[s:min(s+r.opts.BatchSize, len(idx))])
 	}
-	ctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	var (
-		wg       sync.WaitGroup
-		mu       sync.Mutex
-		firstErr error
-		next     = make(chan []int)
-	)
-	for w := 0; w < min(r.opts.Workers, max(len(batches), 1)); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for b := range next {
-				if err := r.batch(ctx, ps, b); err != nil {
-					mu.Lock()
-					if firstErr == nil {
-						firstErr = err
-					}
-					mu.Unlock()
-					cancel()
-				}
-			}
-		}()
-	}
-feed:
+	g, gctx := errgroup.WithContext(ctx)
+	g.SetLimit(max(r.opts.Workers, 1))
 	for _, b := range batches {
-		select {
-		case next <- b:
-		case <-ctx.Done():
-			break feed
+		if gctx.Err() != nil {
+			break
 		}
+		g.Go(func() error { return r.batch(gctx, ps, b) })
 	}
-	close(next)
-	wg.Wait()
-	if firstErr != nil {
-		return firstErr
+	if err := g.Wait(); err != nil {
+		return err
 	}
 	if err := ctx.Err(); err != nil {
 		return fmt.Errorf("explain: %w", err)

@@ -132,73 +132,95 @@ func ParseManifest(data []byte) (*Manifest, error) {
 // Validate checks every field of the manifest and returns the first
 // problem as a midsag.ReasonBadModel error.
 func (m *Manifest) Validate() error {
-	bad := func(format string, args ...any) error {
-		return midsag.Rejectf(midsag.ReasonBadModel, "manifest: "+format, args...)
-	}
 	if m.Schema != ManifestSchema {
-		return bad("schema is %q, want %q", m.Schema, ManifestSchema)
+		return badManifest("schema is %q, want %q", m.Schema, ManifestSchema)
 	}
 	if m.Name == "" || m.Version == "" {
-		return bad("name and version are required")
+		return badManifest("name and version are required")
 	}
 	if len(m.Labels) != 2 || m.Labels[0] == "" || m.Labels[1] == "" || m.Labels[0] == m.Labels[1] {
-		return bad("labels must be two distinct names [negative, positive], got %q", m.Labels)
+		return badManifest("labels must be two distinct names [negative, positive], got %q", m.Labels)
 	}
-	in := m.Input
-	if in.Name == "" {
-		return bad("input.name is required")
+	if err := m.Input.validate(); err != nil {
+		return err
 	}
-	if in.Layout != "NCHW" && in.Layout != "NHWC" {
-		return bad("input.layout is %q, want NCHW or NHWC", in.Layout)
-	}
-	if in.Height < 1 || in.Width < 1 || in.Height > maxSide || in.Width > maxSide {
-		return bad("input.height and input.width must be in 1..%d, got %dx%d", maxSide, in.Height, in.Width)
-	}
-	// Odd, so the centre slice sits in the middle channel (midsag.InputSpec).
-	if in.Slices < 1 || in.Slices%2 == 0 || in.Slices > 255 {
-		return bad("input.slices must be odd and in 1..255, got %d", in.Slices)
-	}
-	if in.SliceStep < 1 {
-		return bad("input.slice_step must be at least 1, got %d", in.SliceStep)
-	}
-	if !(in.PixelSpacingMM >= 0) || math.IsInf(in.PixelSpacingMM, 0) {
-		return bad("input.pixel_spacing_mm must be zero or positive, got %v", in.PixelSpacingMM)
-	}
-	if !(in.PercentileLow >= 0 && in.PercentileLow < in.PercentileHigh && in.PercentileHigh <= 100) {
-		return bad("input percentiles must satisfy 0 <= low < high <= 100, got %v and %v", in.PercentileLow, in.PercentileHigh)
-	}
-	switch in.Normalize {
-	case "percentile":
-		if len(in.Mean) != 0 || len(in.Std) != 0 {
-			return bad("input.mean and input.std apply only to normalize \"meanstd\"")
-		}
-	case "meanstd":
-		if len(in.Mean) != in.Slices || len(in.Std) != in.Slices {
-			return bad("input.mean and input.std need one value per slice (%d), got %d and %d", in.Slices, len(in.Mean), len(in.Std))
-		}
-		for c := range in.Std {
-			if !(in.Std[c] > 0) || math.IsInf(in.Std[c], 0) || math.IsNaN(in.Mean[c]) || math.IsInf(in.Mean[c], 0) {
-				return bad("input.mean[%d]=%v, input.std[%d]=%v: std must be positive and both finite", c, in.Mean[c], c, in.Std[c])
-			}
-		}
-	default:
-		return bad("input.normalize is %q, want percentile or meanstd", in.Normalize)
-	}
-	out := m.Output
-	if out.Name == "" {
-		return bad("output.name is required")
-	}
-	if out.Kind != KindLogit && out.Kind != KindProbability {
-		return bad("output.kind is %q, want logit or probability", out.Kind)
-	}
-	if out.PositiveIndex != 0 && out.PositiveIndex != 1 {
-		return bad("output.positive_index must be 0 or 1, got %d", out.PositiveIndex)
+	if err := m.Output.validate(); err != nil {
+		return err
 	}
 	if _, err := CalibratorFromManifest(m.Calibration); err != nil {
 		return err
 	}
 	if !(m.Threshold > 0 && m.Threshold < 1) {
-		return bad("threshold must be strictly between 0 and 1, got %v", m.Threshold)
+		return badManifest("threshold must be strictly between 0 and 1, got %v", m.Threshold)
+	}
+	return nil
+}
+
+func badManifest(format string, args ...any) error {
+	return midsag.Rejectf(midsag.ReasonBadModel, "manifest: "+format, args...)
+}
+
+// validate checks the input's tensor name, layout, size, slices and
+// spacing, then its normalisation.
+func (in InputManifest) validate() error {
+	if in.Name == "" {
+		return badManifest("input.name is required")
+	}
+	if in.Layout != "NCHW" && in.Layout != "NHWC" {
+		return badManifest("input.layout is %q, want NCHW or NHWC", in.Layout)
+	}
+	if in.Height < 1 || in.Width < 1 || in.Height > maxSide || in.Width > maxSide {
+		return badManifest("input.height and input.width must be in 1..%d, got %dx%d", maxSide, in.Height, in.Width)
+	}
+	// Odd, so the centre slice sits in the middle channel (midsag.InputSpec).
+	if in.Slices < 1 || in.Slices%2 == 0 || in.Slices > 255 {
+		return badManifest("input.slices must be odd and in 1..255, got %d", in.Slices)
+	}
+	if in.SliceStep < 1 {
+		return badManifest("input.slice_step must be at least 1, got %d", in.SliceStep)
+	}
+	if !(in.PixelSpacingMM >= 0) || math.IsInf(in.PixelSpacingMM, 0) {
+		return badManifest("input.pixel_spacing_mm must be zero or positive, got %v", in.PixelSpacingMM)
+	}
+	return in.validateNormalize()
+}
+
+// validateNormalize checks the percentiles and the normalisation with
+// its per-slice mean and std.
+func (in InputManifest) validateNormalize() error {
+	if !(in.PercentileLow >= 0 && in.PercentileLow < in.PercentileHigh && in.PercentileHigh <= 100) {
+		return badManifest("input percentiles must satisfy 0 <= low < high <= 100, got %v and %v", in.PercentileLow, in.PercentileHigh)
+	}
+	switch in.Normalize {
+	case "percentile":
+		if len(in.Mean) != 0 || len(in.Std) != 0 {
+			return badManifest("input.mean and input.std apply only to normalize \"meanstd\"")
+		}
+	case "meanstd":
+		if len(in.Mean) != in.Slices || len(in.Std) != in.Slices {
+			return badManifest("input.mean and input.std need one value per slice (%d), got %d and %d", in.Slices, len(in.Mean), len(in.Std))
+		}
+		for c := range in.Std {
+			if !(in.Std[c] > 0) || math.IsInf(in.Std[c], 0) || math.IsNaN(in.Mean[c]) || math.IsInf(in.Mean[c], 0) {
+				return badManifest("input.mean[%d]=%v, input.std[%d]=%v: std must be positive and both finite", c, in.Mean[c], c, in.Std[c])
+			}
+		}
+	default:
+		return badManifest("input.normalize is %q, want percentile or meanstd", in.Normalize)
+	}
+	return nil
+}
+
+// validate checks the output's tensor name, kind and positive index.
+func (out OutputManifest) validate() error {
+	if out.Name == "" {
+		return badManifest("output.name is required")
+	}
+	if out.Kind != KindLogit && out.Kind != KindProbability {
+		return badManifest("output.kind is %q, want logit or probability", out.Kind)
+	}
+	if out.PositiveIndex != 0 && out.PositiveIndex != 1 {
+		return badManifest("output.positive_index must be 0 or 1, got %d", out.PositiveIndex)
 	}
 	return nil
 }

@@ -110,69 +110,87 @@ type pbModel struct {
 
 // parseModel walks a serialized ModelProto. Errors carry ReasonBadModel.
 func parseModel(data []byte) (*pbModel, error) {
-	bad := func(what string, err error) error {
-		return midsag.Reject(midsag.ReasonBadModel, "not an ONNX model: "+what, err)
-	}
 	top, err := fields(data)
 	if err != nil {
-		return nil, bad("model", err)
+		return nil, badModel("model", err)
 	}
 	m := &pbModel{opCounts: map[string]int{}}
-	var graph []byte
-	sawGraph := false
-	for _, f := range top {
-		switch {
-		case f.num == modelIRVersion && f.typ == protowire.VarintType:
-			m.irVersion = int64(f.u)
-		case f.num == modelProducerName && f.typ == protowire.BytesType:
-			m.producerName = string(f.val)
-		case f.num == modelProducerVersion && f.typ == protowire.BytesType:
-			m.producerVersion = string(f.val)
-		case f.num == modelGraph && f.typ == protowire.BytesType:
-			graph, sawGraph = f.val, true
-		case f.num == modelOpsetImport && f.typ == protowire.BytesType:
-			fs, err := fields(f.val)
-			if err != nil {
-				return nil, bad("opset_import", err)
-			}
-			var o Opset
-			for _, g := range fs {
-				switch {
-				case g.num == opsetDomain && g.typ == protowire.BytesType:
-					o.Domain = string(g.val)
-				case g.num == opsetVersion && g.typ == protowire.VarintType:
-					o.Version = int64(g.u)
-				}
-			}
-			m.opsets = append(m.opsets, o)
-		case f.num == modelMetadataProps && f.typ == protowire.BytesType:
-			k, v, err := parseEntry(f.val)
-			if err != nil {
-				return nil, bad("metadata_props", err)
-			}
-			m.metadata = append(m.metadata, MetadataEntry{Key: k, Value: v})
-		}
+	graph, sawGraph, err := m.parseTop(top)
+	if err != nil {
+		return nil, err
 	}
 	if !sawGraph || m.irVersion == 0 {
 		return nil, midsag.Rejectf(midsag.ReasonBadModel, "not an ONNX model: no ir_version or graph")
 	}
 	gfs, err := fields(graph)
 	if err != nil {
-		return nil, bad("graph", err)
+		return nil, badModel("graph", err)
 	}
-	initializers := map[string]bool{}
-	for _, f := range gfs {
-		if f.num == graphInitializer && f.typ == protowire.BytesType {
-			tfs, err := fields(f.val)
+	if err := m.parseGraph(gfs); err != nil {
+		return nil, err
+	}
+	return m, nil
+}
+
+// badModel refuses a model whose part what does not parse.
+func badModel(what string, err error) error {
+	return midsag.Reject(midsag.ReasonBadModel, "not an ONNX model: "+what, err)
+}
+
+// parseTop reads ModelProto's own fields into m and returns the graph's
+// bytes and whether there was one.
+func (m *pbModel) parseTop(top []field) (graph []byte, sawGraph bool, err error) {
+	for _, f := range top {
+		switch {
+		case f.num == modelIRVersion && f.typ == protowire.VarintType:
+			m.irVersion = int64(f.u)
+		case f.typ != protowire.BytesType:
+		case f.num == modelProducerName:
+			m.producerName = string(f.val)
+		case f.num == modelProducerVersion:
+			m.producerVersion = string(f.val)
+		case f.num == modelGraph:
+			graph, sawGraph = f.val, true
+		case f.num == modelOpsetImport:
+			o, err := parseOpset(f.val)
 			if err != nil {
-				return nil, bad("initializer", err)
+				return nil, false, badModel("opset_import", err)
 			}
-			for _, t := range tfs {
-				if t.num == tensorName && t.typ == protowire.BytesType {
-					initializers[string(t.val)] = true
-				}
+			m.opsets = append(m.opsets, o)
+		case f.num == modelMetadataProps:
+			k, v, err := parseEntry(f.val)
+			if err != nil {
+				return nil, false, badModel("metadata_props", err)
 			}
+			m.metadata = append(m.metadata, MetadataEntry{Key: k, Value: v})
 		}
+	}
+	return graph, sawGraph, nil
+}
+
+func parseOpset(b []byte) (Opset, error) {
+	fs, err := fields(b)
+	if err != nil {
+		return Opset{}, err
+	}
+	var o Opset
+	for _, g := range fs {
+		switch {
+		case g.num == opsetDomain && g.typ == protowire.BytesType:
+			o.Domain = string(g.val)
+		case g.num == opsetVersion && g.typ == protowire.VarintType:
+			o.Version = int64(g.u)
+		}
+	}
+	return o, nil
+}
+
+// parseGraph counts the graph's nodes by operator and lists its inputs
+// (initializers left out) and outputs.
+func (m *pbModel) parseGraph(gfs []field) error {
+	initializers, err := initializerNames(gfs)
+	if err != nil {
+		return err
 	}
 	for _, f := range gfs {
 		if f.typ != protowire.BytesType {
@@ -180,44 +198,71 @@ func parseModel(data []byte) (*pbModel, error) {
 		}
 		switch f.num {
 		case graphNode:
-			nfs, err := fields(f.val)
+			op, err := nodeOp(f.val)
 			if err != nil {
-				return nil, bad("node", err)
-			}
-			var op, domain string
-			for _, g := range nfs {
-				switch {
-				case g.num == nodeOpType && g.typ == protowire.BytesType:
-					op = string(g.val)
-				case g.num == nodeDomain && g.typ == protowire.BytesType:
-					domain = string(g.val)
-				}
-			}
-			// Custom-domain ops are counted under their qualified name so
-			// they cannot be confused with standard ops of the same name.
-			if domain != "" && domain != "ai.onnx" {
-				op = domain + "." + op
+				return badModel("node", err)
 			}
 			m.opCounts[op]++
 			m.nodes++
 		case graphInput, graphOutput:
 			vi, err := parseValueInfo(f.val)
 			if err != nil {
-				return nil, bad("graph input/output", err)
+				return badModel("graph input/output", err)
 			}
-			// Before IR version 4 initializers were also listed as inputs;
-			// they are weights, not inputs a caller feeds.
-			if f.num == graphInput && initializers[vi.name] {
-				continue
-			}
-			if f.num == graphInput {
-				m.inputs = append(m.inputs, vi)
-			} else {
+			switch {
+			case f.num == graphOutput:
 				m.outputs = append(m.outputs, vi)
+			case !initializers[vi.name]:
+				// Before IR version 4 initializers were also listed as
+				// inputs; they are weights, not inputs a caller feeds.
+				m.inputs = append(m.inputs, vi)
 			}
 		}
 	}
-	return m, nil
+	return nil
+}
+
+// initializerNames returns the names of the graph's initializers.
+func initializerNames(gfs []field) (map[string]bool, error) {
+	names := map[string]bool{}
+	for _, f := range gfs {
+		if f.num != graphInitializer || f.typ != protowire.BytesType {
+			continue
+		}
+		tfs, err := fields(f.val)
+		if err != nil {
+			return nil, badModel("initializer", err)
+		}
+		for _, t := range tfs {
+			if t.num == tensorName && t.typ == protowire.BytesType {
+				names[string(t.val)] = true
+			}
+		}
+	}
+	return names, nil
+}
+
+// nodeOp returns a NodeProto's operator. Custom-domain ops are named with
+// their domain so they cannot be confused with standard ops of the same
+// name.
+func nodeOp(b []byte) (string, error) {
+	nfs, err := fields(b)
+	if err != nil {
+		return "", err
+	}
+	var op, domain string
+	for _, g := range nfs {
+		switch {
+		case g.num == nodeOpType && g.typ == protowire.BytesType:
+			op = string(g.val)
+		case g.num == nodeDomain && g.typ == protowire.BytesType:
+			domain = string(g.val)
+		}
+	}
+	if domain != "" && domain != "ai.onnx" {
+		op = domain + "." + op
+	}
+	return op, nil
 }
 
 func parseEntry(b []byte) (key, value string, err error) {

@@ -1,12 +1,14 @@
 package models
 
 import (
+	"cmp"
 	"errors"
 	"fmt"
 	"log/slog"
 	"os"
 	"path/filepath"
 	"sort"
+	"strconv"
 	"strings"
 	"sync"
 	"time"
@@ -19,10 +21,19 @@ import (
 // changed and removed files without disturbing requests in flight: a
 // replaced model is closed only when the last caller that acquired it has
 // released it. It is safe for concurrent use.
+//
+// Models are ordered by name, then version (compareVersions), then file
+// path; List returns them in that order after the default model, and the
+// newest version of a name is the last of its name in that order.
 type Registry struct {
 	dir  string
 	opts Options
 	log  *slog.Logger
+
+	// reload serialises Reload: two scans at once would both load a
+	// changed file and the second would replace the first's model
+	// without retiring it.
+	reload sync.Mutex
 
 	mu      sync.Mutex
 	def     *entry
@@ -74,6 +85,8 @@ func (r *Registry) Reload() {
 	if r.dir == "" {
 		return
 	}
+	r.reload.Lock()
+	defer r.reload.Unlock()
 	paths, err := filepath.Glob(filepath.Join(r.dir, "*.onnx"))
 	if err != nil {
 		r.log.Error("scan models folder", "dir", r.dir, "err", err)
@@ -144,8 +157,9 @@ func (r *Registry) retire(e *entry) {
 
 // Acquire returns the model with the given name and version ("" for the
 // default model; an empty version takes the newest loaded version of the
-// name) and a release function the caller must call when done.
-func (r *Registry) Acquire(name, version string) (*Model, func(), error) {
+// name, by compareVersions) and a release function the caller must call
+// when done.
+func (r *Registry) Acquire(name, version string) (midsag.Model, func(), error) {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	if r.closed {
@@ -177,6 +191,9 @@ func versionSuffix(v string) string {
 	return " version " + v
 }
 
+// find returns the entry of name and version; an empty version finds the
+// newest. Among equal versions the default model, then the first file
+// path, wins. r.mu is held.
 func (r *Registry) find(name, version string) *entry {
 	if name == "" && version == "" {
 		return r.def
@@ -187,25 +204,56 @@ func (r *Registry) find(name, version string) *entry {
 		if info.Name != name || (version != "" && info.Version != version) {
 			continue
 		}
-		if best == nil || info.Version > best.m.Info().Version {
+		if best == nil || compareVersions(info.Version, best.m.Info().Version) > 0 {
 			best = e
 		}
 	}
 	return best
 }
 
-// all returns the default entry and the folder's entries; r.mu is held.
+// all returns the default entry, then the folder's entries by name,
+// version and path; r.mu is held.
 func (r *Registry) all() []*entry {
-	out := []*entry{r.def}
-	paths := make([]string, 0, len(r.byFile))
-	for p := range r.byFile {
-		paths = append(paths, p)
+	folder := make([]*entry, 0, len(r.byFile))
+	for _, e := range r.byFile {
+		folder = append(folder, e)
 	}
-	sort.Strings(paths)
-	for _, p := range paths {
-		out = append(out, r.byFile[p])
+	sort.Slice(folder, func(i, j int) bool {
+		a, b := folder[i].m.Info(), folder[j].m.Info()
+		if a.Name != b.Name {
+			return a.Name < b.Name
+		}
+		if c := compareVersions(a.Version, b.Version); c != 0 {
+			return c < 0
+		}
+		return folder[i].path < folder[j].path
+	})
+	return append([]*entry{r.def}, folder...)
+}
+
+// compareVersions orders manifest versions: a leading "v" is dropped,
+// the rest split at dots, and the parts compared in turn, numerically
+// when both are decimal numbers and as strings otherwise; a version that
+// is a prefix of another sorts first. So "9" < "10", "1.9" < "1.10" and
+// "1.2" < "1.2.1" (the precedence of dotted numbers in Semantic
+// Versioning 2.0.0 item 11, without its pre-release rules).
+func compareVersions(a, b string) int {
+	pa := strings.Split(strings.TrimPrefix(a, "v"), ".")
+	pb := strings.Split(strings.TrimPrefix(b, "v"), ".")
+	for i := 0; i < len(pa) && i < len(pb); i++ {
+		na, ea := strconv.ParseUint(pa[i], 10, 64)
+		nb, eb := strconv.ParseUint(pb[i], 10, 64)
+		var c int
+		if ea == nil && eb == nil {
+			c = cmp.Compare(na, nb)
+		} else {
+			c = strings.Compare(pa[i], pb[i])
+		}
+		if c != 0 {
+			return c
+		}
 	}
-	return out
+	return cmp.Compare(len(pa), len(pb))
 }
 
 func (r *Registry) namesLocked() []string {
@@ -216,7 +264,8 @@ func (r *Registry) namesLocked() []string {
 	return names
 }
 
-// List describes every model in service, the default first.
+// List describes every model in service: the default first, then by
+// name, version and file path.
 func (r *Registry) List() []RegistryEntry {
 	r.mu.Lock()
 	defer r.mu.Unlock()

@@ -11,18 +11,65 @@ import (
 	"sync"
 	"time"
 
+	"golang.org/x/sync/errgroup"
+
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/models"
-	"github.com/midsag/midsag/preprocess"
 	"github.com/midsag/midsag/server/store"
 )
 
+// Store is where Core keeps instances, jobs and results durably.
+// *store.Store implements it.
+type Store interface {
+	// Put stores an instance's bytes and row; the bool is true for an
+	// identical duplicate. store.ErrStudyFull refuses a full study.
+	Put(ctx context.Context, inst store.Instance, data []byte) (store.Instance, bool, error)
+	// Open opens an instance's stored bytes.
+	Open(inst store.Instance) (io.ReadCloser, error)
+	// Instances lists a study's instances up to maxSeq (all when <= 0) in
+	// arrival order; InstancesBySOP those among the UIDs.
+	Instances(ctx context.Context, studyUID string, maxSeq int64) ([]store.Instance, error)
+	InstancesBySOP(ctx context.Context, sopUIDs []string) ([]store.Instance, error)
+	// DueStudies lists studies quiet since quietSince with instances no
+	// whole-study record covers.
+	DueStudies(ctx context.Context, quietSince time.Time) ([]store.StudyState, error)
+	CreateRecord(ctx context.Context, r Record) (Record, error)
+	UpdateRecord(ctx context.Context, r Record) error
+	Record(ctx context.Context, id string) (Record, error)
+	ListRecords(ctx context.Context, q Query) ([]Record, string, error)
+	// Unfinished lists records left pending or running.
+	Unfinished(ctx context.Context) ([]Record, error)
+	WriteArtifact(id, name string, data []byte) error
+	ReadArtifact(id, name string) ([]byte, error)
+}
+
+// Registry holds the models Core can score with. *models.Registry
+// implements it.
+type Registry interface {
+	// Acquire returns a model by name and version ("" for the default)
+	// and a release function the caller must call when done.
+	Acquire(name, version string) (midsag.Model, func(), error)
+	// List describes every model in service, the default first.
+	List() []models.RegistryEntry
+}
+
+// Preprocessor reads headers at ingest and prepares studies for the
+// Pipeline. *preprocess.Preprocessor implements it.
+type Preprocessor interface {
+	midsag.Preprocessor
+	// ReadHeader parses a stream of size bytes up to its pixel data.
+	ReadHeader(name string, r io.Reader, size int64) (*midsag.Instance, error)
+}
+
 // Config configures a Core.
 type Config struct {
-	Store    *store.Store
-	Registry *models.Registry
-	Pre      *preprocess.Preprocessor
+	Store    Store
+	Registry Registry
+	Pre      Preprocessor
+	// Explainer makes the occlusion maps of jobs that ask for one, or of
+	// every job with Explain; nil refuses such jobs as failed.
+	Explainer midsag.Explainer
 	// Settle is how long a study must receive nothing before it is scored.
 	Settle time.Duration
 	// Workers is the number of studies scored at once (default 1: each
@@ -36,9 +83,8 @@ type Config struct {
 	Logger                 *slog.Logger
 	Metrics                *Metrics
 	// Explain adds an occlusion map to every job, not only to requests
-	// that ask for one; ExplainOptions configure the maps.
-	Explain        bool
-	ExplainOptions explain.Options
+	// that ask for one.
+	Explain bool
 	// SendTo, when set, receives the map of every explained result as a
 	// DICOM Secondary Capture (Part 10 bytes), e.g. to C-STORE it back to
 	// the PACS. A failure is logged; the result stands.
@@ -58,7 +104,11 @@ type Core struct {
 	queued  map[string]bool
 }
 
-var _ Backend = (*Core)(nil)
+var (
+	_ Backend  = (*Core)(nil)
+	_ Store    = (*store.Store)(nil)
+	_ Registry = (*models.Registry)(nil)
+)
 
 // New returns a Core; call Run to start its workers and scheduler.
 func New(cfg Config) *Core {
@@ -271,44 +321,50 @@ func (c *Core) Run(ctx context.Context, grace time.Duration) error {
 	}
 	workCtx, cancelWork := context.WithCancel(context.WithoutCancel(ctx))
 	defer cancelWork()
-	var wg sync.WaitGroup
-	for i := 0; i < c.cfg.Workers; i++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for {
-				select {
-				case <-ctx.Done():
-					return
-				case id := <-c.queue:
-					c.runJob(workCtx, id)
-				}
-			}
-		}()
-	}
-	// Re-queue interrupted jobs in the background: they may outnumber the
-	// queue, and the workers are already draining it.
-	go func() {
-		for _, r := range unfinished {
-			select {
-			case c.slots <- struct{}{}:
-				c.log.Info("resuming job", "result_id", r.ID, "study_instance_uid", r.StudyInstanceUID)
-				c.enqueue(r.ID)
-			case <-ctx.Done():
-				return
-			}
-		}
-	}()
+	jobs := make(chan *errgroup.Group, 1)
+	go func() { jobs <- c.dispatch(ctx, workCtx) }()
+	go c.resume(ctx, unfinished)
 	c.schedule(ctx)
-	done := make(chan struct{})
-	go func() { wg.Wait(); close(done) }()
-	select {
-	case <-done:
-	case <-time.After(grace):
-		cancelWork()
-		<-done
-	}
+	// Shutting down: running jobs get grace, then their context ends.
+	timer := time.AfterFunc(grace, cancelWork)
+	defer timer.Stop()
+	running := <-jobs
+	_ = running.Wait() // jobs record their own failures
 	return nil
+}
+
+// dispatch runs queued jobs, at most Workers at once, with workCtx until
+// ctx is cancelled, and returns the group of jobs still running. Jobs
+// run with workCtx, not ctx, so a shutdown gives them the grace period.
+func (c *Core) dispatch(ctx, workCtx context.Context) *errgroup.Group {
+	g := &errgroup.Group{}
+	g.SetLimit(c.cfg.Workers)
+	for {
+		select {
+		case <-ctx.Done():
+			return g
+		case id := <-c.queue:
+			g.Go(func() error {
+				c.runJob(workCtx, id)
+				return nil
+			})
+		}
+	}
+}
+
+// resume re-queues jobs interrupted by a previous run. It runs in the
+// background: they may outnumber the queue, and the workers are already
+// draining it.
+func (c *Core) resume(ctx context.Context, unfinished []Record) {
+	for _, r := range unfinished {
+		select {
+		case c.slots <- struct{}{}:
+			c.log.Info("resuming job", "result_id", r.ID, "study_instance_uid", r.StudyInstanceUID)
+			c.enqueue(r.ID)
+		case <-ctx.Done():
+			return
+		}
+	}
 }
 
 // schedule creates whole-study jobs for studies that have been quiet for
@@ -419,7 +475,10 @@ func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
 	defer release()
 	p := &midsag.Pipeline{Pre: c.cfg.Pre, Model: m, NewID: func() string { return rec.ID }}
 	if rec.Explain || c.cfg.Explain {
-		p.Explainer = explain.New(c.cfg.ExplainOptions)
+		if c.cfg.Explainer == nil {
+			return nil, errors.New("an occlusion map was asked for and this service has no explainer")
+		}
+		p.Explainer = c.cfg.Explainer
 	}
 	res, err := p.Run(ctx, sources)
 	if err != nil || res.Explanation == nil {

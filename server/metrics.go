@@ -5,6 +5,7 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
 
 	"github.com/midsag/midsag"
 )
@@ -52,7 +53,7 @@ func NewMetrics(queueDepth func() float64, associations func() float64) *Metrics
 		}, []string{"stage"}),
 	}
 	reg.MustRegister(m.requests, m.latency, m.instances, m.jobs, m.jobTime, m.stages,
-		prometheus.NewGoCollector(), prometheus.NewProcessCollector(prometheus.ProcessCollectorOpts{}),
+		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}),
 		prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "midsag_queue_depth", Help: "Scoring jobs queued or running."}, queueDepth),
 		prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "midsag_dicom_associations", Help: "Open DICOM associations."}, associations),
 	)

@@ -20,9 +20,8 @@ import (
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/cohort"
-	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/models"
-	"github.com/midsag/midsag/preprocess"
+	"github.com/midsag/midsag/pipeline"
 )
 
 func init() {
@@ -35,18 +34,14 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		"one row per study sorted by Study Instance UID. Finished studies are kept in OUT/batch.db:\n"+
 		"a rerun scores only what is missing (or all with --rescore). In batch, --threads 0 means\n"+
 		"one ONNX Runtime thread per study, with up to --workers studies in the model at once.", stderr)
-	var mf modelFlags
-	mf.register(fs)
+	var pf pipelineFlags
+	pf.register(fs, "also make an occlusion map of each study scored in this run: OUT/maps/STUDY_UID/ holds result.json, heatmap.png and heatmap.dcm")
 	out := fs.String("out", "", "output `folder` (results, header index and progress; required)")
 	workers := fs.Int("workers", runtime.NumCPU(), "studies scored at once; memory grows with it")
 	shardFlag := fs.String("shard", "", "score only shard `I/N` of the cohort: FNV-1a 64 of the Study Instance UID mod N equals I")
 	labels := fs.String("labels", "", "CSV `file` with study_instance_uid and label columns, joined as the label column")
 	rescore := fs.Bool("rescore", false, "score again studies already recorded with this model")
-	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
 	every := fs.Duration("progress-every", 30*time.Second, "`interval` of progress log lines when stderr is not a terminal")
-	withExplain := fs.Bool("explain", false, "also make an occlusion map of each study scored in this run: OUT/maps/STUDY_UID/ holds result.json, heatmap.png and heatmap.dcm")
-	var ef explainFlags
-	ef.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -60,7 +55,7 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if *every <= 0 {
 		return usagef("--progress-every must be positive")
 	}
-	eopts, err := ef.options()
+	cfg, err := pf.config(batchSession(pf.threads, *workers))
 	if err != nil {
 		return err
 	}
@@ -84,7 +79,7 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		}
 		labelMap = m
 	}
-	model, err := loadBatchModel(&mf, *workers)
+	pipe, model, err := pipeline.New(cfg)
 	if err != nil {
 		return err
 	}
@@ -95,11 +90,8 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	defer store.Close()
 
-	pre := preprocess.New(preprocess.Options{Lenient: *lenient})
-	pipe := &midsag.Pipeline{Pre: pre, Model: model}
 	var onScored func(context.Context, *midsag.Result) error
-	if *withExplain {
-		pipe.Explainer = explain.New(eopts)
+	if pipe.Explainer != nil {
 		onScored = func(_ context.Context, res *midsag.Result) error {
 			return writeStudyMaps(filepath.Join(*out, "maps"), res)
 		}
@@ -108,7 +100,6 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	sum, err := store.Run(ctx, cohort.Options{
 		OnScored: onScored,
 		Root:     root,
-		Headers:  pre,
 		Pipeline: pipe,
 		Workers:  *workers,
 		Shard:    shard,
@@ -183,19 +174,17 @@ func validUID(s string) bool {
 	return true
 }
 
-// loadBatchModel loads the model as modelFlags.load does, with its
-// concurrency set for many studies at once. By default each Predict uses
-// one intra-op thread and up to workers run at once: on 2 cores, 2
-// workers then keep both cores busy, one study's decode and stack overlap
-// another's model run, and ONNX Runtime never has more threads than
-// cores. With --threads T, runs are bounded to cores/T so T x runs stays
-// within the cores.
-func loadBatchModel(mf *modelFlags, workers int) (*models.Model, error) {
-	opts := models.Options{IntraOpThreads: 1, MaxConcurrent: min(workers, runtime.NumCPU())}
-	if mf.threads > 0 {
-		opts = models.Options{IntraOpThreads: mf.threads, MaxConcurrent: max(1, runtime.NumCPU()/mf.threads)}
+// batchSession returns the model's session options for many studies at
+// once. By default each Predict uses one intra-op thread and up to workers
+// run at once: on 2 cores, 2 workers then keep both cores busy, one
+// study's decode and stack overlap another's model run, and ONNX Runtime
+// never has more threads than cores. With --threads T, runs are bounded
+// to cores/T so T x runs stays within the cores.
+func batchSession(threads, workers int) models.Options {
+	if threads > 0 {
+		return models.Options{IntraOpThreads: threads, MaxConcurrent: max(1, runtime.NumCPU()/threads)}
 	}
-	return mf.loadWith(opts)
+	return models.Options{IntraOpThreads: 1, MaxConcurrent: min(workers, runtime.NumCPU())}
 }
 
 // progress shows a bar with count, rate and ETA on a terminal, and

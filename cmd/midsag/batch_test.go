@@ -224,6 +224,23 @@ func TestBatchEndToEnd(t *testing.T) {
 	if !strings.Contains(so.String(), "file not_dicom") {
 		t.Errorf("summary does not count the non-DICOM files:\n%s", so.String())
 	}
+	checkBatchRows(t, c, filepath.Join(outA, "results.csv"))
+	var eo, ee bytes.Buffer
+	if code := run(ctx, []string{"evaluate", "--table", filepath.Join(outA, "results.csv"), "--score-col", "calibrated_probability",
+		"--label-col", "label", "--positive", "1"}, &eo, &ee); code != 0 {
+		t.Errorf("evaluate on the batch table: exit %d: %s", code, ee.String())
+	}
+	want := withoutElapsed(t, filepath.Join(outA, "results.csv"))
+
+	t.Run("KillAndResume", func(t *testing.T) { killAndResume(t, c, want) })
+	t.Run("ShardsMerged", func(t *testing.T) { shardsMerged(t, c, want) })
+}
+
+// checkBatchRows checks the batch table: one row per study, sorted by
+// Study Instance UID, with the status and reason the cohort's damage
+// implies, the phantom's series for scored rows and the joined label.
+func checkBatchRows(t *testing.T, c batchCohort, table string) {
+	t.Helper()
 	labels := map[string]string{}
 	{
 		_, rows := readTable(t, c.labels)
@@ -231,7 +248,7 @@ func TestBatchEndToEnd(t *testing.T) {
 			labels[r[0]] = r[1]
 		}
 	}
-	head, rows := readTable(t, filepath.Join(outA, "results.csv"))
+	head, rows := readTable(t, table)
 	col := map[string]int{}
 	for i, h := range head {
 		col[h] = i
@@ -262,103 +279,104 @@ func TestBatchEndToEnd(t *testing.T) {
 	if len(seen) != len(c.want) {
 		t.Errorf("%d rows for %d studies", len(seen), len(c.want))
 	}
-	var eo, ee bytes.Buffer
-	if code := run(ctx, []string{"evaluate", "--table", filepath.Join(outA, "results.csv"), "--score-col", "calibrated_probability",
-		"--label-col", "label", "--positive", "1"}, &eo, &ee); code != 0 {
-		t.Errorf("evaluate on the batch table: exit %d: %s", code, ee.String())
+}
+
+// killAndResume kills a batch with SIGKILL a third of the way through,
+// resumes it and compares the table with want.
+func killAndResume(t *testing.T, c batchCohort, want [][]string) {
+	ctx := context.Background()
+	out := t.TempDir()
+	cmd := exec.Command(os.Args[0], "--", "batch", "--out", out, "--labels", c.labels, "--progress-every", "50ms", c.root)
+	cmd.Env = append(os.Environ(), "MIDSAG_TEST_AS_MAIN=1")
+	stderr, err := cmd.StderrPipe()
+	if err != nil {
+		t.Fatal(err)
 	}
-	want := withoutElapsed(t, filepath.Join(outA, "results.csv"))
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	killed := false
+	sc := bufio.NewScanner(stderr)
+	for sc.Scan() {
+		var line struct{ Done, Total int }
+		if json.Unmarshal(sc.Bytes(), &line) == nil && line.Total > 0 && line.Done >= line.Total/3 {
+			cmd.Process.Kill() // SIGKILL: no chance to clean up
+			killed = true
+			break
+		}
+	}
+	cmd.Wait()
+	if !killed {
+		t.Fatal("the batch finished before it could be killed")
+	}
+	var so, se bytes.Buffer
+	if code := run(ctx, []string{"batch", "--out", out, "--labels", c.labels, c.root}, &so, &se); code != 0 {
+		t.Fatalf("resume exit %d: %s", code, se.String())
+	}
+	if strings.Contains(so.String(), " 0 done before") {
+		t.Errorf("the resumed run redid every study:\n%s", so.String())
+	}
+	if got := withoutElapsed(t, filepath.Join(out, "results.csv")); !reflect.DeepEqual(got, want) {
+		t.Errorf("resumed table differs from the uninterrupted one:\n%v\nwant\n%v", got, want)
+	}
+}
 
-	t.Run("KillAndResume", func(t *testing.T) {
-		out := t.TempDir()
-		cmd := exec.Command(os.Args[0], "--", "batch", "--out", out, "--labels", c.labels, "--progress-every", "50ms", c.root)
+// shardsMerged runs three shard processes, merges them and compares the
+// table with want; a shard given twice and a shard of another model are
+// refused.
+func shardsMerged(t *testing.T, c batchCohort, want [][]string) {
+	ctx := context.Background()
+	base := t.TempDir()
+	var dirs []string
+	var wg sync.WaitGroup
+	errs := make([]error, 3)
+	outs := make([][]byte, 3)
+	for i := 0; i < 3; i++ {
+		dir := filepath.Join(base, "shard", string(rune('0'+i)))
+		dirs = append(dirs, dir)
+		cmd := exec.Command(os.Args[0], "--", "batch", "--out", dir, "--workers", "1", "--labels", c.labels,
+			"--shard", string(rune('0'+i))+"/3", c.root)
 		cmd.Env = append(os.Environ(), "MIDSAG_TEST_AS_MAIN=1")
-		stderr, err := cmd.StderrPipe()
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			outs[i], errs[i] = cmd.CombinedOutput()
+		}()
+	}
+	wg.Wait()
+	for i, err := range errs {
 		if err != nil {
-			t.Fatal(err)
+			t.Fatalf("shard %d: %v\n%s", i, err, outs[i])
 		}
-		if err := cmd.Start(); err != nil {
-			t.Fatal(err)
-		}
-		killed := false
-		sc := bufio.NewScanner(stderr)
-		for sc.Scan() {
-			var line struct{ Done, Total int }
-			if json.Unmarshal(sc.Bytes(), &line) == nil && line.Total > 0 && line.Done >= line.Total/3 {
-				cmd.Process.Kill() // SIGKILL: no chance to clean up
-				killed = true
-				break
-			}
-		}
-		cmd.Wait()
-		if !killed {
-			t.Fatal("the batch finished before it could be killed")
-		}
-		var so, se bytes.Buffer
-		if code := run(ctx, []string{"batch", "--out", out, "--labels", c.labels, c.root}, &so, &se); code != 0 {
-			t.Fatalf("resume exit %d: %s", code, se.String())
-		}
-		if strings.Contains(so.String(), " 0 done before") {
-			t.Errorf("the resumed run redid every study:\n%s", so.String())
-		}
-		if got := withoutElapsed(t, filepath.Join(out, "results.csv")); !reflect.DeepEqual(got, want) {
-			t.Errorf("resumed table differs from the uninterrupted one:\n%v\nwant\n%v", got, want)
-		}
-	})
-
-	t.Run("ShardsMerged", func(t *testing.T) {
-		base := t.TempDir()
-		var dirs []string
-		var wg sync.WaitGroup
-		errs := make([]error, 3)
-		outs := make([][]byte, 3)
-		for i := 0; i < 3; i++ {
-			dir := filepath.Join(base, "shard", string(rune('0'+i)))
-			dirs = append(dirs, dir)
-			cmd := exec.Command(os.Args[0], "--", "batch", "--out", dir, "--workers", "1", "--labels", c.labels,
-				"--shard", string(rune('0'+i))+"/3", c.root)
-			cmd.Env = append(os.Environ(), "MIDSAG_TEST_AS_MAIN=1")
-			wg.Add(1)
-			go func() {
-				defer wg.Done()
-				outs[i], errs[i] = cmd.CombinedOutput()
-			}()
-		}
-		wg.Wait()
-		for i, err := range errs {
-			if err != nil {
-				t.Fatalf("shard %d: %v\n%s", i, err, outs[i])
-			}
-		}
-		merged := filepath.Join(base, "merged")
-		var so, se bytes.Buffer
-		if code := run(ctx, append([]string{"merge", "--out", merged}, dirs...), &so, &se); code != 0 {
-			t.Fatalf("merge exit %d: %s", code, se.String())
-		}
-		if got := withoutElapsed(t, filepath.Join(merged, "results.csv")); !reflect.DeepEqual(got, want) {
-			t.Errorf("merged shards differ from the single run")
-		}
-		// A shard given twice overlaps itself.
-		se.Reset()
-		if code := run(ctx, []string{"merge", "--out", t.TempDir(), dirs[0], dirs[1], dirs[0]}, &so, &se); code != exitRejected || !strings.Contains(se.String(), "overlapping_studies") {
-			t.Errorf("overlapping shards: exit %d, %s", code, se.String())
-		}
-		// A shard made with another model (its sha256 edited) is refused.
-		jl := filepath.Join(dirs[2], "results.jsonl")
-		b, err := os.ReadFile(jl)
-		if err != nil {
-			t.Fatal(err)
-		}
-		var r struct {
-			ModelSHA256 string `json:"model_sha256"`
-		}
-		json.Unmarshal(b[:bytes.IndexByte(b, '\n')], &r)
-		writeFile(t, jl, bytes.ReplaceAll(b, []byte(r.ModelSHA256), []byte(strings.Repeat("0", 64))))
-		se.Reset()
-		if code := run(ctx, append([]string{"merge", "--out", t.TempDir()}, dirs...), &so, &se); code != exitRejected || !strings.Contains(se.String(), "mixed_models") {
-			t.Errorf("mixed models: exit %d, %s", code, se.String())
-		}
-	})
+	}
+	merged := filepath.Join(base, "merged")
+	var so, se bytes.Buffer
+	if code := run(ctx, append([]string{"merge", "--out", merged}, dirs...), &so, &se); code != 0 {
+		t.Fatalf("merge exit %d: %s", code, se.String())
+	}
+	if got := withoutElapsed(t, filepath.Join(merged, "results.csv")); !reflect.DeepEqual(got, want) {
+		t.Errorf("merged shards differ from the single run")
+	}
+	// A shard given twice overlaps itself.
+	se.Reset()
+	if code := run(ctx, []string{"merge", "--out", t.TempDir(), dirs[0], dirs[1], dirs[0]}, &so, &se); code != exitRejected || !strings.Contains(se.String(), "overlapping_studies") {
+		t.Errorf("overlapping shards: exit %d, %s", code, se.String())
+	}
+	// A shard made with another model (its sha256 edited) is refused.
+	jl := filepath.Join(dirs[2], "results.jsonl")
+	b, err := os.ReadFile(jl)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var r struct {
+		ModelSHA256 string `json:"model_sha256"`
+	}
+	json.Unmarshal(b[:bytes.IndexByte(b, '\n')], &r)
+	writeFile(t, jl, bytes.ReplaceAll(b, []byte(r.ModelSHA256), []byte(strings.Repeat("0", 64))))
+	se.Reset()
+	if code := run(ctx, append([]string{"merge", "--out", t.TempDir()}, dirs...), &so, &se); code != exitRejected || !strings.Contains(se.String(), "mixed_models") {
+		t.Errorf("mixed models: exit %d, %s", code, se.String())
+	}
 }
 
 // TestBatchUsage checks the refusals that need no model.

@@ -6,6 +6,7 @@ import (
 	"encoding/csv"
 	"encoding/json"
 	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"io/fs"
@@ -45,101 +46,139 @@ type calibrateReport struct {
 	Notice          string                `json:"notice"`
 }
 
+// calibrateFlags are the flags of midsag calibrate.
+type calibrateFlags struct {
+	table, scoreCol, labelCol, positive string
+	method, scoreKind, out, modelPath   string
+	prevalence                          float64
+	write, asJSON                       bool
+}
+
+func (c *calibrateFlags) register(fs *flag.FlagSet) {
+	fs.StringVar(&c.table, "table", "", "validation table `file` (CSV with a header row)")
+	fs.StringVar(&c.scoreCol, "score-col", "", "`column` holding the model's raw output")
+	fs.StringVar(&c.labelCol, "label-col", "", "`column` holding the label")
+	fs.StringVar(&c.positive, "positive", "", "label `value` of the positive class; every other value is negative")
+	fs.StringVar(&c.method, "method", "", "calibration `method`: temperature, platt or isotonic")
+	fs.StringVar(&c.scoreKind, "score-kind", "", "what the score is, `logit or probability` (default probability; with --model the manifest's output.kind)")
+	fs.Float64Var(&c.prevalence, "prevalence", 0, "positive `share` where the model will be used; adds a prior shift from the table's share (0 = none)")
+	fs.StringVar(&c.out, "out", "", "write the table with an added calibrated column to this `file`")
+	fs.StringVar(&c.modelPath, "model", "", "model `file` (.onnx): its manifest says whether the score is a logit")
+	fs.BoolVar(&c.write, "write", false, "store the calibrator in the model's sidecar manifest (needs --model)")
+	fs.BoolVar(&c.asJSON, "json", false, "print the parameters and diagnostics as JSON")
+}
+
+// check returns a usage error for a missing or contradictory flag.
+func (c *calibrateFlags) check() error {
+	if c.table == "" || c.scoreCol == "" || c.labelCol == "" || c.positive == "" {
+		return usagef("calibrate needs --table, --score-col, --label-col and --positive")
+	}
+	switch c.method {
+	case models.MethodTemperature, models.MethodPlatt, models.MethodIsotonic:
+	default:
+		return usagef("--method is %q, want temperature, platt or isotonic", c.method)
+	}
+	if c.prevalence != 0 && !(c.prevalence > 0 && c.prevalence < 1) {
+		return usagef("--prevalence must be strictly between 0 and 1, got %v", c.prevalence)
+	}
+	if c.write && c.modelPath == "" {
+		return usagef("--write needs --model")
+	}
+	if c.scoreKind != "" && c.scoreKind != models.KindLogit && c.scoreKind != models.KindProbability {
+		return usagef("--score-kind is %q, want logit or probability", c.scoreKind)
+	}
+	return nil
+}
+
+// kind returns what the table's score is: --score-kind, or with --model
+// the manifest's output kind (which --score-kind may not contradict), or
+// a probability; and the manifest when there is a model.
+func (c *calibrateFlags) kind() (string, *models.Manifest, error) {
+	if c.modelPath == "" {
+		if c.scoreKind == "" {
+			return models.KindProbability, nil, nil
+		}
+		return c.scoreKind, nil, nil
+	}
+	man, err := modelManifest(c.modelPath)
+	if err != nil {
+		return "", nil, err
+	}
+	if c.scoreKind != "" && c.scoreKind != man.Output.Kind {
+		return "", nil, usagef("--score-kind %s contradicts the manifest of %s, whose output.kind is %s", c.scoreKind, c.modelPath, man.Output.Kind)
+	}
+	return man.Output.Kind, man, nil
+}
+
 func runCalibrate(_ context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("calibrate", "", "Fits a calibrator (temperature, platt or isotonic) on a validation table of raw model\n"+
 		"outputs and labels, prints its parameters with NLL, Brier score and ECE before and after,\n"+
 		"and optionally writes the table with a calibrated column or stores the calibrator in the\n"+
 		"model's sidecar manifest (the .onnx file is never rewritten).", stderr)
-	table := fs.String("table", "", "validation table `file` (CSV with a header row)")
-	scoreCol := fs.String("score-col", "", "`column` holding the model's raw output")
-	labelCol := fs.String("label-col", "", "`column` holding the label")
-	positive := fs.String("positive", "", "label `value` of the positive class; every other value is negative")
-	method := fs.String("method", "", "calibration `method`: temperature, platt or isotonic")
-	scoreKind := fs.String("score-kind", "", "what the score is, `logit or probability` (default probability; with --model the manifest's output.kind)")
-	prevalence := fs.Float64("prevalence", 0, "positive `share` where the model will be used; adds a prior shift from the table's share (0 = none)")
-	out := fs.String("out", "", "write the table with an added calibrated column to this `file`")
-	modelPath := fs.String("model", "", "model `file` (.onnx): its manifest says whether the score is a logit")
-	write := fs.Bool("write", false, "store the calibrator in the model's sidecar manifest (needs --model)")
-	asJSON := fs.Bool("json", false, "print the parameters and diagnostics as JSON")
+	var c calibrateFlags
+	c.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
 	if fs.NArg() != 0 {
 		return usagef("calibrate takes no arguments, got %q", fs.Args())
 	}
-	if *table == "" || *scoreCol == "" || *labelCol == "" || *positive == "" {
-		return usagef("calibrate needs --table, --score-col, --label-col and --positive")
-	}
-	switch *method {
-	case models.MethodTemperature, models.MethodPlatt, models.MethodIsotonic:
-	default:
-		return usagef("--method is %q, want temperature, platt or isotonic", *method)
-	}
-	if *prevalence != 0 && !(*prevalence > 0 && *prevalence < 1) {
-		return usagef("--prevalence must be strictly between 0 and 1, got %v", *prevalence)
-	}
-	if *write && *modelPath == "" {
-		return usagef("--write needs --model")
-	}
-	if *scoreKind != "" && *scoreKind != models.KindLogit && *scoreKind != models.KindProbability {
-		return usagef("--score-kind is %q, want logit or probability", *scoreKind)
-	}
-
-	var man *models.Manifest
-	kind := *scoreKind
-	if *modelPath != "" {
-		var err error
-		if man, err = modelManifest(*modelPath); err != nil {
-			return reportRejection(err, *asJSON, stderr)
-		}
-		if kind != "" && kind != man.Output.Kind {
-			return usagef("--score-kind %s contradicts the manifest of %s, whose output.kind is %s", kind, *modelPath, man.Output.Kind)
-		}
-		kind = man.Output.Kind
-	}
-	if kind == "" {
-		kind = models.KindProbability
-	}
-
-	raw, err := os.ReadFile(*table)
-	if err != nil {
-		return fmt.Errorf("read table: %w", err)
-	}
-	header, rows, ft, err := readCalibrationTable(raw, *scoreCol, *labelCol, *positive, kind)
-	if err != nil {
-		return reportRejection(err, *asJSON, stderr)
-	}
-	spec, err := models.Fit(*method, ft, *prevalence)
-	if err != nil {
-		return reportRejection(fmt.Errorf("fit %s on %s: %w", *method, *table, err), *asJSON, stderr)
-	}
-	cal, err := models.CalibratorFromManifest(spec)
-	if err != nil {
-		return fmt.Errorf("fitted calibrator: %w", err)
-	}
-	rep, calibrated, err := diagnose(spec, cal, ft)
-	if err != nil {
+	if err := c.check(); err != nil {
 		return err
 	}
-	rep.Table, rep.Method, rep.ScoreKind = *table, *method, kind
-	if *out != "" {
-		if err := writeCalibratedTable(*out, header, rows, calibrated); err != nil {
-			return err
-		}
-		rep.Out = *out
+	kind, man, err := c.kind()
+	if err != nil {
+		return reportRejection(err, c.asJSON, stderr)
 	}
-	if *write {
-		path, err := writeSidecarCalibration(*modelPath, man, spec)
+	rep, err := c.fit(kind)
+	if err != nil {
+		return reportRejection(err, c.asJSON, stderr)
+	}
+	if c.write {
+		path, err := writeSidecarCalibration(c.modelPath, man, rep.Spec)
 		if err != nil {
 			return err
 		}
 		rep.Sidecar = path
 	}
-	if *asJSON {
+	if c.asJSON {
 		return printJSON(stdout, rep)
 	}
 	printCalibrateSummary(stdout, rep)
 	return nil
+}
+
+// fit reads the table, fits the calibrator, measures it and writes the
+// calibrated table with --out.
+func (c *calibrateFlags) fit(kind string) (*calibrateReport, error) {
+	raw, err := os.ReadFile(c.table)
+	if err != nil {
+		return nil, fmt.Errorf("read table: %w", err)
+	}
+	header, rows, ft, err := readCalibrationTable(raw, c.scoreCol, c.labelCol, c.positive, kind)
+	if err != nil {
+		return nil, err
+	}
+	spec, err := models.Fit(c.method, ft, c.prevalence)
+	if err != nil {
+		return nil, fmt.Errorf("fit %s on %s: %w", c.method, c.table, err)
+	}
+	cal, err := models.CalibratorFromManifest(spec)
+	if err != nil {
+		return nil, fmt.Errorf("fitted calibrator: %w", err)
+	}
+	rep, calibrated, err := diagnose(spec, cal, ft)
+	if err != nil {
+		return nil, err
+	}
+	rep.Table, rep.Method, rep.ScoreKind = c.table, c.method, kind
+	if c.out != "" {
+		if err := writeCalibratedTable(c.out, header, rows, calibrated); err != nil {
+			return nil, err
+		}
+		rep.Out = c.out
+	}
+	return rep, nil
 }
 
 // diagnose measures the table's probabilities before and after the

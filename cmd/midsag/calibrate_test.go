@@ -31,15 +31,8 @@ func TestCalibrateWritesSidecar(t *testing.T) {
 	copyFile(t, "../../models/testdata/tiny_logit.onnx", model)
 	before := fileSHA(t, model)
 
-	code, out, errs := runCLI("calibrate", "--table", calibTable, "--score-col", "logit", "--label-col", "label",
+	rep := calibrateJSON(t, "--table", calibTable, "--score-col", "logit", "--label-col", "label",
 		"--positive", "pos", "--method", "platt", "--model", model, "--write", "--json")
-	if code != exitOK {
-		t.Fatalf("exit %d: %s", code, errs)
-	}
-	var rep calibrateReport
-	if err := json.Unmarshal([]byte(out), &rep); err != nil {
-		t.Fatal(err)
-	}
 	if rep.Notice != midsag.Notice || rep.ScoreKind != "logit" || rep.Rows != 200 || rep.Positives != 63 ||
 		rep.Spec.Platt == nil || rep.Sidecar != models.SidecarPath(model) {
 		t.Fatalf("report %+v", rep)
@@ -53,26 +46,13 @@ func TestCalibrateWritesSidecar(t *testing.T) {
 	}
 
 	requireORT(t)
-	m, err := models.Load(model, models.Options{IntraOpThreads: 1})
-	if err != nil {
-		t.Fatalf("model no longer loads: %v", err)
-	}
 	a, b := rep.Spec.Platt.A, rep.Spec.Platt.B
-	s := m.Interpret(1.5)
-	m.Close()
-	if want := 1 / (1 + math.Exp(a*1.5+b)); s.Method != "platt" || math.Abs(s.Calibrated-want) > 1e-9 {
+	if s, want := interpretWith(t, model, 1.5), 1/(1+math.Exp(a*1.5+b)); s.Method != "platt" || math.Abs(s.Calibrated-want) > 1e-9 {
 		t.Errorf("Interpret(1.5) = %+v, want platt and %v", s, want)
 	}
 
-	code, out, errs = runCLI("calibrate", "--table", calibTable, "--score-col", "logit", "--label-col", "label",
+	rep = calibrateJSON(t, "--table", calibTable, "--score-col", "logit", "--label-col", "label",
 		"--positive", "pos", "--method", "isotonic", "--prevalence", "0.1", "--model", model, "--write", "--json")
-	if code != exitOK {
-		t.Fatalf("second run: exit %d: %s", code, errs)
-	}
-	rep = calibrateReport{}
-	if err := json.Unmarshal([]byte(out), &rep); err != nil {
-		t.Fatal(err)
-	}
 	side, err := os.ReadFile(models.SidecarPath(model))
 	if err != nil {
 		t.Fatal(err)
@@ -81,23 +61,44 @@ func TestCalibrateWritesSidecar(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if man.Name != "tiny_logit" || man.Calibration.PriorShift == nil ||
-		man.Calibration.PriorShift.TrainPrevalence != 0.315 || man.Calibration.PriorShift.TargetPrevalence != 0.1 {
+	if ps := man.Calibration.PriorShift; man.Name != "tiny_logit" || ps == nil || ps.TrainPrevalence != 0.315 || ps.TargetPrevalence != 0.1 {
 		t.Errorf("sidecar manifest %+v", man)
 	}
-	m, err = models.Load(model, models.Options{IntraOpThreads: 1})
-	if err != nil {
-		t.Fatalf("model no longer loads: %v", err)
-	}
-	defer m.Close()
 	iso := models.Isotonic{X: rep.Spec.Isotonic.X, Y: rep.Spec.Isotonic.Y}
-	s = m.Interpret(0.3)
-	if want := models.ShiftPrior(iso.Calibrate(models.Sigmoid(0.3)), 0.315, 0.1); s.Method != "isotonic+prior_shift" || math.Abs(s.Calibrated-want) > 1e-12 {
+	want := models.ShiftPrior(iso.Calibrate(models.Sigmoid(0.3)), 0.315, 0.1)
+	if s := interpretWith(t, model, 0.3); s.Method != "isotonic+prior_shift" || math.Abs(s.Calibrated-want) > 1e-12 {
 		t.Errorf("Interpret(0.3) = %+v, want isotonic+prior_shift and %v", s, want)
 	}
 	if fileSHA(t, model) != before {
 		t.Fatalf("the .onnx file changed")
 	}
+}
+
+// calibrateJSON runs calibrate with args, which include --json, and
+// returns its report; a nonzero exit fails the test.
+func calibrateJSON(t *testing.T, args ...string) calibrateReport {
+	t.Helper()
+	code, out, errs := runCLI(append([]string{"calibrate"}, args...)...)
+	if code != exitOK {
+		t.Fatalf("calibrate %v: exit %d: %s", args, code, errs)
+	}
+	var rep calibrateReport
+	if err := json.Unmarshal([]byte(out), &rep); err != nil {
+		t.Fatal(err)
+	}
+	return rep
+}
+
+// interpretWith loads the model file as it now is (sidecar included) and
+// interprets one raw output with it.
+func interpretWith(t *testing.T, model string, raw float64) midsag.Score {
+	t.Helper()
+	m, err := models.Load(model, models.Options{IntraOpThreads: 1})
+	if err != nil {
+		t.Fatalf("model no longer loads: %v", err)
+	}
+	defer m.Close()
+	return m.Interpret(raw)
 }
 
 // TestCalibrateOutTable checks --out: every original column kept, a

@@ -6,8 +6,8 @@ import (
 	"io"
 	"path/filepath"
 
-	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/phantom"
+	"github.com/midsag/midsag/pipeline"
 )
 
 func init() {
@@ -36,7 +36,8 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	}
 	// Score the study's own folder: labels.csv and truth.json beside it
 	// are the phantom's answers, not DICOM.
-	res, err := scoreStudyWith(ctx, &mf, false, explain.New(explain.Options{}), []string{filepath.Join(studyDir, "study-0000")})
+	cfg := pipeline.Config{Model: mf.config(), Explain: true}
+	res, err := scoreStudy(ctx, cfg, []string{filepath.Join(studyDir, "study-0000")})
 	if err != nil {
 		return reportRejection(err, *asJSON, stderr)
 	}

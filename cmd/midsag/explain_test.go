@@ -167,30 +167,43 @@ func TestBatchRetriesFailedStudies(t *testing.T) {
 	if code, _, stderr := runCLI("batch", "--explain", "--workers", "1", "--out", out, root); code != exitOK {
 		t.Fatalf("batch: exit %d: %s", code, stderr)
 	}
-	_, rows := readTable(t, filepath.Join(out, "results.csv"))
+	rows := batchRows(t, filepath.Join(out, "results.csv"), 2)
 	for _, r := range rows {
-		if r[1] != "failed" || r[2] != "error" || !strings.Contains(strings.Join(r, ","), "write the study's outputs") {
+		if r["status"] != "failed" || r["reason"] != "error" || !strings.Contains(r["message"], "write the study's outputs") {
 			t.Errorf("row %v: want failed, error, and the cause in the message", r)
 		}
 	}
 	if err := os.Remove(blocker); err != nil {
 		t.Fatal(err)
 	}
-	code, stdout, stderr := runCLI("batch", "--explain", "--workers", "1", "--out", out, root)
-	if code != exitOK {
+	if code, _, stderr := runCLI("batch", "--explain", "--workers", "1", "--out", out, root); code != exitOK {
 		t.Fatalf("rerun: exit %d: %s", code, stderr)
 	}
-	_, rows = readTable(t, filepath.Join(out, "results.csv"))
-	for _, r := range rows {
-		if r[1] != "scored" {
+	for _, r := range batchRows(t, filepath.Join(out, "results.csv"), 2) {
+		if r["status"] != "scored" {
 			t.Errorf("rerun row %v: want scored", r)
 		}
 	}
-	if len(rows) != 2 {
-		t.Errorf("%d rows, want 2", len(rows))
-	}
-	code, stdout, stderr = runCLI("batch", "--explain", "--out", out, root)
+	code, stdout, stderr := runCLI("batch", "--explain", "--out", out, root)
 	if code != exitOK || !strings.Contains(stderr+stdout, "0 to score, 2 already done") {
 		t.Errorf("second rerun: exit %d, want nothing to score:\n%s%s", code, stdout, stderr)
 	}
+}
+
+// batchRows reads a batch table as one map per row, column name to value,
+// and fails unless it holds n rows.
+func batchRows(t *testing.T, path string, n int) []map[string]string {
+	t.Helper()
+	head, rows := readTable(t, path)
+	if len(rows) != n {
+		t.Fatalf("%s: %d rows, want %d", path, len(rows), n)
+	}
+	out := make([]map[string]string, len(rows))
+	for i, r := range rows {
+		out[i] = map[string]string{}
+		for j, h := range head {
+			out[i][h] = r[j]
+		}
+	}
+	return out
 }

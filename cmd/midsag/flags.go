@@ -12,8 +12,8 @@ import (
 	"github.com/midsag/midsag/server"
 )
 
-// errFlagHelp is returned when -h was asked for; the usage is already printed.
-var errFlagHelp = errors.New("help requested")
+// errHelp is returned when -h was asked for; the usage is already printed.
+var errHelp = errors.New("help requested")
 
 // newFlags returns a FlagSet for verb whose usage text goes to stderr.
 func newFlags(verb, argsUsage, about string, stderr io.Writer) *flag.FlagSet {
@@ -31,7 +31,7 @@ func newFlags(verb, argsUsage, about string, stderr io.Writer) *flag.FlagSet {
 func parseFlags(fs *flag.FlagSet, args []string) error {
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
-			return errFlagHelp
+			return errHelp
 		}
 		return &usageError{msg: err.Error()}
 	}

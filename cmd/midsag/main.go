@@ -105,7 +105,7 @@ func exitCode(err error, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "midsag: %s\n", ue.msg)
 		return exitUsage
 	}
-	if errors.Is(err, errFlagHelp) {
+	if errors.Is(err, errHelp) {
 		return exitOK
 	}
 	if code := rejectionCode(err); code != 0 {

@@ -2,10 +2,9 @@ package main
 
 import (
 	"flag"
-	"fmt"
 
 	"github.com/midsag/midsag/models"
-	"github.com/midsag/midsag/models/demo"
+	"github.com/midsag/midsag/pipeline"
 )
 
 // modelFlags are the flags every verb that runs a model shares.
@@ -21,23 +20,13 @@ func (m *modelFlags) register(fs *flag.FlagSet) {
 	fs.IntVar(&m.threads, "threads", 0, "ONNX Runtime intra-op threads (0 = all cores)")
 }
 
-// load finds and initialises ONNX Runtime, then loads the model with
-// --threads intra-op threads and one run at a time.
-func (m *modelFlags) load() (*models.Model, error) {
-	return m.loadWith(models.Options{IntraOpThreads: m.threads})
+// config returns the model the flags name with --threads intra-op
+// threads and one run at a time.
+func (m *modelFlags) config() pipeline.ModelConfig {
+	return m.configWith(models.Options{IntraOpThreads: m.threads})
 }
 
-// loadWith is load with explicit session options.
-func (m *modelFlags) loadWith(opts models.Options) (*models.Model, error) {
-	lib, err := models.FindLibrary(m.ortLib)
-	if err != nil {
-		return nil, err
-	}
-	if err := models.Init(lib); err != nil {
-		return nil, fmt.Errorf("start ONNX Runtime from %s: %w", lib, err)
-	}
-	if m.model == "" {
-		return models.LoadBytes(demo.Name, demo.ONNX, nil, opts)
-	}
-	return models.Load(m.model, opts)
+// configWith is config with explicit session options.
+func (m *modelFlags) configWith(opts models.Options) pipeline.ModelConfig {
+	return pipeline.ModelConfig{Path: m.model, ORTLib: m.ortLib, Session: opts}
 }

@@ -12,7 +12,6 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
-	"sync"
 	"syscall"
 	"testing"
 	"time"
@@ -34,32 +33,13 @@ const (
 // association came from Orthanc.
 const orthancAET = "NSIL_PACS"
 
-// lockedBuffer collects a child process's output while the test reads it
-// for failure messages.
-type lockedBuffer struct {
-	mu  sync.Mutex
-	buf bytes.Buffer
-}
-
-func (b *lockedBuffer) Write(p []byte) (int, error) {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.buf.Write(p)
-}
-
-func (b *lockedBuffer) String() string {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.buf.String()
-}
-
 // orthanc is an Orthanc child process with its own configuration and
 // storage in a test folder.
 type orthanc struct {
 	t      *testing.T
 	cmd    *exec.Cmd
 	url    string // http://127.0.0.1:PORT
-	log    *lockedBuffer
+	log    *testtool.Buffer
 	exited chan struct{}
 	client *http.Client
 }
@@ -128,7 +108,7 @@ func startOrthanc(t *testing.T, s *service) *orthanc {
 	o := &orthanc{
 		t:      t,
 		url:    "http://127.0.0.1:" + strconv.Itoa(httpPort),
-		log:    &lockedBuffer{},
+		log:    &testtool.Buffer{},
 		exited: make(chan struct{}),
 		client: &http.Client{Timeout: 60 * time.Second},
 	}

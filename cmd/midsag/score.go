@@ -14,7 +14,8 @@ import (
 	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/inputs"
 	"github.com/midsag/midsag/internal/atomicfile"
-	"github.com/midsag/midsag/preprocess"
+	"github.com/midsag/midsag/models"
+	"github.com/midsag/midsag/pipeline"
 )
 
 func init() {
@@ -24,14 +25,10 @@ func init() {
 func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("score", "PATH...", "Reads one study from DICOM files, folders or a zip archive, picks the T2 sagittal\n"+
 		"series and its midline slices, runs the model on the CPU and prints the result.", stderr)
-	var mf modelFlags
-	mf.register(fs)
+	var pf pipelineFlags
+	pf.register(fs, "add an occlusion map to the result; with --out also write heatmap.png and heatmap.dcm")
 	asJSON := fs.Bool("json", false, "print the result (or the refusal) as JSON")
 	out := fs.String("out", "", "also write result.json into this `folder`")
-	lenient := fs.Bool("lenient", false, "accept DICOM files without the 128-byte preamble and DICM prefix")
-	withExplain := fs.Bool("explain", false, "add an occlusion map to the result; with --out also write heatmap.png and heatmap.dcm")
-	var ef explainFlags
-	ef.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -39,15 +36,11 @@ func runScore(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		fs.Usage()
 		return usagef("score needs at least one PATH")
 	}
-	eopts, err := ef.options()
+	cfg, err := pf.config(models.Options{IntraOpThreads: pf.threads})
 	if err != nil {
 		return err
 	}
-	var expl midsag.Explainer
-	if *withExplain {
-		expl = explain.New(eopts)
-	}
-	res, err := scoreStudyWith(ctx, &mf, *lenient, expl, fs.Args())
+	res, err := scoreStudy(ctx, cfg, fs.Args())
 	if err != nil {
 		return reportRejection(err, *asJSON, stderr)
 	}
@@ -85,20 +78,19 @@ func writeHeatmaps(dir string, res *midsag.Result) error {
 	return writeFileAtomic(filepath.Join(dir, "heatmap.dcm"), dcm)
 }
 
-// scoreStudyWith runs the one Pipeline on the given paths with an
-// Explainer, which may be nil.
-func scoreStudyWith(ctx context.Context, mf *modelFlags, lenient bool, expl midsag.Explainer, paths []string) (*midsag.Result, error) {
+// scoreStudy builds the one Pipeline from cfg and runs it on the given
+// paths as one study.
+func scoreStudy(ctx context.Context, cfg pipeline.Config, paths []string) (*midsag.Result, error) {
 	sources, closeSources, err := inputs.Collect(paths, inputs.DefaultLimits)
 	if err != nil {
 		return nil, err
 	}
 	defer closeSources()
-	model, err := mf.load()
+	p, model, err := pipeline.New(cfg)
 	if err != nil {
 		return nil, err
 	}
 	defer model.Close()
-	p := &midsag.Pipeline{Pre: preprocess.New(preprocess.Options{Lenient: lenient}), Model: model, Explainer: expl}
 	return p.Run(ctx, sources)
 }
 

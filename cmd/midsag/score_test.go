@@ -197,3 +197,46 @@ func TestScoreUsage(t *testing.T) {
 		t.Errorf("unknown flag: exit %d, want 2", code)
 	}
 }
+
+// TestLenientFlag: a study whose files lack the 128-byte preamble and the
+// "DICM" prefix (PS3.10 7.1) is refused by score as not_dicom, and scored
+// to the phantom's true centre slice with --lenient; serve and batch take
+// the same flag through the shared pipeline flags.
+func TestLenientFlag(t *testing.T) {
+	requireORT(t)
+	study, truth := phantomStudy(t, phantom.Options{Studies: 1, Seed: 35, NoDecoys: true})
+	bare := t.TempDir()
+	files, err := os.ReadDir(study)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range files {
+		b, err := os.ReadFile(filepath.Join(study, f.Name()))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(b) < 132 || string(b[128:132]) != "DICM" {
+			t.Fatalf("%s has no Part 10 preamble", f.Name())
+		}
+		writeFile(t, filepath.Join(bare, f.Name()), b[132:])
+	}
+	if code, _, errs := runCLI("score", bare); code != exitRejected || !strings.Contains(errs, "not_dicom") {
+		t.Errorf("without --lenient: exit %d, want %d and not_dicom: %s", code, exitRejected, errs)
+	}
+	code, out, errs := runCLI("score", "--lenient", "--json", bare)
+	if code != exitOK {
+		t.Fatalf("--lenient: exit %d: %s", code, errs)
+	}
+	var res midsag.Result
+	if err := json.Unmarshal([]byte(out), &res); err != nil {
+		t.Fatal(err)
+	}
+	if res.CenterSOPInstanceUID != truth.CenterSOPInstanceUID {
+		t.Errorf("--lenient: centre %s, truth %s", res.CenterSOPInstanceUID, truth.CenterSOPInstanceUID)
+	}
+	for _, verb := range []string{"serve", "batch"} {
+		if _, _, errs := runCLI(verb, "-h"); !strings.Contains(errs, "-lenient") {
+			t.Errorf("%s -h lists no --lenient:\n%s", verb, errs)
+		}
+	}
+}

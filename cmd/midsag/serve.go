@@ -13,6 +13,7 @@ import (
 	"os/signal"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"syscall"
 	"time"
 
@@ -20,9 +21,8 @@ import (
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/credentials"
 
-	"github.com/midsag/midsag/explain"
 	"github.com/midsag/midsag/models"
-	"github.com/midsag/midsag/preprocess"
+	"github.com/midsag/midsag/pipeline"
 	"github.com/midsag/midsag/server"
 	"github.com/midsag/midsag/server/dimse"
 	"github.com/midsag/midsag/server/grpcapi"
@@ -35,7 +35,7 @@ func init() {
 
 // serveFlags are the flags of midsag serve.
 type serveFlags struct {
-	modelFlags
+	pipelineFlags
 	modelsDir    string
 	httpAddr     string
 	grpcAddr     string
@@ -54,10 +54,7 @@ type serveFlags struct {
 	tlsCert      string
 	tlsKey       string
 	grace        time.Duration
-	explainAll   bool
-	explainFlags
-	explainOpts explain.Options
-	sendTo      string
+	sendTo       string
 }
 
 func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -65,7 +62,7 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		"--data-dir before it is acknowledged; a study is scored once nothing has arrived for\n"+
 		"--settle, or at once when posted to /v1/studies:score or the gRPC ScoreStudy call.", stderr)
 	var f serveFlags
-	f.modelFlags.register(fs)
+	f.pipelineFlags.register(fs, "add an occlusion map to every result (requests can also ask with explain=true)")
 	fs.StringVar(&f.modelsDir, "models-dir", "", "`folder` of extra models (NAME.onnx with manifest), reloaded on change and on SIGHUP")
 	fs.StringVar(&f.httpAddr, "http-addr", ":8080", "REST, STOW-RS, health and metrics `address` (empty disables)")
 	fs.StringVar(&f.grpcAddr, "grpc-addr", ":9090", "gRPC `address` (empty disables)")
@@ -83,8 +80,6 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&f.tokenFile, "token-file", "", "`file` of bearer tokens, one per line; when set, REST and gRPC require one")
 	fs.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate `file` for HTTP and gRPC (with --tls-key)")
 	fs.StringVar(&f.tlsKey, "tls-key", "", "TLS key `file`")
-	fs.BoolVar(&f.explainAll, "explain", false, "add an occlusion map to every result (requests can also ask with explain=true)")
-	f.explainFlags.register(fs)
 	fs.StringVar(&f.sendTo, "send-to", "", "send each result's map back as a DICOM Secondary Capture by C-STORE to `AE@host:port` (implies --explain)")
 	fs.DurationVar(&f.grace, "shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish; unfinished ones resume at the next start")
 	if err := parseFlags(fs, args); err != nil {
@@ -96,8 +91,7 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if (f.tlsCert == "") != (f.tlsKey == "") {
 		return usagef("--tls-cert and --tls-key go together")
 	}
-	var err error
-	if f.explainOpts, err = f.explainFlags.options(); err != nil {
+	if _, err := f.explainFlags.options(); err != nil {
 		return err
 	}
 	if f.sendTo != "" {
@@ -134,192 +128,292 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 	if err != nil {
 		return err
 	}
-	def, err := f.load()
+	tlsCfg, err := f.tls()
 	if err != nil {
 		return err
+	}
+	svc, err := openService(f, log)
+	if err != nil {
+		return err
+	}
+	defer svc.close()
+
+	runCtx, stop := context.WithCancel(ctx)
+	defer stop()
+	ls := &listeners{errs: make(chan error, 4)}
+	apiCfg := grpcapi.Config{Backend: svc.core, MaxBodyBytes: f.maxBody, Tokens: tokens, Logger: log, Observe: svc.metrics.ObserveRequest}
+	if err := ls.startGRPC(f, apiCfg, tlsCfg, log); err != nil {
+		ls.shutdown()
+		return err
+	}
+	if err := ls.startHTTP(runCtx, f, apiCfg, svc, tlsCfg, log); err != nil {
+		ls.shutdown()
+		return err
+	}
+	if err := ls.startDICOM(runCtx, f, svc, log); err != nil {
+		ls.shutdown()
+		return err
+	}
+	stopWatch := watchModels(svc.reg, log)
+	defer stopWatch()
+
+	coreDone := make(chan error, 1)
+	go func() { coreDone <- svc.core.Run(runCtx, f.grace) }()
+	log.Info("midsag serving", "data_dir", f.dataDir, "settle", f.settle.String())
+	select {
+	case <-ctx.Done():
+		log.Info("shutting down")
+	case err = <-ls.errs:
+		log.Error("listener failed; shutting down", "err", err)
+	}
+	// Listeners first, so nothing new arrives; then the core, whose
+	// running jobs get the grace period.
+	ls.shutdown()
+	stop()
+	cerr := <-coreDone
+	ls.wg.Wait()
+	log.Info("stopped")
+	if err != nil {
+		return err
+	}
+	return cerr
+}
+
+// tls loads the certificate of --tls-cert and --tls-key, or returns nil
+// without them.
+func (f *serveFlags) tls() (*tls.Config, error) {
+	if f.tlsCert == "" {
+		return nil, nil
+	}
+	cert, err := tls.LoadX509KeyPair(f.tlsCert, f.tlsKey)
+	if err != nil {
+		return nil, fmt.Errorf("load TLS certificate: %w", err)
+	}
+	return &tls.Config{Certificates: []tls.Certificate{cert}, MinVersion: tls.VersionTLS12}, nil
+}
+
+// serveParts is what the listeners share: the Core over the store and the
+// model registry and the metrics.
+type serveParts struct {
+	reg     *models.Registry
+	st      *store.Store
+	core    *server.Core
+	metrics *server.Metrics
+	// dimse is set once the DICOM listener starts, for the metrics.
+	dimse atomic.Pointer[dimse.Server]
+}
+
+// openService builds the Pipeline's parts from the flags, then the
+// registry (whose default is the Pipeline's model), the store and the
+// Core.
+func openService(f *serveFlags, log *slog.Logger) (*serveParts, error) {
+	cfg, err := f.pipelineFlags.config(models.Options{IntraOpThreads: f.threads})
+	if err != nil {
+		return nil, err
+	}
+	// Requests can ask for a map even when --explain is off: the Core
+	// holds the explainer and uses it per job.
+	explainAll := cfg.Explain || f.sendTo != ""
+	cfg.Explain = true
+	pipe, def, err := pipeline.New(cfg)
+	if err != nil {
+		return nil, err
 	}
 	reg, err := models.NewRegistry(def, f.modelsDir, models.Options{IntraOpThreads: f.threads}, log)
 	if err != nil {
 		def.Close()
-		return err
+		return nil, err
 	}
-	defer reg.Close()
 	st, err := store.Open(f.dataDir, store.Options{MaxInstancesPerStudy: f.maxInstances})
 	if err != nil {
-		return fmt.Errorf("open store: %w", err)
+		reg.Close()
+		return nil, fmt.Errorf("open store: %w", err)
 	}
-	defer st.Close()
-
-	var dsrv *dimse.Server
-	assocs := func() float64 {
-		if dsrv == nil {
-			return 0
-		}
-		return float64(dsrv.Stats().Active)
+	pre, ok := pipe.Pre.(server.Preprocessor)
+	if !ok {
+		st.Close()
+		reg.Close()
+		return nil, fmt.Errorf("preprocessor %T does not read headers alone", pipe.Pre)
 	}
-	var core *server.Core
-	metrics := server.NewMetrics(func() float64 { return float64(core.QueueDepth()) }, assocs)
-	var sendTo func(context.Context, []byte) error
-	if f.sendTo != "" {
-		ae, addr, _ := parseAEAddr(f.sendTo)
-		client := &dimse.Client{CallingAE: f.aeTitle, CalledAE: ae, Timeout: 30 * time.Second}
-		sendTo = func(ctx context.Context, part10 []byte) error {
-			statuses, err := client.Store(ctx, addr, [][]byte{part10})
-			if err != nil {
-				return err
-			}
-			if statuses[0] != 0x0000 && statuses[0]&0xF000 != 0xB000 {
-				return fmt.Errorf("C-STORE to %s: status %04X", f.sendTo, statuses[0])
-			}
-			return nil
-		}
-	}
-	core = server.New(server.Config{Store: st, Registry: reg, Pre: preprocess.New(preprocess.Options{}),
+	svc := &serveParts{reg: reg, st: st}
+	svc.metrics = server.NewMetrics(func() float64 { return float64(svc.core.QueueDepth()) }, svc.associations)
+	svc.core = server.New(server.Config{Store: st, Registry: reg, Pre: pre, Explainer: pipe.Explainer,
 		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances,
-		Logger: log, Metrics: metrics, Explain: f.explainAll || f.sendTo != "", SendTo: sendTo,
-		ExplainOptions: f.explainOpts})
+		Logger: log, Metrics: svc.metrics, Explain: explainAll, SendTo: f.sender()})
+	return svc, nil
+}
 
-	runCtx, stop := context.WithCancel(ctx)
-	defer stop()
+// associations counts the DICOM listener's open associations.
+func (s *serveParts) associations() float64 {
+	if d := s.dimse.Load(); d != nil {
+		return float64(d.Stats().Active)
+	}
+	return 0
+}
+
+func (s *serveParts) close() {
+	s.st.Close()
+	s.reg.Close()
+}
+
+// sender returns the C-STORE of --send-to, or nil without it.
+func (f *serveFlags) sender() func(context.Context, []byte) error {
+	if f.sendTo == "" {
+		return nil
+	}
+	ae, addr, _ := parseAEAddr(f.sendTo)
+	client := &dimse.Client{CallingAE: f.aeTitle, CalledAE: ae, Timeout: 30 * time.Second}
+	return func(ctx context.Context, part10 []byte) error {
+		statuses, err := client.Store(ctx, addr, [][]byte{part10})
+		if err != nil {
+			return err
+		}
+		if statuses[0] != 0x0000 && statuses[0]&0xF000 != 0xB000 {
+			return fmt.Errorf("C-STORE to %s: status %04X", f.sendTo, statuses[0])
+		}
+		return nil
+	}
+}
+
+// listeners runs the network listeners and stops them.
+type listeners struct {
+	wg   sync.WaitGroup
+	errs chan error
 	// shutdowns stop the listeners; they run before waiting for them.
-	var shutdowns []func()
-	var wg sync.WaitGroup
-	errs := make(chan error, 4)
-	start := func(name string, fn func() error) {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			if err := fn(); err != nil && !errors.Is(err, http.ErrServerClosed) && !errors.Is(err, grpc.ErrServerStopped) {
-				errs <- fmt.Errorf("%s: %w", name, err)
-			}
-		}()
-	}
+	shutdowns []func()
+}
 
-	var tlsCfg *tls.Config
-	if f.tlsCert != "" {
-		cert, err := tls.LoadX509KeyPair(f.tlsCert, f.tlsKey)
-		if err != nil {
-			return fmt.Errorf("load TLS certificate: %w", err)
+// start runs fn in the background; its failure, other than a clean
+// stop, goes to errs.
+func (ls *listeners) start(name string, fn func() error) {
+	ls.wg.Add(1)
+	go func() {
+		defer ls.wg.Done()
+		if err := fn(); err != nil && !errors.Is(err, http.ErrServerClosed) && !errors.Is(err, grpc.ErrServerStopped) {
+			ls.errs <- fmt.Errorf("%s: %w", name, err)
 		}
-		tlsCfg = &tls.Config{Certificates: []tls.Certificate{cert}, MinVersion: tls.VersionTLS12}
-	}
-	apiCfg := grpcapi.Config{Backend: core, MaxBodyBytes: f.maxBody, Tokens: tokens, Logger: log, Observe: metrics.ObserveRequest}
+	}()
+}
 
-	if f.grpcAddr != "" {
-		var opts []grpc.ServerOption
+func (ls *listeners) shutdown() {
+	for _, shutdown := range ls.shutdowns {
+		shutdown()
+	}
+	ls.shutdowns = nil
+}
+
+func (ls *listeners) startGRPC(f *serveFlags, apiCfg grpcapi.Config, tlsCfg *tls.Config, log *slog.Logger) error {
+	if f.grpcAddr == "" {
+		return nil
+	}
+	var opts []grpc.ServerOption
+	if tlsCfg != nil {
+		opts = append(opts, grpc.Creds(credentials.NewTLS(tlsCfg)))
+	}
+	gs, err := grpcapi.NewGRPCServer(apiCfg, opts...)
+	if err != nil {
+		return err
+	}
+	l, err := net.Listen("tcp", f.grpcAddr)
+	if err != nil {
+		return fmt.Errorf("gRPC listener: %w", err)
+	}
+	log.Info("gRPC listening", "addr", l.Addr().String())
+	ls.start("gRPC", func() error { return gs.Serve(l) })
+	ls.shutdowns = append(ls.shutdowns, func() {
+		stopped := make(chan struct{})
+		go func() { gs.GracefulStop(); close(stopped) }()
+		select {
+		case <-stopped:
+		case <-time.After(f.grace):
+			gs.Stop()
+		}
+	})
+	return nil
+}
+
+func (ls *listeners) startHTTP(ctx context.Context, f *serveFlags, apiCfg grpcapi.Config, svc *serveParts, tlsCfg *tls.Config, log *slog.Logger) error {
+	if f.httpAddr == "" {
+		return nil
+	}
+	extra := map[string]http.Handler{
+		"/healthz": http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { io.WriteString(w, "ok\n") }),
+		"/readyz":  readyHandler(svc.reg, svc.st),
+		"/metrics": promhttp.HandlerFor(svc.metrics.Registry, promhttp.HandlerOpts{}),
+	}
+	h, err := grpcapi.NewHTTPHandler(ctx, apiCfg, extra)
+	if err != nil {
+		return err
+	}
+	hs := &http.Server{Addr: f.httpAddr, Handler: h, TLSConfig: tlsCfg, ReadHeaderTimeout: 30 * time.Second}
+	l, err := net.Listen("tcp", f.httpAddr)
+	if err != nil {
+		return fmt.Errorf("HTTP listener: %w", err)
+	}
+	log.Info("HTTP listening", "addr", l.Addr().String(), "tls", tlsCfg != nil)
+	ls.start("HTTP", func() error {
 		if tlsCfg != nil {
-			opts = append(opts, grpc.Creds(credentials.NewTLS(tlsCfg)))
+			return hs.ServeTLS(l, "", "")
 		}
-		gs, err := grpcapi.NewGRPCServer(apiCfg, opts...)
-		if err != nil {
-			return err
+		return hs.Serve(l)
+	})
+	ls.shutdowns = append(ls.shutdowns, func() {
+		sctx, cancel := context.WithTimeout(context.Background(), f.grace)
+		defer cancel()
+		if err := hs.Shutdown(sctx); err != nil {
+			hs.Close()
 		}
-		l, err := net.Listen("tcp", f.grpcAddr)
-		if err != nil {
-			return fmt.Errorf("gRPC listener: %w", err)
-		}
-		log.Info("gRPC listening", "addr", l.Addr().String())
-		start("gRPC", func() error { return gs.Serve(l) })
-		shutdowns = append(shutdowns, func() {
-			stopped := make(chan struct{})
-			go func() { gs.GracefulStop(); close(stopped) }()
-			select {
-			case <-stopped:
-			case <-time.After(f.grace):
-				gs.Stop()
-			}
-		})
-	}
-	if f.httpAddr != "" {
-		extra := map[string]http.Handler{
-			"/healthz": http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { io.WriteString(w, "ok\n") }),
-			"/readyz":  readyHandler(reg, st),
-			"/metrics": promhttp.HandlerFor(metrics.Registry, promhttp.HandlerOpts{}),
-		}
-		h, err := grpcapi.NewHTTPHandler(runCtx, apiCfg, extra)
-		if err != nil {
-			return err
-		}
-		hs := &http.Server{Addr: f.httpAddr, Handler: h, TLSConfig: tlsCfg, ReadHeaderTimeout: 30 * time.Second}
-		l, err := net.Listen("tcp", f.httpAddr)
-		if err != nil {
-			return fmt.Errorf("HTTP listener: %w", err)
-		}
-		log.Info("HTTP listening", "addr", l.Addr().String(), "tls", tlsCfg != nil)
-		start("HTTP", func() error {
-			if tlsCfg != nil {
-				return hs.ServeTLS(l, "", "")
-			}
-			return hs.Serve(l)
-		})
-		shutdowns = append(shutdowns, func() {
-			sctx, cancel := context.WithTimeout(context.Background(), f.grace)
-			defer cancel()
-			if err := hs.Shutdown(sctx); err != nil {
-				hs.Close()
-			}
-		})
-	}
-	if f.dicomAddr != "" {
-		var allow []string
-		for _, a := range strings.Split(f.allowAE, ",") {
-			if a = strings.TrimSpace(a); a != "" {
-				allow = append(allow, a)
-			}
-		}
-		dsrv, err = dimse.NewServer(dimse.Config{AETitle: f.aeTitle, AllowedCallingAEs: allow, MaxAssociations: f.maxAssoc,
-			IdleTimeout: f.idle, MaxDatasetBytes: f.maxBody, Logger: log}, storeHandler(core))
-		if err != nil {
-			return err
-		}
-		l, err := net.Listen("tcp", f.dicomAddr)
-		if err != nil {
-			return fmt.Errorf("DICOM listener: %w", err)
-		}
-		log.Info("DICOM listening", "addr", l.Addr().String(), "ae_title", f.aeTitle)
-		start("DICOM", func() error { return dsrv.Serve(runCtx, l) })
-	}
+	})
+	return nil
+}
 
+func (ls *listeners) startDICOM(ctx context.Context, f *serveFlags, svc *serveParts, log *slog.Logger) error {
+	if f.dicomAddr == "" {
+		return nil
+	}
+	var allow []string
+	for _, a := range strings.Split(f.allowAE, ",") {
+		if a = strings.TrimSpace(a); a != "" {
+			allow = append(allow, a)
+		}
+	}
+	dsrv, err := dimse.NewServer(dimse.Config{AETitle: f.aeTitle, AllowedCallingAEs: allow, MaxAssociations: f.maxAssoc,
+		IdleTimeout: f.idle, MaxDatasetBytes: f.maxBody, Logger: log}, storeHandler(svc.core))
+	if err != nil {
+		return err
+	}
+	l, err := net.Listen("tcp", f.dicomAddr)
+	if err != nil {
+		return fmt.Errorf("DICOM listener: %w", err)
+	}
+	svc.dimse.Store(dsrv)
+	log.Info("DICOM listening", "addr", l.Addr().String(), "ae_title", f.aeTitle)
+	ls.start("DICOM", func() error { return dsrv.Serve(ctx, l) })
+	return nil
+}
+
+// watchModels reloads the registry's folder on change and on SIGHUP until
+// the returned function is called.
+func watchModels(reg *models.Registry, log *slog.Logger) func() {
 	hup := make(chan os.Signal, 1)
 	signal.Notify(hup, syscall.SIGHUP)
-	defer signal.Stop(hup)
-	watchStop := make(chan struct{})
-	defer close(watchStop)
-	go reg.Watch(watchStop, 2*time.Second)
+	stop := make(chan struct{})
+	go reg.Watch(stop, 2*time.Second)
 	go func() {
 		for {
 			select {
 			case <-hup:
 				log.Info("SIGHUP: reloading models")
 				reg.Reload()
-			case <-watchStop:
+			case <-stop:
 				return
 			}
 		}
 	}()
-
-	coreDone := make(chan error, 1)
-	go func() { coreDone <- core.Run(runCtx, f.grace) }()
-	log.Info("midsag serving", "data_dir", f.dataDir, "settle", f.settle.String())
-	select {
-	case <-ctx.Done():
-		log.Info("shutting down")
-	case err = <-errs:
-		log.Error("listener failed; shutting down", "err", err)
+	return func() {
+		signal.Stop(hup)
+		close(stop)
 	}
-	// Listeners first, so nothing new arrives; then the core, whose
-	// running jobs get the grace period.
-	for _, shutdown := range shutdowns {
-		shutdown()
-	}
-	stop()
-	cerr := <-coreDone
-	wg.Wait()
-	log.Info("stopped")
-	if err != nil {
-		return err
-	}
-	return cerr
 }
 
 // storeHandler answers a C-STORE with success only once the instance is

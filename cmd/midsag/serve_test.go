@@ -15,6 +15,7 @@ import (
 	"encoding/pem"
 	"fmt"
 	"io"
+	"io/fs"
 	"math/big"
 	"net"
 	"net/http"
@@ -70,7 +71,7 @@ type service struct {
 	t                       testing.TB
 	cmd                     *exec.Cmd
 	http, grpc, dicom, data string
-	log                     *bytes.Buffer
+	log                     *testtool.Buffer
 	exited                  chan struct{}
 }
 
@@ -102,7 +103,7 @@ func startServiceTLS(t testing.TB, data string, extra ...string) *service {
 func startServiceWith(t testing.TB, client *http.Client, scheme, data string, extra ...string) *service {
 	t.Helper()
 	requireORT(t)
-	s := &service{t: t, http: freePort(t), grpc: freePort(t), dicom: freePort(t), data: data, log: &bytes.Buffer{}, exited: make(chan struct{})}
+	s := &service{t: t, http: freePort(t), grpc: freePort(t), dicom: freePort(t), data: data, log: &testtool.Buffer{}, exited: make(chan struct{})}
 	args := append([]string{"-test.run=^$", "--", "serve", "--data-dir", data, "--http-addr", s.http,
 		"--grpc-addr", s.grpc, "--dicom-addr", s.dicom, "--settle", "500ms", "--shutdown-grace", "5s"}, extra...)
 	s.cmd = exec.Command(os.Args[0], args...)
@@ -169,17 +170,73 @@ func (s *service) results(study string) []map[string]any {
 // scored).
 func (s *service) waitResult(study string) map[string]any {
 	s.t.Helper()
+	return s.waitRecord(study, "a finished result", func(r map[string]any) bool {
+		return r["status"] == "done" || r["status"] == "rejected"
+	})
+}
+
+// waitCovering waits through REST for a done result of the study that
+// read all n instances sent (the series candidates' instance counts add
+// up to n). A study that settled while it was still arriving gets an
+// earlier version covering fewer; that one is not the answer.
+func (s *service) waitCovering(study string, n int) map[string]any {
+	s.t.Helper()
+	return s.waitRecord(study, fmt.Sprintf("a done result covering %d instances", n), func(r map[string]any) bool {
+		return r["status"] == "done" && coveredInstances(r) == n
+	})
+}
+
+// coveredInstances adds up the instances of a result's series candidates.
+func coveredInstances(r map[string]any) int {
+	n := 0
+	cands, _ := r["series_candidates"].([]any)
+	for _, c := range cands {
+		m, _ := c.(map[string]any)
+		v, _ := m["instances"].(float64)
+		n += int(v)
+	}
+	return n
+}
+
+// waitRecord waits up to 30 s for a record of the study that ok accepts;
+// on timeout it fails with every record's version, status, reason and
+// coverage, and the service log.
+func (s *service) waitRecord(study, what string, ok func(map[string]any) bool) map[string]any {
+	s.t.Helper()
 	deadline := time.Now().Add(30 * time.Second)
+	var last []map[string]any
 	for time.Now().Before(deadline) {
-		for _, r := range s.results(study) {
-			if r["status"] == "done" || r["status"] == "rejected" {
+		last = s.results(study)
+		for _, r := range last {
+			if ok(r) {
 				return r
 			}
 		}
 		time.Sleep(100 * time.Millisecond)
 	}
-	s.t.Fatalf("no result for study %s: %s", study, s.log.String())
+	var seen []string
+	for _, r := range last {
+		seen = append(seen, fmt.Sprintf("version %v: status %v, reason %v, %d instances, message %v",
+			r["version"], r["status"], r["reason"], coveredInstances(r), r["message"]))
+	}
+	s.t.Fatalf("no %s for study %s; records:\n%s\nservice log:\n%s", what, study, strings.Join(seen, "\n"), s.log.String())
 	return nil
+}
+
+// countFiles counts the files under dir.
+func countFiles(t testing.TB, dir string) int {
+	t.Helper()
+	n := 0
+	err := filepath.WalkDir(dir, func(_ string, d fs.DirEntry, err error) error {
+		if err == nil && !d.IsDir() {
+			n++
+		}
+		return err
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return n
 }
 
 func tcpNoDelay() []string { return append(os.Environ(), "TCP_NODELAY=1") }
@@ -207,14 +264,14 @@ func TestServeStorescuEchoAndREST(t *testing.T) {
 	if out, err := st.CombinedOutput(); err != nil {
 		t.Fatalf("storescu: %v %s", err, out)
 	}
-	r := s.waitResult(truths[0].StudyInstanceUID)
+	r := s.waitCovering(truths[0].StudyInstanceUID, countFiles(t, filepath.Join(dir, truths[0].Study)))
 	// The phantom writes Patient's Name PHANTOM^0001 and Patient ID
 	// NSIL61-0001 (phantom/write.go); neither may reach the logs.
 	if logs := s.log.String(); strings.Contains(logs, "PHANTOM^") || strings.Contains(logs, "NSIL61-") {
 		t.Errorf("service log holds patient name or ID:\n%s", logs)
 	}
-	if r["status"] != "done" || r["center_sop_instance_uid"] != truths[0].CenterSOPInstanceUID || r["notice"] != midsag.Notice {
-		t.Errorf("result centre %v, truth %s", r["center_sop_instance_uid"], truths[0].CenterSOPInstanceUID)
+	if r["center_sop_instance_uid"] != truths[0].CenterSOPInstanceUID || r["notice"] != midsag.Notice {
+		t.Errorf("result version %v centre %v, truth %s; notice %q", r["version"], r["center_sop_instance_uid"], truths[0].CenterSOPInstanceUID, r["notice"])
 	}
 	s.terminate()
 }
@@ -545,7 +602,7 @@ func TestServeExplainSendsSecondaryCapture(t *testing.T) {
 	scpAddr := freePort(t)
 	scp := exec.Command(testtool.Command(t, "storescp"), "-aet", "NSIL_PACS", "-od", scpDir, portOf(scpAddr))
 	scp.Env = tcpNoDelay()
-	var scpLog bytes.Buffer
+	var scpLog testtool.Buffer
 	scp.Stdout, scp.Stderr = &scpLog, &scpLog
 	if err := scp.Start(); err != nil {
 		t.Fatal(err)
@@ -562,7 +619,7 @@ func TestServeExplainSendsSecondaryCapture(t *testing.T) {
 	if out, err := st.CombinedOutput(); err != nil {
 		t.Fatalf("storescu: %v %s", err, out)
 	}
-	r := s.waitResult(truths[0].StudyInstanceUID)
+	r := s.waitCovering(truths[0].StudyInstanceUID, countFiles(t, filepath.Join(dir, truths[0].Study)))
 	if r["explanation"] == nil {
 		t.Fatalf("result has no explanation: %v", r)
 	}

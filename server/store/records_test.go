@@ -161,6 +161,11 @@ func TestRecordVersionsConcurrent(t *testing.T) {
 	}
 }
 
+// TestListRecordsPagingAndFilters creates 123 records over three studies
+// and four statuses (record i: study 2.(i%3), status i%4), then checks
+// that every page size lists each record once, newest first, in full
+// pages; that filters return exactly the matching records; that a bad
+// token is refused; and that Unfinished and Stats count by status.
 func TestListRecordsPagingAndFilters(t *testing.T) {
 	s := openT(t, t.TempDir(), Options{})
 	ctx := context.Background()
@@ -173,74 +178,104 @@ func TestListRecordsPagingAndFilters(t *testing.T) {
 		}
 		created[r.ID] = r
 	}
-	list := func(q Query) []Record {
-		t.Helper()
-		var all []Record
-		for pages := 0; ; pages++ {
-			page, next, err := s.ListRecords(ctx, q)
-			if err != nil {
-				t.Fatal(err)
-			}
-			want := q.PageSize
-			if want == 0 {
-				want = 50
-			}
-			if len(page) > want || (next != "" && len(page) != want) {
-				t.Fatalf("page of %d with size %d, next=%q", len(page), q.PageSize, next)
-			}
-			all = append(all, page...)
-			if next == "" {
-				return all
-			}
-			if pages > 200 {
-				t.Fatal("paging does not end")
-			}
-			q.PageToken = next
-		}
-	}
 	for _, size := range []int{0, 1, 10, 41, 123, 500} {
-		all := list(Query{PageSize: size})
-		seen := map[string]bool{}
-		for i, r := range all {
-			if seen[r.ID] || created[r.ID].ID == "" {
-				t.Fatalf("size %d: %s repeated or unknown", size, r.ID)
-			}
-			seen[r.ID] = true
-			if i > 0 && all[i-1].CreatedAt.Before(r.CreatedAt) {
-				t.Fatalf("size %d: not newest first at %d", size, i)
-			}
-		}
-		if len(seen) != 123 {
-			t.Fatalf("size %d: %d records, want 123", size, len(seen))
-		}
+		checkListsAll(t, listAll(t, s, Query{PageSize: size}), created)
 	}
 	for _, q := range []Query{{StudyInstanceUID: "2.1", PageSize: 7}, {Status: StatusDone, PageSize: 7},
 		{StudyInstanceUID: "2.2", Status: StatusFailed, PageSize: 3}} {
-		want := 0
-		for _, r := range created {
-			if (q.StudyInstanceUID == "" || r.StudyInstanceUID == q.StudyInstanceUID) && (q.Status == "" || r.Status == q.Status) {
-				want++
-			}
-		}
-		got := list(q)
-		for _, r := range got {
-			if (q.StudyInstanceUID != "" && r.StudyInstanceUID != q.StudyInstanceUID) || (q.Status != "" && r.Status != q.Status) {
-				t.Fatalf("%+v returned %+v", q, r)
-			}
-		}
-		if len(got) != want || want == 0 {
-			t.Fatalf("%+v: %d records, want %d", q, len(got), want)
-		}
+		checkFiltered(t, q, listAll(t, s, q), created)
 	}
 	if _, _, err := s.ListRecords(ctx, Query{PageToken: "!!"}); err == nil {
 		t.Fatal("bad page token accepted")
 	}
-
-	un, err := s.Unfinished(ctx)
+	checkUnfinished(t, s)
+	st, err := s.Stats(ctx)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(un) != 62 { // i%4 in {0,1} for i < 123: 31 + 31
+	if st.Records[StatusDone] != 31 || st.Records[StatusPending] != 31 || st.Records[StatusFailed] != 30 {
+		t.Fatalf("Stats.Records = %v", st.Records)
+	}
+}
+
+// listAll pages through ListRecords with q, checking that every page but
+// the last is full and none is larger than the page size (default 50).
+func listAll(t *testing.T, s *Store, q Query) []Record {
+	t.Helper()
+	size := q.PageSize
+	if size == 0 {
+		size = 50
+	}
+	var all []Record
+	for pages := 0; pages <= 200; pages++ {
+		page, next, err := s.ListRecords(context.Background(), q)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(page) > size || (next != "" && len(page) != size) {
+			t.Fatalf("page of %d with size %d, next=%q", len(page), q.PageSize, next)
+		}
+		all = append(all, page...)
+		if next == "" {
+			return all
+		}
+		q.PageToken = next
+	}
+	t.Fatal("paging does not end")
+	return nil
+}
+
+// checkListsAll checks that all holds every created record once, newest
+// first.
+func checkListsAll(t *testing.T, all []Record, created map[string]Record) {
+	t.Helper()
+	seen := map[string]bool{}
+	for i, r := range all {
+		if seen[r.ID] || created[r.ID].ID == "" {
+			t.Fatalf("%s repeated or unknown", r.ID)
+		}
+		seen[r.ID] = true
+		if i > 0 && all[i-1].CreatedAt.Before(r.CreatedAt) {
+			t.Fatalf("not newest first at %d", i)
+		}
+	}
+	if len(seen) != len(created) {
+		t.Fatalf("%d records, want %d", len(seen), len(created))
+	}
+}
+
+// checkFiltered checks that got is exactly the created records q matches,
+// and that there are some.
+func checkFiltered(t *testing.T, q Query, got []Record, created map[string]Record) {
+	t.Helper()
+	match := func(r Record) bool {
+		return (q.StudyInstanceUID == "" || r.StudyInstanceUID == q.StudyInstanceUID) && (q.Status == "" || r.Status == q.Status)
+	}
+	want := 0
+	for _, r := range created {
+		if match(r) {
+			want++
+		}
+	}
+	for _, r := range got {
+		if !match(r) {
+			t.Fatalf("%+v returned %+v", q, r)
+		}
+	}
+	if len(got) != want || want == 0 {
+		t.Fatalf("%+v: %d records, want %d", q, len(got), want)
+	}
+}
+
+// checkUnfinished checks that Unfinished lists the 62 pending and running
+// records (i%4 in {0,1} for i < 123: 31 + 31), oldest first.
+func checkUnfinished(t *testing.T, s *Store) {
+	t.Helper()
+	un, err := s.Unfinished(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(un) != 62 {
 		t.Fatalf("%d unfinished, want 62", len(un))
 	}
 	for i, r := range un {
@@ -250,12 +285,5 @@ func TestListRecordsPagingAndFilters(t *testing.T) {
 		if i > 0 && r.CreatedAt.Before(un[i-1].CreatedAt) {
 			t.Fatal("unfinished not oldest first")
 		}
-	}
-	st, err := s.Stats(ctx)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if st.Records[StatusDone] != 31 || st.Records[StatusPending] != 31 || st.Records[StatusFailed] != 30 {
-		t.Fatalf("Stats.Records = %v", st.Records)
 	}
 }
