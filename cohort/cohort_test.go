@@ -71,7 +71,7 @@ func TestDiscoverRereadsOnlyChanged(t *testing.T) {
 }
 
 // discover runs one discovery on two workers with the read count reset.
-func discover(t *testing.T, st *Store, root string, hr *countingHeaders) *Discovery {
+func discover(t *testing.T, st *Ledger, root string, hr *countingHeaders) *Discovery {
 	t.Helper()
 	hr.n.Store(0)
 	d, err := st.Discover(context.Background(), root, hr, 2)
@@ -82,7 +82,7 @@ func discover(t *testing.T, st *Store, root string, hr *countingHeaders) *Discov
 }
 
 // wantStudies checks every study of the phantom's truth was discovered.
-func wantStudies(t *testing.T, st *Store, truths []phantom.StudyTruth) {
+func wantStudies(t *testing.T, st *Ledger, truths []phantom.StudyTruth) {
 	t.Helper()
 	uids, err := st.Studies(context.Background())
 	if err != nil {

@@ -72,10 +72,10 @@ type fileInfo struct {
 // modification time, and records each file's Study Instance UID or the
 // reason it was refused. Symbolic links to files and folders are followed,
 // each folder walked once (inputs.Walk); the size and time recorded are
-// the link target's. Hidden files and folders, and the store's own
+// the link target's. Hidden files and folders, and the ledger's own
 // folder, are skipped. Unreadable files and broken links are recorded as
 // unreadable, never fatal.
-func (s *Store) Discover(ctx context.Context, root string, hr HeaderReader, workers int) (*Discovery, error) {
+func (s *Ledger) Discover(ctx context.Context, root string, hr HeaderReader, workers int) (*Discovery, error) {
 	gen, err := s.nextGen(ctx)
 	if err != nil {
 		return nil, err
@@ -121,7 +121,7 @@ func (s *Store) Discover(ctx context.Context, root string, hr HeaderReader, work
 	return d, nil
 }
 
-func (s *Store) nextGen(ctx context.Context) (int64, error) {
+func (s *Ledger) nextGen(ctx context.Context) (int64, error) {
 	var gen int64
 	err := s.db.QueryRowContext(ctx, `INSERT INTO state(key, value) VALUES('gen', 1)
 		ON CONFLICT(key) DO UPDATE SET value = value + 1 RETURNING value`).Scan(&gen)
@@ -134,7 +134,7 @@ func (s *Store) nextGen(ctx context.Context) (int64, error) {
 // discoverBatch looks the files up in the index, reads the headers of the
 // new or changed ones on workers goroutines, and records the batch in one
 // transaction.
-func (s *Store) discoverBatch(ctx context.Context, files []fileInfo, gen int64, hr HeaderReader, workers int, d *Discovery) error {
+func (s *Ledger) discoverBatch(ctx context.Context, files []fileInfo, gen int64, hr HeaderReader, workers int, d *Discovery) error {
 	if len(files) == 0 {
 		return nil
 	}
@@ -279,7 +279,7 @@ func readZip(f *os.File, arch indexRow, hr HeaderReader) []indexRow {
 
 // finishDiscovery drops entries of files no longer seen and counts
 // refusals and studies.
-func (s *Store) finishDiscovery(ctx context.Context, gen int64, d *Discovery) error {
+func (s *Ledger) finishDiscovery(ctx context.Context, gen int64, d *Discovery) error {
 	res, err := s.db.ExecContext(ctx, `DELETE FROM files WHERE gen != ?`, gen)
 	if err != nil {
 		return fmt.Errorf("cohort: prune index: %w", err)
@@ -309,7 +309,7 @@ func (s *Store) finishDiscovery(ctx context.Context, gen int64, d *Discovery) er
 }
 
 // Studies returns the Study Instance UIDs in the index, sorted.
-func (s *Store) Studies(ctx context.Context) ([]string, error) {
+func (s *Ledger) Studies(ctx context.Context) ([]string, error) {
 	rows, err := s.db.QueryContext(ctx, `SELECT DISTINCT study FROM files WHERE study != '' ORDER BY study`)
 	if err != nil {
 		return nil, fmt.Errorf("cohort: list studies: %w", err)
@@ -329,7 +329,7 @@ func (s *Store) Studies(ctx context.Context) ([]string, error) {
 // studyFile is one file of a study: a path, or an entry of a zip archive.
 type studyFile struct{ file, entry string }
 
-func (s *Store) studyFiles(ctx context.Context, uid string) ([]studyFile, error) {
+func (s *Ledger) studyFiles(ctx context.Context, uid string) ([]studyFile, error) {
 	rows, err := s.db.QueryContext(ctx, `SELECT file, entry FROM files WHERE study = ? ORDER BY path`, uid)
 	if err != nil {
 		return nil, fmt.Errorf("cohort: files of study: %w", err)

@@ -73,7 +73,7 @@ type Summary struct {
 // the end. If ctx is cancelled the studies in flight are dropped, the
 // tables are written and ctx's error is returned. Without opts.Headers
 // the Pipeline's preprocessor reads the headers, if it can.
-func (s *Store) Run(ctx context.Context, opts Options) (*Summary, error) {
+func (s *Ledger) Run(ctx context.Context, opts Options) (*Summary, error) {
 	start := time.Now()
 	if opts.Headers == nil && opts.Pipeline != nil {
 		opts.Headers, _ = opts.Pipeline.Pre.(HeaderReader)
@@ -116,7 +116,7 @@ type runPlan struct {
 }
 
 // plan discovers the studies and picks the shard's studies still to do.
-func (s *Store) plan(ctx context.Context, opts Options) (*runPlan, error) {
+func (s *Ledger) plan(ctx context.Context, opts Options) (*runPlan, error) {
 	pl := &runPlan{modelSHA: opts.Pipeline.Model.Info().SHA256, inShard: map[string]bool{}}
 	var err error
 	if pl.disc, err = s.Discover(ctx, opts.Root, opts.Headers, opts.Workers); err != nil {
@@ -149,7 +149,7 @@ func (s *Store) plan(ctx context.Context, opts Options) (*runPlan, error) {
 // writeTables writes results.csv and results.jsonl from the database.
 // The rows are streamed in study order, so writing them needs memory for
 // one row whatever the cohort's size.
-func (s *Store) writeTables(ctx context.Context, opts Options, pl *runPlan) error {
+func (s *Ledger) writeTables(ctx context.Context, opts Options, pl *runPlan) error {
 	tw, err := newTableWriter(s.dir, opts.Labels != nil)
 	if err != nil {
 		return err
@@ -172,7 +172,7 @@ func (s *Store) writeTables(ctx context.Context, opts Options, pl *runPlan) erro
 // recording each row as it finishes and rewriting the tables every
 // FlushEvery. The first failure to record a row or write the tables
 // stops the run and is returned.
-func (s *Store) scoreAll(ctx context.Context, opts Options, pl *runPlan, sum *Summary) error {
+func (s *Ledger) scoreAll(ctx context.Context, opts Options, pl *runPlan, sum *Summary) error {
 	every := opts.FlushEvery
 	if every <= 0 {
 		every = time.Minute
@@ -239,7 +239,7 @@ func cmpErr(first, err error) error {
 
 // scoreStudy runs the Pipeline on one study's files. It returns false
 // when the run was cancelled, so the study stays to do.
-func (s *Store) scoreStudy(ctx context.Context, p *midsag.Pipeline, onScored func(context.Context, *midsag.Result) error,
+func (s *Ledger) scoreStudy(ctx context.Context, p *midsag.Pipeline, onScored func(context.Context, *midsag.Result) error,
 	uid, modelSHA string) (Row, bool) {
 	t0 := time.Now()
 	row := Row{StudyInstanceUID: uid, ModelSHA256: modelSHA, Notice: midsag.Notice}

@@ -17,15 +17,18 @@ import (
 // index of the cohort and every finished study's row.
 const DBName = "batch.db"
 
-// Store is a batch's database in its output folder. One process uses a
-// folder at a time.
-type Store struct {
+// Ledger is a batch's database in its output folder: the header index of
+// the cohort (which files hold which study, read once) and the row of
+// every study scored, so a run resumes where it stopped. It is not the
+// service's store (server/store, the spool and result versions). One
+// process uses a folder at a time.
+type Ledger struct {
 	dir string
 	db  *sql.DB
 }
 
-// Open opens (creating if needed) the store in dir.
-func Open(dir string) (*Store, error) {
+// Open opens (creating if needed) the ledger in dir.
+func Open(dir string) (*Ledger, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("cohort: %w", err)
 	}
@@ -70,15 +73,15 @@ CREATE TABLE IF NOT EXISTS state (key TEXT PRIMARY KEY, value INTEGER NOT NULL);
 		db.Close()
 		return nil, fmt.Errorf("cohort: create tables in %s: %w", path, err)
 	}
-	return &Store{dir: dir, db: db}, nil
+	return &Ledger{dir: dir, db: db}, nil
 }
 
 // Close closes the database.
-func (s *Store) Close() error { return s.db.Close() }
+func (s *Ledger) Close() error { return s.db.Close() }
 
 // put records a finished study's row; the commit is synced before it
 // returns.
-func (s *Store) put(ctx context.Context, r Row) error {
+func (s *Ledger) put(ctx context.Context, r Row) error {
 	b, err := json.Marshal(r)
 	if err != nil {
 		return fmt.Errorf("cohort: encode row: %w", err)
@@ -95,7 +98,7 @@ func (s *Store) put(ctx context.Context, r Row) error {
 // not those that failed on a runtime error (I/O, model), which a rerun
 // tries again; rejected studies stay done, as their input would be
 // rejected again.
-func (s *Store) done(ctx context.Context, modelSHA string) (map[string]bool, error) {
+func (s *Ledger) done(ctx context.Context, modelSHA string) (map[string]bool, error) {
 	rows, err := s.db.QueryContext(ctx, `SELECT study FROM results WHERE model_sha256 = ? AND json_extract(row, '$.status') != 'failed'`, modelSHA)
 	if err != nil {
 		return nil, fmt.Errorf("cohort: read results: %w", err)
@@ -114,7 +117,7 @@ func (s *Store) done(ctx context.Context, modelSHA string) (map[string]bool, err
 
 // eachRow calls fn with each recorded row made with the model for the
 // given studies, in Study Instance UID order.
-func (s *Store) eachRow(ctx context.Context, modelSHA string, studies map[string]bool, fn func(Row) error) error {
+func (s *Ledger) eachRow(ctx context.Context, modelSHA string, studies map[string]bool, fn func(Row) error) error {
 	q, err := s.db.QueryContext(ctx, `SELECT study, row FROM results WHERE model_sha256 = ? ORDER BY study`, modelSHA)
 	if err != nil {
 		return fmt.Errorf("cohort: read results: %w", err)
