@@ -109,14 +109,19 @@ func (s *scanner) check(group, elem uint32, length int64, off, limit int) error 
 	return nil
 }
 
+// itemHeader reads the tag and length of the item header at off (PS3.5
+// 7.5); the caller has checked that 8 bytes remain.
+func (s *scanner) itemHeader(off int) (uint32, uint32) {
+	return uint32(s.bo.Uint16(s.data[off:]))<<16 | uint32(s.bo.Uint16(s.data[off+2:])), s.bo.Uint32(s.data[off+4:])
+}
+
 // sequence walks the items of a defined-length sequence.
 func (s *scanner) sequence(off, end, depth int) (int, error) {
 	for off < end {
 		if off+8 > end {
 			return 0, midsag.Rejectf(midsag.ReasonTruncated, "item header runs past its sequence")
 		}
-		tag := uint32(s.bo.Uint16(s.data[off:]))<<16 | uint32(s.bo.Uint16(s.data[off+2:]))
-		length := s.bo.Uint32(s.data[off+4:])
+		tag, length := s.itemHeader(off)
 		off += 8
 		if tag != tagItem {
 			return 0, midsag.Rejectf(midsag.ReasonNotDICOM, "expected an item tag in a sequence, found (%08X)", tag)
@@ -143,13 +148,12 @@ func (s *scanner) sequence(off, end, depth int) (int, error) {
 // items walks an undefined-length value: sequence items holding data sets,
 // or encapsulated pixel data fragments (PS3.5 A.4), up to the sequence
 // delimiter.
-func (s *scanner) items(off, depth int) (int, error) {
+func (s *scanner) items(off, depth int) (_ int, err error) {
 	for {
 		if off+8 > len(s.data) {
 			return 0, midsag.Rejectf(midsag.ReasonTruncated, "undefined-length value without its sequence delimiter")
 		}
-		tag := uint32(s.bo.Uint16(s.data[off:]))<<16 | uint32(s.bo.Uint16(s.data[off+2:]))
-		length := s.bo.Uint32(s.data[off+4:])
+		tag, length := s.itemHeader(off)
 		off += 8
 		switch tag {
 		case tagSequenceDelim:
@@ -159,11 +163,9 @@ func (s *scanner) items(off, depth int) (int, error) {
 			return 0, midsag.Rejectf(midsag.ReasonNotDICOM, "expected an item in an undefined-length value, found (%08X)", tag)
 		}
 		if length == undefinedLength {
-			next, err := s.dataset(off, -1, depth+1)
-			if err != nil {
+			if off, err = s.dataset(off, -1, depth+1); err != nil {
 				return 0, err
 			}
-			off = next
 			continue
 		}
 		if err := s.check(0xFFFE, 0xE000, int64(length), off, len(s.data)); err != nil {

@@ -71,17 +71,7 @@ func TestCoreScoresRequestAndSettledStudy(t *testing.T) {
 		t.Fatal(err)
 	}
 	uids := ingestAll(t, c, files)
-	rec, err := c.Score(context.Background(), ScoreRequest{SOPInstanceUIDs: uids})
-	if err != nil {
-		t.Fatal(err)
-	}
-	if rec.Status != StatusDone {
-		t.Fatalf("record %+v", rec)
-	}
-	var res midsag.Result
-	if err := json.Unmarshal(rec.ResultJSON, &res); err != nil {
-		t.Fatal(err)
-	}
+	rec, res := scoreDone(t, c, uids)
 	if res.ResultID != rec.ID || res.CenterSOPInstanceUID != truth.CenterSOPInstanceUID || res.Notice != midsag.Notice {
 		t.Errorf("result %s centre %s, want id %s centre %s", res.ResultID, res.CenterSOPInstanceUID, rec.ID, truth.CenterSOPInstanceUID)
 	}
@@ -211,4 +201,22 @@ func waitFor(t *testing.T, cond func() bool) {
 		time.Sleep(50 * time.Millisecond)
 	}
 	t.Fatal("condition not met within 20 s")
+}
+
+// scoreDone scores the instances by a direct request, which must finish
+// done, and returns the record and its result.
+func scoreDone(t *testing.T, c *Core, uids []string) (Record, *midsag.Result) {
+	t.Helper()
+	rec, err := c.Score(context.Background(), ScoreRequest{SOPInstanceUIDs: uids})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if rec.Status != StatusDone {
+		t.Fatalf("record %+v", rec)
+	}
+	var res midsag.Result
+	if err := json.Unmarshal(rec.ResultJSON, &res); err != nil {
+		t.Fatal(err)
+	}
+	return rec, &res
 }

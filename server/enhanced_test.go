@@ -3,7 +3,6 @@ package server
 import (
 	"bytes"
 	"context"
-	"encoding/json"
 	"io"
 	"testing"
 	"time"
@@ -57,17 +56,7 @@ func TestCoreScoresEnhancedMR(t *testing.T) {
 		t.Fatal(err)
 	}
 	uids := ingestAll(t, c, append([]phantom.File{enh}, rest...))
-	rec, err := c.Score(context.Background(), ScoreRequest{SOPInstanceUIDs: uids})
-	if err != nil {
-		t.Fatal(err)
-	}
-	if rec.Status != StatusDone {
-		t.Fatalf("record %+v", rec)
-	}
-	var res midsag.Result
-	if err := json.Unmarshal(rec.ResultJSON, &res); err != nil {
-		t.Fatal(err)
-	}
+	_, res := scoreDone(t, c, uids)
 	pos := func(r *midsag.Result) float64 {
 		for _, s := range r.Slices {
 			if s.SOPInstanceUID == r.CenterSOPInstanceUID && s.FrameNumber == r.CenterFrameNumber {
@@ -77,8 +66,8 @@ func TestCoreScoresEnhancedMR(t *testing.T) {
 		return -1e9
 	}
 	if res.SeriesInstanceUID != want.SeriesInstanceUID || res.Probability != want.Probability ||
-		res.CenterFrameNumber < 1 || pos(&res) != pos(want) {
+		res.CenterFrameNumber < 1 || pos(res) != pos(want) {
 		t.Errorf("enhanced: series %s p %v centre frame %d at %v mm; single-frame %s p %v at %v mm",
-			res.SeriesInstanceUID, res.Probability, res.CenterFrameNumber, pos(&res), want.SeriesInstanceUID, want.Probability, pos(want))
+			res.SeriesInstanceUID, res.Probability, res.CenterFrameNumber, pos(res), want.SeriesInstanceUID, want.Probability, pos(want))
 	}
 }

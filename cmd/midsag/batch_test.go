@@ -5,7 +5,6 @@ import (
 	"bufio"
 	"bytes"
 	"context"
-	"encoding/csv"
 	"encoding/json"
 	"os"
 	"os/exec"
@@ -16,6 +15,7 @@ import (
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
 	"github.com/midsag/midsag/preprocess"
 )
@@ -164,15 +164,7 @@ func zipStudyInto(t *testing.T, dir, archive string) {
 // readTable reads a results.csv as a header and rows keyed by study.
 func readTable(t *testing.T, path string) ([]string, [][]string) {
 	t.Helper()
-	f, err := os.Open(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	recs, err := csv.NewReader(f).ReadAll()
-	if err != nil {
-		t.Fatalf("%s: %v", path, err)
-	}
+	recs := testtool.ReadCSV(t, path)
 	return recs[0], recs[1:]
 }
 

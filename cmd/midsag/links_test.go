@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/csv"
 	"encoding/json"
 	"os"
 	"path/filepath"
@@ -10,6 +9,7 @@ import (
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
 )
 
@@ -77,15 +77,7 @@ func TestScoreAndBatchFollowLinks(t *testing.T) {
 	if !regexp.MustCompile(`file unreadable +1\n`).MatchString(sout) {
 		t.Errorf("batch summary does not count the dangling link as unreadable:\n%s", sout)
 	}
-	f, err := os.Open(filepath.Join(outDir, "results.csv"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	rows, err := csv.NewReader(f).ReadAll()
-	if err != nil {
-		t.Fatal(err)
-	}
+	rows := testtool.ReadCSV(t, filepath.Join(outDir, "results.csv"))
 	if len(rows) != 2 || !strings.Contains(strings.Join(rows[1], ","), truth.StudyInstanceUID) {
 		t.Errorf("batch rows %v, want the one linked study", rows)
 	}

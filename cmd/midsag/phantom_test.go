@@ -3,11 +3,12 @@ package main
 import (
 	"bytes"
 	"context"
-	"encoding/csv"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"github.com/midsag/midsag/internal/testtool"
 )
 
 func TestPhantomWritesStudiesAndLabels(t *testing.T) {
@@ -17,15 +18,7 @@ func TestPhantomWritesStudiesAndLabels(t *testing.T) {
 	if code != exitOK {
 		t.Fatalf("exit %d: %s", code, errb.String())
 	}
-	f, err := os.Open(filepath.Join(dir, "labels.csv"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	rows, err := csv.NewReader(f).ReadAll()
-	if err != nil {
-		t.Fatal(err)
-	}
+	rows := testtool.ReadCSV(t, filepath.Join(dir, "labels.csv"))
 	if len(rows) != 3 || rows[0][0] != "study_instance_uid" || rows[0][1] != "label" {
 		t.Fatalf("labels.csv rows %v", rows)
 	}

@@ -75,15 +75,8 @@ type service struct {
 	exited                  chan struct{}
 }
 
-func freePort(t testing.TB) string {
-	t.Helper()
-	l, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer l.Close()
-	return l.Addr().String()
-}
+// freePort returns a free loopback address for a service listener.
+func freePort(t testing.TB) string { return testtool.FreeAddr(t) }
 
 // startService starts midsag serve over data (a folder that may hold a
 // previous run's store) and waits until /readyz answers.

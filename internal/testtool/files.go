@@ -2,6 +2,7 @@ package testtool
 
 import (
 	"encoding/csv"
+	"net"
 	"os"
 	"path/filepath"
 	"testing"
@@ -36,4 +37,16 @@ func ReadCSV(t testing.TB, path string) [][]string {
 		t.Fatalf("%s: %v", path, err)
 	}
 	return recs
+}
+
+// FreeAddr returns a loopback address ("127.0.0.1:port") whose port was
+// free a moment ago, for programs that cannot be given port 0.
+func FreeAddr(t testing.TB) string {
+	t.Helper()
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer l.Close()
+	return l.Addr().String()
 }

@@ -139,14 +139,7 @@ func TestARTIM(t *testing.T) {
 // IdleTimeout.
 func TestIdleTimeout(t *testing.T) {
 	_, addr, _ := startSCP(t, Config{IdleTimeout: 300 * time.Millisecond}, (&received{}).handler(StatusSuccess))
-	c, err := net.Dial("tcp", addr)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer c.Close()
-	if _, err := c.Write(echoRQ()); err != nil {
-		t.Fatal(err)
-	}
+	c := dialEcho(t, addr)
 	got, closed := readAll(t, c, 5*time.Second)
 	if !closed || len(got) == 0 || got[0] != pduAssociateAC {
 		t.Fatalf("closed=%v reply % x, want A-ASSOCIATE-AC then close", closed, got[:min(len(got), 16)])

@@ -3,7 +3,6 @@ package dimse
 import (
 	"bytes"
 	"io"
-	"net"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -322,14 +321,7 @@ func TestEchoscuRejected(t *testing.T) {
 // limit; after the first is released, echoscu gets in.
 func TestEchoscuLocalLimit(t *testing.T) {
 	s, addr, port := startSCP(t, Config{MaxAssociations: 1}, (&received{}).handler(StatusSuccess))
-	c, err := net.Dial("tcp", addr)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer c.Close()
-	if _, err := c.Write(echoRQ()); err != nil {
-		t.Fatal(err)
-	}
+	c := dialEcho(t, addr)
 	var h [1]byte
 	if _, err := io.ReadFull(c, h[:]); err != nil || h[0] != pduAssociateAC {
 		t.Fatalf("first association: % x, %v", h, err)

@@ -8,7 +8,6 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
-	"strconv"
 	"sync"
 	"testing"
 	"time"
@@ -134,10 +133,24 @@ func studyDir(t testing.TB, seed int64, syntax string) (string, map[string][]byt
 // that cannot take port 0.
 func freePort(t testing.TB) string {
 	t.Helper()
-	l, err := net.Listen("tcp", "127.0.0.1:0")
+	_, port, err := net.SplitHostPort(testtool.FreeAddr(t))
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer l.Close()
-	return strconv.Itoa(l.Addr().(*net.TCPAddr).Port)
+	return port
+}
+
+// dialEcho opens a TCP connection to addr and sends an A-ASSOCIATE-RQ
+// for Verification; the caller reads the answer.
+func dialEcho(t *testing.T, addr string) net.Conn {
+	t.Helper()
+	c, err := net.Dial("tcp", addr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { c.Close() })
+	if _, err := c.Write(echoRQ()); err != nil {
+		t.Fatal(err)
+	}
+	return c
 }
