@@ -1,7 +1,6 @@
 package explain
 
 import (
-	"bytes"
 	"context"
 	"math"
 	"slices"
@@ -46,13 +45,9 @@ func phantomCases(t testing.TB, m midsag.Model, seed int64, n int) []phantomCase
 		if err != nil {
 			t.Fatal(err)
 		}
-		var insts []*midsag.Instance
-		for _, f := range files {
-			in, err := pre.Read(f.Name, bytes.NewReader(f.Data))
-			if err != nil {
-				t.Fatalf("%s: %v", f.Name, err)
-			}
-			insts = append(insts, in)
+		insts, err := phantom.ReadAll(pre, files)
+		if err != nil {
+			t.Fatal(err)
 		}
 		prep, err := pre.Prepare(context.Background(), insts, m.InputSpec())
 		if err != nil {

@@ -1,6 +1,7 @@
 package phantom
 
 import (
+	"bytes"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -414,4 +415,19 @@ func (s *study) acquisition(sr *series) {
 	if sr.flip == 0 {
 		sr.flip = 90
 	}
+}
+
+// ReadAll reads every file with pre, in order, for tests and tools that
+// hold a generated study in memory. The first refusal ends it, naming
+// the file.
+func ReadAll(pre midsag.Preprocessor, files []File) ([]*midsag.Instance, error) {
+	out := make([]*midsag.Instance, 0, len(files))
+	for _, f := range files {
+		in, err := pre.Read(f.Name, bytes.NewReader(f.Data))
+		if err != nil {
+			return nil, fmt.Errorf("%s: %w", f.Name, err)
+		}
+		out = append(out, in)
+	}
+	return out, nil
 }

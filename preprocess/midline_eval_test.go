@@ -135,14 +135,10 @@ func runEval(cases []evalCase) []evalOutcome {
 
 func evalOne(pre *Preprocessor, c evalCase) evalOutcome {
 	o := evalOutcome{scenario: c.scenario, inSlab: c.midline != ""}
-	var insts []*midsag.Instance
-	for _, f := range c.files {
-		in, err := pre.Read(f.Name, bytes.NewReader(f.Data))
-		if err != nil {
-			o.err = fmt.Errorf("read %s: %w", f.Name, err)
-			return o
-		}
-		insts = append(insts, in)
+	insts, err := phantom.ReadAll(pre, c.files)
+	if err != nil {
+		o.err = fmt.Errorf("read: %w", err)
+		return o
 	}
 	var se *midsag.Series
 	for _, s := range Group(insts)[0].Series {

@@ -15,14 +15,9 @@ import (
 // readStudy reads the files of one phantom study.
 func readStudy(t *testing.T, files []phantom.File) *midsag.Study {
 	t.Helper()
-	pre := New(Options{})
-	var insts []*midsag.Instance
-	for _, f := range files {
-		in, err := pre.Read(f.Name, bytes.NewReader(f.Data))
-		if err != nil {
-			t.Fatalf("%s: %v", f.Name, err)
-		}
-		insts = append(insts, in)
+	insts, err := phantom.ReadAll(New(Options{}), files)
+	if err != nil {
+		t.Fatal(err)
 	}
 	return Group(insts)[0]
 }
