@@ -282,6 +282,9 @@ func (s *Ledger) scoreStudy(ctx context.Context, p *midsag.Pipeline, onScored fu
 	row.Status = StatusScored
 	row.SeriesInstanceUID = res.SeriesInstanceUID
 	row.CenterSOPInstanceUID = res.CenterSOPInstanceUID
+	row.CenterFrameNumber = res.CenterFrameNumber
+	conf := res.MidlineConfidence
+	row.MidlineConfidence = &conf
 	row.RawOutput, row.Probability, row.CalibratedProbability = &res.RawOutput, &res.Probability, &res.CalibratedProb
 	row.Threshold = &res.Threshold
 	row.Decision = res.Decision

@@ -9,6 +9,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strconv"
 
@@ -41,6 +42,12 @@ type Row struct {
 	Message               string   `json:"message"`
 	SeriesInstanceUID     string   `json:"series_instance_uid"`
 	CenterSOPInstanceUID  string   `json:"center_sop_instance_uid"`
+	// CenterFrameNumber is the centre slice's frame in a multi-frame
+	// instance (1-based), 0 for a single-frame one.
+	CenterFrameNumber int `json:"center_frame_number"`
+	// MidlineConfidence is the midline pick's confidence, 0 to 1; nil for
+	// a study not scored.
+	MidlineConfidence *float64 `json:"midline_confidence"`
 	RawOutput             *float64 `json:"raw_output"`
 	Probability           *float64 `json:"probability"`
 	CalibratedProbability *float64 `json:"calibrated_probability"`
@@ -59,7 +66,7 @@ type Row struct {
 // csvHeader is the column order of results.csv; "label" follows
 // elapsed_ms when labels were joined.
 var csvHeader = []string{"study_instance_uid", "status", "reason", "series_instance_uid", "center_sop_instance_uid",
-	"raw_output", "probability", "calibrated_probability", "threshold", "decision", "quality_flags",
+	"center_frame_number", "midline_confidence", "raw_output", "probability", "calibrated_probability", "threshold", "decision", "quality_flags",
 	"model_sha256", "files", "elapsed_ms", "message", "notice"}
 
 func num(f *float64) string {
@@ -121,7 +128,8 @@ func newTableWriter(dir string, withLabel bool) (*tableWriter, error) {
 	tw.enc.SetEscapeHTML(false)
 	header := append([]string(nil), csvHeader...)
 	if withLabel {
-		header = append(header[:14:14], append([]string{"label"}, csvHeader[14:]...)...)
+		at := slices.Index(csvHeader, "elapsed_ms") + 1
+		header = append(header[:at:at], append([]string{"label"}, csvHeader[at:]...)...)
 	}
 	if err := tw.cw.Write(header); err != nil {
 		tw.abort()
@@ -135,8 +143,12 @@ func (tw *tableWriter) write(r Row) error {
 	if r.QualityFlags == nil {
 		flags = nil
 	}
+	frame := ""
+	if r.CenterFrameNumber > 0 {
+		frame = strconv.Itoa(r.CenterFrameNumber)
+	}
 	rec := []string{r.StudyInstanceUID, string(r.Status), r.Reason, r.SeriesInstanceUID, r.CenterSOPInstanceUID,
-		num(r.RawOutput), num(r.Probability), num(r.CalibratedProbability), num(r.Threshold), r.Decision, string(flags),
+		frame, num(r.MidlineConfidence), num(r.RawOutput), num(r.Probability), num(r.CalibratedProbability), num(r.Threshold), r.Decision, string(flags),
 		r.ModelSHA256, strconv.Itoa(r.Files), strconv.FormatFloat(r.ElapsedMS, 'f', 1, 64)}
 	if tw.withLabel {
 		label := ""

@@ -10,6 +10,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"reflect"
+	"strconv"
 	"strings"
 	"sync"
 	"testing"
@@ -263,6 +264,12 @@ func checkBatchRows(t *testing.T, c batchCohort, table string) {
 		}
 		if got == "scored/" && r[col["series_instance_uid"]] != c.series[uid] {
 			t.Errorf("study %s: series %s, the phantom's T2 sagittal is %s", uid, r[col["series_instance_uid"]], c.series[uid])
+		}
+		// The phantom writes single-frame instances: no frame number; a
+		// scored row has a confidence in [0, 1], an unscored one none.
+		conf, cerr := strconv.ParseFloat(r[col["midline_confidence"]], 64)
+		if r[col["center_frame_number"]] != "" || (got == "scored/") != (cerr == nil && conf >= 0 && conf <= 1) {
+			t.Errorf("study %s (%s): center_frame_number %q, midline_confidence %q", uid, got, r[col["center_frame_number"]], r[col["midline_confidence"]])
 		}
 		if r[col["label"]] != labels[uid] {
 			t.Errorf("study %s: label %q, labels.csv says %q", uid, r[col["label"]], labels[uid])
