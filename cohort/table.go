@@ -36,18 +36,18 @@ const (
 
 // Row is one study's line in results.csv and results.jsonl.
 type Row struct {
-	StudyInstanceUID      string   `json:"study_instance_uid"`
-	Status                Status   `json:"status"`
-	Reason                string   `json:"reason"`
-	Message               string   `json:"message"`
-	SeriesInstanceUID     string   `json:"series_instance_uid"`
-	CenterSOPInstanceUID  string   `json:"center_sop_instance_uid"`
+	StudyInstanceUID     string `json:"study_instance_uid"`
+	Status               Status `json:"status"`
+	Reason               string `json:"reason"`
+	Message              string `json:"message"`
+	SeriesInstanceUID    string `json:"series_instance_uid"`
+	CenterSOPInstanceUID string `json:"center_sop_instance_uid"`
 	// CenterFrameNumber is the centre slice's frame in a multi-frame
 	// instance (1-based), 0 for a single-frame one.
 	CenterFrameNumber int `json:"center_frame_number"`
 	// MidlineConfidence is the midline pick's confidence, 0 to 1; nil for
 	// a study not scored.
-	MidlineConfidence *float64 `json:"midline_confidence"`
+	MidlineConfidence     *float64 `json:"midline_confidence"`
 	RawOutput             *float64 `json:"raw_output"`
 	Probability           *float64 `json:"probability"`
 	CalibratedProbability *float64 `json:"calibrated_probability"`
