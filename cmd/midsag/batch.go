@@ -84,11 +84,11 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		return err
 	}
 	defer model.Close()
-	store, err := cohort.Open(*out)
+	ledger, err := cohort.Open(*out)
 	if err != nil {
 		return err
 	}
-	defer store.Close()
+	defer ledger.Close()
 
 	var onScored func(context.Context, *midsag.Result) error
 	if pipe.Explainer != nil {
@@ -97,7 +97,7 @@ func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		}
 	}
 	prog := newProgress(stderr, *every)
-	sum, err := store.Run(ctx, cohort.Options{
+	sum, err := ledger.Run(ctx, cohort.Options{
 		OnScored: onScored,
 		Root:     root,
 		Pipeline: pipe,
