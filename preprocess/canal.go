@@ -81,6 +81,9 @@ type canalCue struct {
 	// BottomMM bound the column from above and below.
 	HeightMM        float64
 	TopMM, BottomMM float64
+	// rows marks the grid rows (canalGridMM each, from the top) that the
+	// column covers: the per-level cue of the obliquity measurement.
+	rows []bool
 }
 
 // resampleGrid turns a canonical image (rows superior to inferior, columns
@@ -152,8 +155,12 @@ func measureCanal(pix []float32, h, w int, bright float64) canalCue {
 	for y := range rows {
 		rows[y] = rowTriplets(sm[y*w:(y+1)*w], bright)
 	}
-	n, top, bottom, seps := longestColumn(rows)
+	n, top, bottom, seps, covered := longestColumn(rows)
 	if n > 0 {
+		cue.rows = make([]bool, h)
+		for _, y := range covered {
+			cue.rows[y] = true
+		}
 		cue.ColumnMM, cue.DepthMM = float64(n)*canalGridMM, median(seps)
 		cue.TopMM, cue.BottomMM = float64(top)*canalGridMM, float64(bottom+1)*canalGridMM
 	}
@@ -227,9 +234,9 @@ func rowTriplets(p []float32, bright float64) []triplet {
 
 // longestColumn links crossings of successive rows into columns, each
 // crossing within the drift of one at most canalGapMM above it, and
-// returns the number of rows of the longest, its first and last row and
-// its CSF separations.
-func longestColumn(rows [][]triplet) (n, top, bottom int, seps []float64) {
+// returns the number of rows of the longest, its first and last row, its
+// CSF separations and the rows it covers.
+func longestColumn(rows [][]triplet) (n, top, bottom int, seps []float64, covered []int) {
 	type node struct {
 		count, prevY, prevI int
 		triplet             triplet
@@ -261,10 +268,11 @@ func longestColumn(rows [][]triplet) (n, top, bottom int, seps []float64) {
 	for y, i := bestY, bestI; y >= 0; {
 		nd := chains[y][i]
 		seps = append(seps, nd.triplet.sep)
+		covered = append(covered, y)
 		top = y
 		y, i = nd.prevY, nd.prevI
 	}
-	return bestN, top, bestY, seps
+	return bestN, top, bestY, seps, covered
 }
 
 func median(v []float64) float64 {

@@ -61,6 +61,11 @@ func (p *Preprocessor) Prepare(ctx context.Context, instances []*midsag.Instance
 	}
 	flags = append(flags, sflags...)
 	flags = append(flags, sl.Flags...)
+	for i := range cands {
+		if cands[i].Picked {
+			cands[i].Reasons = append(cands[i].Reasons, sl.Notes...)
+		}
+	}
 	if comp := CheckCompleteness(sl); len(comp.Flags) > 0 {
 		// A partial series is never scored as complete: the flag goes on
 		// the result and the evidence into the picked series' reasons.

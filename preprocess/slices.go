@@ -2,6 +2,7 @@ package preprocess
 
 import (
 	"math"
+	"slices"
 
 	"github.com/midsag/midsag"
 )
@@ -114,6 +115,9 @@ type Slices struct {
 	// neighbours (0 to 1); Flags are the midline quality flags.
 	Confidence float64
 	Flags      []string
+	// Notes say, for a person, why the pick is flagged when the flag
+	// alone does not (the plane's obliquity to the slices).
+	Notes []string
 }
 
 // PickSlices decodes the sorted slices and picks the one nearest the
@@ -152,8 +156,13 @@ func PickSlices(s *Slices) error {
 	}
 	d := m.decide()
 	s.CenterEstimate, s.Center = d.est, d.center
-	s.Confidence, s.Flags = d.confidence, d.flags
+	s.Confidence, s.Flags, s.Notes = d.confidence, d.flags, d.notes
 	s.Scores = m.scores(s, d.est, d.weights)
+	if m.tiltOK {
+		// The obliquity is the slab's, reported on the pick.
+		s.Scores[d.center].Parts["oblique_drift_slices"] = round2(m.tilt.drift)
+		s.Scores[d.center].Parts["oblique_span_mm"] = round2(m.tilt.spanMM)
+	}
 	return nil
 }
 
@@ -164,6 +173,7 @@ type midlineDecision struct {
 	weights    []float64
 	confidence float64
 	flags      []string
+	notes      []string
 }
 
 // decide picks the slice nearest the plane from the measured cues.
@@ -186,6 +196,15 @@ func (m *midlineCues) decide() midlineDecision {
 	d := midlineDecision{est: est, center: min(max(int(math.Round(est)), 0), m.n-1)}
 	d.weights = sliceWeights(obj, m.n)
 	d.confidence, d.flags = m.judge(d.center, est, d.weights)
+	if m.tiltOK && m.tilt.oblique() {
+		// The picked slice is the nearest at about 1/drift of the
+		// cord's levels.
+		d.confidence = round4(d.confidence / math.Abs(m.tilt.drift))
+		d.notes = append(d.notes, m.tilt.note(m.spacing))
+		if !slices.Contains(d.flags, FlagMidlineUncertain) {
+			d.flags = append(d.flags, FlagMidlineUncertain)
+		}
+	}
 	return d
 }
 
@@ -197,12 +216,14 @@ type midlineCues struct {
 	cost          []float64 // mirror cost per half-step candidate
 	pairs         []int     // mirror pairs behind each cost
 	canal         []canalCue
-	anat          []float64 // canal column length relative to the longest
-	runLo, runHi  float64   // half-maximum run of anat, in slices
-	lowIn, highIn bool      // whether each crossing lies inside the slab
-	centre        float64   // the canal profile's estimate of the plane
-	symLead       bool      // symmetry inside the run is strong and leads
-	secondRun     bool      // another run of the profile reaches half its peak
+	anat          []float64  // canal column length relative to the longest
+	runLo, runHi  float64    // half-maximum run of anat, in slices
+	lowIn, highIn bool       // whether each crossing lies inside the slab
+	centre        float64    // the canal profile's estimate of the plane
+	symLead       bool       // symmetry inside the run is strong and leads
+	secondRun     bool       // another run of the profile reaches half its peak
+	tilt          obliqueFit // the canal's per-level centres along the cord
+	tiltOK        bool       // whether tilt was measured
 }
 
 // measureMidline measures the cues and refuses a slab that does not hold
@@ -267,6 +288,7 @@ func (m *midlineCues) analyse() error {
 			m.symLead = true
 		}
 	}
+	m.tilt, m.tiltOK = m.obliquity()
 	if !m.symLead && (m.centre < -1 || m.centre > float64(n)) {
 		return midsag.Rejectf(midsag.ReasonMidlineNotInSlab,
 			"the canal column runs to the slab's edge and its profile puts the midsagittal plane about %.0f mm beyond the edge slice: the slab does not hold the midline",
