@@ -42,27 +42,23 @@ func holdoutCases(t *testing.T, n int) (cases []evalCase, thickness []string, tr
 // and say nothing of the goal (99% exact, no unflagged pick on a slab
 // that misses the midline), which the picker does not reach here.
 //
-// Measured with n = 60 after the obliquity flag (slices.go, oblique.go):
-// of 41 in-slab series exact 58.5%, within one slice 90.2%, flagged
-// 65.9%, 4 wrong and unflagged; of 19 slabs that miss the midline 68.4%
-// refused, 31.6% flagged, none unflagged. The long and short floors
-// were not measured again.
-//
-// Measured with n = 60 when the family was added: of 41 in-slab series
-// exact 58.5%, within one slice 90.2%, flagged 56.1%, 6 wrong and
-// unflagged (geometric centre
-// 34.1% exact, 39.0% within one); of 19 slabs that miss the midline
-// 47.4% refused, 36.8% flagged, 3 unflagged. With n = 200
-// (MIDSAG_LONG=1): of 131 exact 54.2%, within one 93.1%, flagged 47.3%,
-// 25 wrong and unflagged (centre 33.6%, 44.3%); of 69 missing the
-// midline 56.5% refused, 36.2% flagged, 5 unflagged. With -short (28):
-// of 20 exact 60.0%, within one 100%, 3 wrong and unflagged; of 8, 1
-// unflagged.
+// Measured on main, 2026-12-03 (go test -tags openjpeg,charls -run
+// Holdout -v ./preprocess), n = 60, after the obliquity flag (slices.go,
+// oblique.go): of 41 in-slab series exact 58.5%, within one slice 90.2%,
+// flagged 65.9%, 4 wrong and unflagged (geometric centre 34.1% exact,
+// 39.0% within one); of 19 slabs that miss the midline 68.4% refused,
+// 31.6% flagged, none unflagged. With n = 200 (MIDSAG_LONG=1), before the
+// obliquity flag: of 131 exact 54.2%, within one 93.1%, flagged 47.3%,
+// 25 wrong and unflagged (centre 33.6%, 44.3%); of 69 missing the midline
+// 66.7% refused, 33.3% flagged, none unflagged. When the family was
+// added, before the canal outline and density checks, 3 of the 19 (n =
+// 60) and 5 of the 69 (n = 200) missing-midline slabs were unflagged.
+// The -short floors (28 series) date from then.
 func TestMidlineEvaluationHoldout(t *testing.T) {
-	n, g := 60, goals{exact: 53, near: 85, missingUnflagged: 3, wrongUnflagged: 4}
+	n, g := 60, goals{exact: 53, near: 85, missingUnflagged: 0, wrongUnflagged: 4}
 	switch {
 	case os.Getenv("MIDSAG_LONG") != "":
-		n, g = 200, goals{exact: 52, near: 91, missingUnflagged: 5, wrongUnflagged: 25}
+		n, g = 200, goals{exact: 52, near: 91, missingUnflagged: 0, wrongUnflagged: 25}
 	case testing.Short():
 		n, g = 28, goals{exact: 53, near: 95, missingUnflagged: 1, wrongUnflagged: 3}
 	}
