@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"mime/multipart"
+	"strings"
 
 	"github.com/midsag/midsag"
 )
@@ -46,4 +47,18 @@ func malformedPart(n int, err error) error {
 		return e.WithDetail("source", fmt.Sprintf("part %d", n))
 	}
 	return midsag.Reject(midsag.ReasonTruncated, fmt.Sprintf("multipart body is malformed at part %d", n), err)
+}
+
+// Related checks a multipart/related media type's parameters and
+// returns a reader of its parts. A type parameter other than
+// application/dicom is refused; a missing one is taken as DICOM.
+func Related(params map[string]string, body io.Reader) (*multipart.Reader, error) {
+	if t := params["type"]; t != "" && !strings.EqualFold(t, "application/dicom") {
+		return nil, midsag.Rejectf(midsag.ReasonNotDICOM,
+			"multipart/related type %q is not accepted; only application/dicom parts are (PS3.18 8.6.1.2)", t)
+	}
+	if params["boundary"] == "" {
+		return nil, midsag.Rejectf(midsag.ReasonBadRequest, "multipart/related without a boundary parameter")
+	}
+	return multipart.NewReader(body, params["boundary"]), nil
 }

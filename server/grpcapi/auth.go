@@ -9,6 +9,7 @@ import (
 	"google.golang.org/grpc/metadata"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/server"
 )
 
 // tokens checks bearer tokens (RFC 6750 2.1) in constant time per token.
@@ -69,7 +70,7 @@ func (t tokens) wrap(a *httpAPI, h http.Handler) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		if !t.accepts(r.Header.Get("Authorization")) {
 			w.Header().Set("WWW-Authenticate", `Bearer realm="midsag"`) // RFC 6750 3
-			writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonUnauthenticated, "a bearer token is required (Authorization: Bearer TOKEN)"))
+			server.WriteError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonUnauthenticated, "a bearer token is required (Authorization: Bearer TOKEN)"))
 			return
 		}
 		h.ServeHTTP(w, r)

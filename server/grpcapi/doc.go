@@ -1,8 +1,8 @@
 // Package grpcapi serves midsag.v1 (api/midsag/v1) over gRPC and HTTP on
 // top of a server.Backend: the StudyScoring gRPC service with reflection
 // and health, its REST gateway (run in-process, no loopback dial), the
-// upload endpoint POST /v1/studies:score, DICOMweb STOW-RS (PS3.18 10.5)
-// and the OpenAPI document.
+// upload endpoint POST /v1/studies:score, the OpenAPI document, and the
+// routes of DICOMweb STOW-RS, which package server/stowrs serves.
 //
 // Build both listeners from one Config:
 //

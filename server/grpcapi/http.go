@@ -14,6 +14,7 @@ import (
 	"github.com/midsag/midsag"
 	midsagv1 "github.com/midsag/midsag/api/midsag/v1"
 	"github.com/midsag/midsag/server"
+	"github.com/midsag/midsag/server/stowrs"
 )
 
 // openPaths never need a token: probes and the metrics scraper.
@@ -44,13 +45,14 @@ func NewHTTPHandler(ctx context.Context, cfg Config, extra map[string]http.Handl
 			UnmarshalOptions: protojson.UnmarshalOptions{DiscardUnknown: true},
 		}),
 		runtime.WithErrorHandler(func(_ context.Context, _ *runtime.ServeMux, _ runtime.Marshaler, w http.ResponseWriter, _ *http.Request, err error) {
-			writeError(w, cfg.Logger, fromStatus(err))
+			server.WriteError(w, cfg.Logger, fromStatus(err))
 		}),
 	)
 	if err := midsagv1.RegisterStudyScoringHandlerServer(ctx, gw, &service{cfg: cfg}); err != nil {
 		return nil, fmt.Errorf("register gateway: %w", err)
 	}
 
+	stow := stowrs.Handler(stowrs.Config{Backend: cfg.Backend, MaxBodyBytes: cfg.MaxBodyBytes, Limits: cfg.Limits, Logger: cfg.Logger})
 	mux := http.NewServeMux()
 	routes := map[string]http.Handler{
 		"GET /v1/results/{result_id}":             gw,
@@ -58,8 +60,8 @@ func NewHTTPHandler(ctx context.Context, cfg Config, extra map[string]http.Handl
 		"GET /v1/results":                         gw,
 		"GET /v1/models":                          gw,
 		"POST /v1/studies:score":                  http.HandlerFunc(a.score),
-		"POST /dicomweb/studies":                  http.HandlerFunc(a.stow),
-		"POST /dicomweb/studies/{study}":          http.HandlerFunc(a.stow),
+		"POST /dicomweb/studies":                  stow,
+		"POST /dicomweb/studies/{study}":          stow,
 		"GET /openapi.json":                       http.HandlerFunc(serveOpenAPI),
 		"/":                                       http.HandlerFunc(a.notFound),
 	}
@@ -90,11 +92,11 @@ func patternPath(pattern string) string {
 }
 
 func serveOpenAPI(w http.ResponseWriter, _ *http.Request) {
-	writeBytes(w, http.StatusOK, "application/json", midsagv1.OpenAPI)
+	server.WriteBytes(w, http.StatusOK, "application/json", midsagv1.OpenAPI)
 }
 
 func (a *httpAPI) notFound(w http.ResponseWriter, r *http.Request) {
-	writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotFound, "no route for %s %s", r.Method, r.URL.Path))
+	server.WriteError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotFound, "no route for %s %s", r.Method, r.URL.Path))
 }
 
 // observe logs each request and reports it to Config.Observe under its
@@ -146,7 +148,7 @@ func (s *statusRecorder) Unwrap() http.ResponseWriter { return s.ResponseWriter 
 func (a *httpAPI) heatmap(w http.ResponseWriter, r *http.Request) {
 	b, err := a.cfg.Backend.Artifact(r.Context(), r.PathValue("result_id"), server.HeatmapPNG)
 	if err != nil {
-		writeError(w, a.cfg.Logger, classify(err))
+		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
 	w.Header().Set("Content-Type", "image/png")

@@ -35,27 +35,27 @@ const sniffLen = 132
 func (a *httpAPI) score(w http.ResponseWriter, r *http.Request) {
 	opts, err := scoreOptions(r.URL.Query())
 	if err != nil {
-		writeError(w, a.cfg.Logger, classify(err))
+		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
 	if r.ContentLength > a.cfg.MaxBodyBytes {
-		writeError(w, a.cfg.Logger, tooLarge(a.cfg.MaxBodyBytes))
+		server.WriteError(w, a.cfg.Logger, server.TooLarge(a.cfg.MaxBodyBytes))
 		return
 	}
 	body := http.MaxBytesReader(w, r.Body, a.cfg.MaxBodyBytes)
 	ing := &ingester{backend: a.cfg.Backend, origin: server.Origin{Listener: "rest", Remote: r.RemoteAddr}}
 	if err := a.readStudy(r.Context(), r.Header, body, ing); err != nil {
-		writeError(w, a.cfg.Logger, classify(err))
+		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
 	res, err := score(r.Context(), a.cfg.Backend, ing.uids, opts)
 	if err != nil {
-		writeError(w, a.cfg.Logger, classify(err))
+		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
 	b, err := resultJSON.Marshal(res)
 	if err != nil {
-		writeError(w, a.cfg.Logger, classify(fmt.Errorf("encode result: %w", err)))
+		server.WriteError(w, a.cfg.Logger, server.Classify(fmt.Errorf("encode result: %w", err)))
 		return
 	}
 	code := http.StatusOK
@@ -63,7 +63,7 @@ func (a *httpAPI) score(w http.ResponseWriter, r *http.Request) {
 		w.Header().Set("Location", "/v1/results/"+url.PathEscape(res.GetResultId()))
 		code = http.StatusAccepted
 	}
-	writeBytes(w, code, "application/json", append(b, '\n'))
+	server.WriteBytes(w, code, "application/json", append(b, '\n'))
 }
 
 // scoreOptions reads the query parameters model, model_version, explain
@@ -131,7 +131,7 @@ func genericType(mt string) bool {
 // the input limits; every part must be application/dicom (PS3.18
 // 8.6.1.2).
 func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, body io.Reader, ing *ingester) error {
-	mr, err := relatedReader(params, body)
+	mr, err := inputs.Related(params, body)
 	if err != nil {
 		return err
 	}
@@ -141,20 +141,6 @@ func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, b
 		}
 		return ing.ingest(ctx, fmt.Sprintf("part %d", n), data)
 	})
-}
-
-// relatedReader checks a multipart/related media type's parameters and
-// returns a reader of its parts. A type parameter other than
-// application/dicom is refused; a missing one is taken as DICOM.
-func relatedReader(params map[string]string, body io.Reader) (*multipart.Reader, error) {
-	if t := params["type"]; t != "" && !strings.EqualFold(t, "application/dicom") {
-		return nil, midsag.Rejectf(midsag.ReasonNotDICOM,
-			"multipart/related type %q is not accepted; only application/dicom parts are (PS3.18 8.6.1.2)", t)
-	}
-	if params["boundary"] == "" {
-		return nil, midsag.Rejectf(midsag.ReasonBadRequest, "multipart/related without a boundary parameter")
-	}
-	return multipart.NewReader(body, params["boundary"]), nil
 }
 
 // partIsDICOM refuses a part whose own Content-Type is not
@@ -201,7 +187,7 @@ func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) er
 			return prefixed(name, err)
 		}
 		if err := ing.ingest(ctx, name, data); err != nil {
-			if classify(err).Reason == midsag.ReasonNotDICOM {
+			if server.Classify(err).Reason == midsag.ReasonNotDICOM {
 				skipped++
 				continue
 			}

@@ -106,7 +106,7 @@ func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) erro
 		case *midsagv1.ScoreStudyRequest_Chunk:
 			total += int64(len(part.Chunk.GetData()))
 			if total > s.cfg.MaxBodyBytes {
-				return grpcStatus(tooLarge(s.cfg.MaxBodyBytes))
+				return grpcStatus(server.TooLarge(s.cfg.MaxBodyBytes))
 			}
 			buf = append(buf, part.Chunk.GetData()...)
 			if int64(len(buf)) > s.cfg.Limits.MaxEntryBytes {

@@ -1,8 +1,18 @@
-package grpcapi
+// Package stowrs serves DICOMweb STOW-RS Store Instances (PS3.18 10.5)
+// over a server.Backend: each application/dicom part of a
+// multipart/related body is ingested on its own and listed in the DICOM
+// JSON response as referenced or failed, with the Failure Reason of its
+// reason code (server.ReasonTable). It stores; the Core scores a study
+// once it has been quiet.
+//
+//	mux.Handle("POST /dicomweb/studies", stowrs.Handler(stowrs.Config{Backend: core}))
+package stowrs
 
 import (
 	"context"
 	"fmt"
+	"log/slog"
+	"math"
 	"mime"
 	"mime/multipart"
 	"net/http"
@@ -40,25 +50,55 @@ func uiAttr(uid string) dicomAttr {
 	return dicomAttr{VR: "UI", Value: []any{uid}}
 }
 
-// stow serves STOW-RS Store Instances (PS3.18 10.5): each
-// application/dicom part is ingested on its own and listed as referenced
-// or failed. It does not score: the core's settle scheduler does once the
-// study has been quiet. The response has no Retrieve URL (0008,1190)
-// because midsag serves no WADO-RS to retrieve from.
-func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
+// Config configures the STOW-RS handler.
+type Config struct {
+	// Backend stores each instance.
+	Backend server.Backend
+	// MaxBodyBytes bounds one request body; zero means no bound beyond
+	// Limits.
+	MaxBodyBytes int64
+	// Limits bound the parts and each instance; zero fields are
+	// inputs.DefaultLimits.
+	Limits inputs.Limits
+	// Logger receives one line per refused part; nil discards.
+	Logger *slog.Logger
+}
+
+// handler is the STOW-RS handler built from a Config.
+type handler struct{ cfg Config }
+
+// Handler returns the STOW-RS handler for POST /dicomweb/studies and
+// /dicomweb/studies/{study}: the path's study, when given, must be every
+// part's. Authentication is the caller's (the REST API wraps it).
+func Handler(cfg Config) http.Handler {
+	if cfg.MaxBodyBytes <= 0 {
+		cfg.MaxBodyBytes = math.MaxInt64
+	}
+	cfg.Limits = cfg.Limits.OrDefault()
+	if cfg.Logger == nil {
+		cfg.Logger = slog.New(slog.DiscardHandler)
+	}
+	return &handler{cfg: cfg}
+}
+
+// ServeHTTP serves STOW-RS Store Instances (PS3.18 10.5). It does not
+// score: the core's settle scheduler does once the study has been quiet.
+// The response has no Retrieve URL (0008,1190) because midsag serves no
+// WADO-RS to retrieve from.
+func (a *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	if r.ContentLength > a.cfg.MaxBodyBytes {
-		writeError(w, a.cfg.Logger, tooLarge(a.cfg.MaxBodyBytes))
+		server.WriteError(w, a.cfg.Logger, server.TooLarge(a.cfg.MaxBodyBytes))
 		return
 	}
 	mt, params, err := mime.ParseMediaType(r.Header.Get("Content-Type"))
 	if err != nil || mt != "multipart/related" {
-		writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotDICOM,
+		server.WriteError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNotDICOM,
 			`STOW-RS takes multipart/related; type="application/dicom" (PS3.18 10.5.1)`))
 		return
 	}
-	mr, err := relatedReader(params, http.MaxBytesReader(w, r.Body, a.cfg.MaxBodyBytes))
+	mr, err := inputs.Related(params, http.MaxBytesReader(w, r.Body, a.cfg.MaxBodyBytes))
 	if err != nil {
-		writeError(w, a.cfg.Logger, classify(err))
+		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
 	origin := server.Origin{Listener: "stow", Remote: r.RemoteAddr, Study: r.PathValue("study")}
@@ -67,11 +107,11 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 		// Parts before the broken one are stored (each is durable on its
 		// own); the client learns the body broke and may resend, which
 		// stores nothing twice.
-		writeError(w, a.cfg.Logger, classify(err))
+		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
 	if len(refs)+len(fails) == 0 {
-		writeError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNoInput, "the multipart body has no parts"))
+		server.WriteError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNoInput, "the multipart body has no parts"))
 		return
 	}
 	resp := dicomJSON{}
@@ -90,13 +130,13 @@ func (a *httpAPI) stow(w http.ResponseWriter, r *http.Request) {
 	case len(fails) > 0:
 		code = http.StatusAccepted
 	}
-	writeJSON(w, code, "application/dicom+json", resp)
+	server.WriteJSON(w, code, "application/dicom+json", resp)
 }
 
 // stowParts ingests every part of mr and returns the Referenced SOP items
 // of those stored and the failed items of the rest; the error is a body
 // that breaks off, is not valid MIME or is beyond the input limits.
-func (a *httpAPI) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader) (refs, fails []any, err error) {
+func (a *handler) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader) (refs, fails []any, err error) {
 	err = inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, data []byte) error {
 		ref, code := a.stowPart(ctx, origin, n, part.Header.Get("Content-Type"), data)
 		if code != 0 {
@@ -117,7 +157,7 @@ func (a *httpAPI) stowParts(ctx context.Context, origin server.Origin, mr *multi
 // nonzero Failure Reason when it was not stored. The part is parsed once,
 // by Ingest, which also refuses an instance of another study than
 // origin.Study before storing it.
-func (a *httpAPI) stowPart(ctx context.Context, origin server.Origin, n int, contentType string, data []byte) (dicomJSON, int) {
+func (a *handler) stowPart(ctx context.Context, origin server.Origin, n int, contentType string, data []byte) (dicomJSON, int) {
 	item := dicomJSON{tagReferencedSOPClass: uiAttr(""), tagReferencedSOPInstance: uiAttr("")}
 	if contentType != "" {
 		if mt, _, err := mime.ParseMediaType(contentType); err != nil || mt != "application/dicom" {
@@ -135,8 +175,8 @@ func (a *httpAPI) stowPart(ctx context.Context, origin server.Origin, n int, con
 
 // stowFailed logs a refused part and returns its item with the Failure
 // Reason for err.
-func (a *httpAPI) stowFailed(item dicomJSON, n int, err error) (dicomJSON, int) {
-	e, code := classify(err), failureCode(err)
+func (a *handler) stowFailed(item dicomJSON, n int, err error) (dicomJSON, int) {
+	e, code := server.Classify(err), failureCode(err)
 	attrs := []any{"part", n, "failure_reason", fmt.Sprintf("0x%04X", code), "reason", e.Reason}
 	if e.Err != nil {
 		attrs = append(attrs, "err", e.Err)
@@ -148,5 +188,5 @@ func (a *httpAPI) stowFailed(item dicomJSON, n int, err error) (dicomJSON, int) 
 // failureCode is the Failure Reason of a refused part: the DIMSE status
 // of its reason in server.ReasonTable.
 func failureCode(err error) int {
-	return int(server.DICOMStatus(classify(err).Reason))
+	return int(server.DICOMStatus(server.Classify(err).Reason))
 }
