@@ -50,21 +50,23 @@ func sendStudy(ctx context.Context, c midsagv1.StudyScoringClient, opts *midsagv
 	if err != nil {
 		return nil, err
 	}
-	if err := st.Send(&midsagv1.ScoreStudyRequest{Part: &midsagv1.ScoreStudyRequest_Options{Options: opts}}); err != nil {
-		return nil, err
-	}
+	reqs := []*midsagv1.ScoreStudyRequest{{Part: &midsagv1.ScoreStudyRequest_Options{Options: opts}}}
 	for _, f := range files {
 		for off := 0; off < len(f.Data); off += chunk {
 			end := min(off+chunk, len(f.Data))
 			msg := &midsagv1.InstanceChunk{Data: f.Data[off:end], EndOfInstance: end == len(f.Data)}
-			if err := st.Send(&midsagv1.ScoreStudyRequest{Part: &midsagv1.ScoreStudyRequest_Chunk{Chunk: msg}}); err != nil {
-				// io.EOF means the server ended the stream; its status
-				// comes from the receive side (grpc-go ClientStream.SendMsg).
-				if errors.Is(err, io.EOF) {
-					return st.CloseAndRecv()
-				}
-				return nil, err
+			reqs = append(reqs, &midsagv1.ScoreStudyRequest{Part: &midsagv1.ScoreStudyRequest_Chunk{Chunk: msg}})
+		}
+	}
+	for _, req := range reqs {
+		if err := st.Send(req); err != nil {
+			// io.EOF means the server ended the stream, possibly before
+			// the first message arrived (a refused token); its status
+			// comes from the receive side (grpc-go ClientStream.SendMsg).
+			if errors.Is(err, io.EOF) {
+				return st.CloseAndRecv()
 			}
+			return nil, err
 		}
 	}
 	return st.CloseAndRecv()
