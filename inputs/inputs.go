@@ -13,6 +13,7 @@ package inputs
 import (
 	"archive/zip"
 	"bytes"
+	"errors"
 	"io"
 	"io/fs"
 	"os"
@@ -82,12 +83,24 @@ func Collect(paths []string, lim Limits) ([]midsag.Source, func(), error) {
 	return out, closeAll, nil
 }
 
+// openRefusal is the no_input refusal for a path that cannot be opened,
+// said in words for the common causes rather than the system call's text.
+func openRefusal(p string, err error) *midsag.Error {
+	switch {
+	case errors.Is(err, fs.ErrNotExist):
+		return midsag.Rejectf(midsag.ReasonNoInput, "%s: no such file or folder", p)
+	case errors.Is(err, fs.ErrPermission):
+		return midsag.Rejectf(midsag.ReasonNoInput, "%s: permission denied", p)
+	}
+	return midsag.Reject(midsag.ReasonNoInput, "cannot open input", err)
+}
+
 // collectOne expands one path: a folder, a zip archive (with the file to
 // close once its entries are read) or a plain file.
 func collectOne(p string, lim Limits) ([]midsag.Source, io.Closer, error) {
 	st, err := os.Stat(p)
 	if err != nil {
-		return nil, nil, midsag.Reject(midsag.ReasonNoInput, "cannot open input", err)
+		return nil, nil, openRefusal(p, err)
 	}
 	if st.IsDir() {
 		files, err := folder(p)
@@ -98,7 +111,7 @@ func collectOne(p string, lim Limits) ([]midsag.Source, io.Closer, error) {
 	}
 	f, err := os.Open(p)
 	if err != nil {
-		return nil, nil, midsag.Reject(midsag.ReasonNoInput, "cannot open input", err)
+		return nil, nil, openRefusal(p, err)
 	}
 	entries, err := ZipEntries(f, st.Size(), p, lim)
 	if err != nil {

@@ -179,3 +179,16 @@ func TestCollectFollowsLinks(t *testing.T) {
 		t.Errorf("loop: %d sources, want 1", len(srcs))
 	}
 }
+
+// TestCollectMissingPathSaysSo: a path that does not exist is refused as
+// no_input in words, without the system call's text ("stat ...").
+func TestCollectMissingPathSaysSo(t *testing.T) {
+	p := filepath.Join(t.TempDir(), "absent")
+	_, _, err := Collect([]string{p}, DefaultLimits)
+	if r, _ := midsag.ReasonOf(err); r != midsag.ReasonNoInput {
+		t.Fatalf("reason %v (%v), want no_input", r, err)
+	}
+	if msg := err.Error(); !strings.Contains(msg, "no such file or folder") || strings.Contains(msg, "stat ") {
+		t.Errorf("message %q", msg)
+	}
+}
