@@ -45,6 +45,14 @@ func (a attrs) has(t tag.Tag) bool {
 	return err == nil
 }
 
+// setFloat sets *dst to the element's value when the element is present
+// (def when its value does not parse) and leaves *dst alone when it is not.
+func (a attrs) setFloat(t tag.Tag, dst *float64, def float64) {
+	if a.has(t) {
+		*dst = a.float(t, def)
+	}
+}
+
 // frameGroups reads the Multi-frame Functional Groups module (PS3.3
 // C.7.6.16) of an Enhanced MR (PS3.3 A.36.2, C.8.13) or Legacy Converted
 // Enhanced MR (PS3.3 A.71) instance into inst.PerFrame: for each frame, the
@@ -154,12 +162,8 @@ func applyPlane(g attrs, f *midsag.FrameAttrs, seen geom) geom {
 		if v := it.floats(tag.PixelSpacing); len(v) == 2 {
 			copy(f.PixelSpacing[:], v)
 		}
-		if it.has(tag.SliceThickness) {
-			f.SliceThickness = it.float(tag.SliceThickness, 0)
-		}
-		if it.has(tag.SpacingBetweenSlices) {
-			f.SpacingBetweenSlices = it.float(tag.SpacingBetweenSlices, 0)
-		}
+		it.setFloat(tag.SliceThickness, &f.SliceThickness, 0)
+		it.setFloat(tag.SpacingBetweenSlices, &f.SpacingBetweenSlices, 0)
 	}
 	return seen
 }
@@ -169,12 +173,8 @@ func applyPlane(g attrs, f *midsag.FrameAttrs, seen geom) geom {
 func applyMR(g attrs, f *midsag.FrameAttrs) {
 	// MR Timing and Related Parameters macro, PS3.3 C.8.13.5.2.
 	if it, ok := g.item(tag.MRTimingAndRelatedParametersSequence); ok {
-		if it.has(tag.RepetitionTime) {
-			f.RepetitionTime = it.float(tag.RepetitionTime, 0)
-		}
-		if it.has(tag.FlipAngle) {
-			f.FlipAngle = it.float(tag.FlipAngle, 0)
-		}
+		it.setFloat(tag.RepetitionTime, &f.RepetitionTime, 0)
+		it.setFloat(tag.FlipAngle, &f.FlipAngle, 0)
 	}
 	// MR Echo macro, PS3.3 C.8.13.5.4: Effective Echo Time is the TE that
 	// sets the contrast.
@@ -209,12 +209,8 @@ func applyMR(g attrs, f *midsag.FrameAttrs) {
 func applyContent(g attrs, f *midsag.FrameAttrs) {
 	// Pixel Value Transformation macro, PS3.3 C.7.6.16.2.9.
 	if it, ok := g.item(tag.PixelValueTransformationSequence); ok {
-		if it.has(tag.RescaleSlope) {
-			f.RescaleSlope = it.float(tag.RescaleSlope, 1)
-		}
-		if it.has(tag.RescaleIntercept) {
-			f.RescaleIntercept = it.float(tag.RescaleIntercept, 0)
-		}
+		it.setFloat(tag.RescaleSlope, &f.RescaleSlope, 1)
+		it.setFloat(tag.RescaleIntercept, &f.RescaleIntercept, 0)
 	}
 	// Frame Content macro, PS3.3 C.7.6.16.2.2 (per-frame only).
 	if it, ok := g.item(tag.FrameContentSequence); ok {
@@ -241,18 +237,10 @@ func applyConverted(g attrs, f *midsag.FrameAttrs) {
 		if !ok {
 			continue
 		}
-		if it.has(tag.RepetitionTime) {
-			f.RepetitionTime = it.float(tag.RepetitionTime, 0)
-		}
-		if it.has(tag.EchoTime) {
-			f.EchoTime = it.float(tag.EchoTime, 0)
-		}
-		if it.has(tag.InversionTime) {
-			f.InversionTime = it.float(tag.InversionTime, 0)
-		}
-		if it.has(tag.FlipAngle) {
-			f.FlipAngle = it.float(tag.FlipAngle, 0)
-		}
+		it.setFloat(tag.RepetitionTime, &f.RepetitionTime, 0)
+		it.setFloat(tag.EchoTime, &f.EchoTime, 0)
+		it.setFloat(tag.InversionTime, &f.InversionTime, 0)
+		it.setFloat(tag.FlipAngle, &f.FlipAngle, 0)
 	}
 }
 

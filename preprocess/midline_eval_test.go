@@ -289,14 +289,7 @@ func packagePhantomCases(t *testing.T, n int) []evalCase {
 // family it was tuned on, with slabs that miss the midline. Truth comes
 // from the phantom's slab geometry (PS3.3 C.7.6.2.1.1), not the picker.
 func TestMidlineEvaluationPackagePhantom(t *testing.T) {
-	n := 40
-	switch {
-	case os.Getenv("MIDSAG_LONG") != "":
-		n = 100
-	case testing.Short():
-		n = 20
-	}
-	outs := runEval(packagePhantomCases(t, n))
+	outs := runEval(packagePhantomCases(t, sampleSize(40, 100, 20)))
 	tl := reportEval(t, "package phantom", outs)
 	checkGoals(t, "package phantom", tl, goals{exact: 99, near: 100, missingRefused: 99})
 }
@@ -312,6 +305,18 @@ type goals struct {
 	missingRefused   float64 // least rate of refusal of slabs that miss the midline, %
 	missingUnflagged int     // most unflagged picks on slabs that miss the midline
 	wrongUnflagged   int     // most wrong picks without a flag
+}
+
+// sampleSize is the number of series of a family to measure: def by
+// default, long with MIDSAG_LONG set, short with -short.
+func sampleSize(def, long, short int) int {
+	switch {
+	case os.Getenv("MIDSAG_LONG") != "":
+		return long
+	case testing.Short():
+		return short
+	}
+	return def
 }
 
 func checkGoals(t *testing.T, family string, tl evalTally, g goals) {
@@ -395,14 +400,7 @@ func reportBands(t *testing.T, family string, outs []evalOutcome) {
 // this family in view (tuned on package phantom only) it scored, with
 // n = 200, exact 59.3%, within one 82.9%, and 9 of 60 unflagged.
 func TestMidlineEvaluationCrossPhantom(t *testing.T) {
-	n := 100
-	switch {
-	case os.Getenv("MIDSAG_LONG") != "":
-		n = 200
-	case testing.Short():
-		n = 40
-	}
-	outs := runEval(crossPhantomCases(t, n))
+	outs := runEval(crossPhantomCases(t, sampleSize(100, 200, 40)))
 	tl := reportEval(t, "crossphantom", outs)
 	reportBands(t, "crossphantom", outs)
 	g := goals{exact: 89, near: 99, missingRefused: 96}

@@ -286,27 +286,34 @@ func (c *candidate) judgeCoverage(first *midsag.Instance, images, minSlices int)
 	}
 }
 
+// descRule is one reading of a Series Description: the pattern, the
+// score it adds and what it suggests.
+type descRule struct {
+	re       *regexp.Regexp
+	score    float64
+	suggests string
+}
+
+// descContrast and descPlane are read in order; the first match of each
+// counts.
+var (
+	descContrast = []descRule{{descSTIR, -0.5, "STIR"}, {descT2, 0.5, "T2"}, {descT1, -0.5, "T1"}}
+	descPlane    = []descRule{{descLoc, -0.5, "a localizer"}, {descSag, 0.25, "sagittal"}, {descOther, -0.25, "another plane"}}
+)
+
 // judgeDescription nudges the score by what the Series Description
 // suggests about contrast and plane; the header attributes lead.
 func (c *candidate) judgeDescription(d string) {
 	if d == "" {
 		return
 	}
-	switch {
-	case descSTIR.MatchString(d):
-		c.add(-0.5, "description %q suggests STIR", d)
-	case descT2.MatchString(d):
-		c.add(0.5, "description %q suggests T2", d)
-	case descT1.MatchString(d):
-		c.add(-0.5, "description %q suggests T1", d)
-	}
-	switch {
-	case descLoc.MatchString(d):
-		c.add(-0.5, "description %q suggests a localizer", d)
-	case descSag.MatchString(d):
-		c.add(0.25, "description %q suggests sagittal", d)
-	case descOther.MatchString(d):
-		c.add(-0.25, "description %q suggests another plane", d)
+	for _, rules := range [][]descRule{descContrast, descPlane} {
+		for _, r := range rules {
+			if r.re.MatchString(d) {
+				c.add(r.score, "description %q suggests "+r.suggests, d)
+				break
+			}
+		}
 	}
 }
 

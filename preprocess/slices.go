@@ -68,12 +68,12 @@ const (
 	// the slab's edge, and a plane so placed more than a slice beyond the
 	// edge slice is refused as midline_not_in_slab.
 	CanalHalfRunMM = 5.5
-	// ambiguousMargin and ambiguousMarginMM say how close an estimate led
-	// by the canal profile may come to the boundary between two slices
-	// before the pick is flagged, in slices and in millimetres, whichever
-	// is wider: the half-maximum centre is good to about a third of a
-	// slice on thick slices and to a few tenths of a millimetre on thin
-	// ones (measured on both phantom families).
+	// ambiguousMargin and ambiguousMarginMM say how close the estimate,
+	// led by the canal profile or by symmetry, may come to the boundary
+	// between two slices before the pick is flagged, in slices and in
+	// millimetres, whichever is wider: the half-maximum centre is good to
+	// about a third of a slice on thick slices and to a few tenths of a
+	// millimetre on thin ones (measured on both phantom families).
 	// CanalMinDensity is the least fraction of its extent that a column's
 	// rows must cover for it to count towards the column length that keeps
 	// a slab: the canal's CSF-cord-CSF pattern is broken only at a
@@ -417,9 +417,9 @@ func (m *midlineCues) judge(center int, est float64, w []float64) (float64, []st
 	case m.secondRun:
 		// Two runs of the canal profile: the canal is only one of them.
 		uncertain = true
-	case !m.symLead && 0.5-math.Abs(est-math.Round(est)) < max(ambiguousMargin, ambiguousMarginMM/m.spacing):
-		// The canal profile alone puts the plane near the boundary of
-		// two slices: either could be the nearer.
+	case 0.5-math.Abs(est-math.Round(est)) < max(ambiguousMargin, ambiguousMarginMM/m.spacing):
+		// The cues put the plane near the boundary of two slices: either
+		// could be the nearer.
 		uncertain = true
 	}
 	var flags []string
