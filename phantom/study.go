@@ -33,6 +33,10 @@ type Options struct {
 	// compression. Zero means the default 0.5; a negative value means no
 	// study has compression; 1 means every study has it.
 	CompressionRate float64
+	// Matrix, when above zero, sets the matrix of every sagittal series
+	// to Matrix x Matrix over the same field of view (benchmarks at the
+	// size a group's model takes); zero draws it from matrixSizes.
+	Matrix int
 }
 
 // File is one generated DICOM Part 10 file. Name is a relative path such
@@ -174,7 +178,8 @@ var matrixSizes = []int{192, 224, 256, 320, 384}
 func (s *study) sagittal(sr *series, nSlices int, thick, gap float64) (center int, jitter float64) {
 	r := s.r
 	rows := pick(r, matrixSizes)
-	sp := round(math.Min(1.0, math.Max(0.5, uniform(r, 190, 240)/float64(rows))), 4)
+	fov := uniform(r, 190, 240)
+	sp := round(math.Min(1.0, math.Max(0.5, fov/float64(rows))), 4)
 	var colChoices []int
 	for _, c := range matrixSizes {
 		if float64(c)*sp >= 150 && c <= rows {
@@ -184,6 +189,9 @@ func (s *study) sagittal(sr *series, nSlices int, thick, gap float64) (center in
 	cols := rows
 	if len(colChoices) > 0 {
 		cols = pick(r, colChoices)
+	}
+	if m := s.opts.Matrix; m > 0 {
+		rows, cols, sp = m, m, round(fov/float64(m), 4)
 	}
 	mag, phi := deg(uniform(r, 0, 4)), uniform(r, 0, 2*math.Pi)
 	m := s.pose.rot.mul(rotZ(mag * math.Cos(phi))).mul(rotY(mag * math.Sin(phi)))

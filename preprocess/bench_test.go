@@ -101,3 +101,49 @@ func BenchmarkStudyPrepare(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkStudyPrepare512 is BenchmarkStudyPrepare on a study whose
+// sagittal series have a 512 x 512 matrix, stacked at 3 x 512 x 512: the
+// size of a ResNet-50 input at 512 (bench/study.sh compares it with the
+// decode floor, BenchmarkSeriesDecodeBaseline512).
+func BenchmarkStudyPrepare512(b *testing.B) {
+	insts := readAll(b, benchStudy512(b))
+	spec := midsag.InputSpec{Layout: "NCHW", Height: 512, Width: 512, Slices: 3, SliceStep: 1,
+		Normalize: "percentile", PercentileLow: 1, PercentileHigh: 99}
+	pre := New(Options{})
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := pre.Prepare(context.Background(), insts, spec); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkSeriesDecodeBaseline512 decodes the T2 series of the 512
+// study only.
+func BenchmarkSeriesDecodeBaseline512(b *testing.B) {
+	insts := readAll(b, benchStudy512(b))
+	se, _, _, err := PickSeries(Group(insts)[0], 3)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		for _, in := range se.Instances {
+			if _, err := Decode(in); err != nil {
+				b.Fatal(err)
+			}
+		}
+	}
+}
+
+// benchStudy512 is benchStudy with 512 x 512 sagittal series.
+func benchStudy512(b *testing.B) []phantom.File {
+	b.Helper()
+	files, _, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 77, Matrix: 512,
+		Syntaxes: []string{midsag.ExplicitVRLittleEndian}}, 0)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return files
+}

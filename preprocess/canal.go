@@ -134,8 +134,7 @@ func brightReference(grids [][]float32) float64 {
 	if len(all) == 0 {
 		return 0
 	}
-	sort.Slice(all, func(i, j int) bool { return all[i] < all[j] })
-	return float64(all[int(0.99*float64(len(all)-1))])
+	return float64(kth(all, int(0.99*float64(len(all)-1))))
 }
 
 // triplet is one bright-dark-bright crossing of a row.

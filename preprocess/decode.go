@@ -395,6 +395,21 @@ func toImage(inst *midsag.Instance, raw []int32) *midsag.Image {
 	}
 	invert := inst.Photometric == "MONOCHROME1"
 	img := &midsag.Image{Rows: rows, Columns: cols, Pix: make([]float32, rows*cols)}
+	if spp == 1 {
+		// One sample per pixel, the MR case: the loop below without the
+		// sample loop and the mean (identical values).
+		for p, r := range raw[:rows*cols] {
+			v := (r >> shift) & mask
+			if signed && v&signBit != 0 {
+				v -= 1 << uint(inst.BitsStored)
+			}
+			if invert {
+				v = hi + lo - v
+			}
+			img.Pix[p] = float32(float64(v)*slope + icpt)
+		}
+		return img
+	}
 	for p := 0; p < rows*cols; p++ {
 		var sum float64
 		for s := 0; s < spp; s++ {

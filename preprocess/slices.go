@@ -142,12 +142,13 @@ type Slices struct {
 func PickSlices(s *Slices) error {
 	if len(s.Images) != len(s.Instances) {
 		s.Images = make([]*midsag.Image, len(s.Instances))
-		for i, in := range s.Instances {
-			img, err := Decode(in)
-			if err != nil {
-				return err
-			}
+		err := eachIndex(len(s.Instances), func(i int) error {
+			img, err := Decode(s.Instances[i])
 			s.Images[i] = img
+			return err
+		})
+		if err != nil {
+			return err
 		}
 	}
 	m, err := measureMidline(s)
@@ -558,15 +559,17 @@ func mirrorCost(images []*midsag.Image) ([]float64, []int) {
 func canalCues(s *Slices) []canalCue {
 	grids := make([][]float32, len(s.Images))
 	hs, ws := make([]int, len(grids)), make([]int, len(grids))
-	for i, img := range s.Images {
-		c, sp := canonical(s.Instances[i], img)
+	_ = eachIndex(len(grids), func(i int) error {
+		c, sp := canonical(s.Instances[i], s.Images[i])
 		grids[i], hs[i], ws[i] = resampleGrid(c, sp)
-	}
+		return nil
+	})
 	b := brightReference(grids)
 	out := make([]canalCue, len(grids))
-	for i := range grids {
+	_ = eachIndex(len(grids), func(i int) error {
 		out[i] = measureCanal(grids[i], hs[i], ws[i], b)
-	}
+		return nil
+	})
 	return out
 }
 

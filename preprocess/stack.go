@@ -3,7 +3,6 @@ package preprocess
 import (
 	"fmt"
 	"math"
-	"sort"
 
 	"github.com/midsag/midsag"
 )
@@ -253,10 +252,16 @@ func percentiles(planes [][]float32, masks [][]bool, low, high float64) (float64
 	if len(vals) == 0 {
 		return 0, 1
 	}
-	sort.Slice(vals, func(i, j int) bool { return vals[i] < vals[j] })
-	at := func(q float64) float64 {
-		i := int(math.Round(q / 100 * float64(len(vals)-1)))
-		return float64(vals[min(max(i, 0), len(vals)-1)])
+	at := func(q float64) int {
+		return min(max(int(math.Round(q/100*float64(len(vals)-1))), 0), len(vals)-1)
 	}
-	return at(low), at(high)
+	i, j := at(low), at(high)
+	if i > j {
+		i, j = j, i
+	}
+	a, b := kthPair(vals, i, j)
+	if at(low) > at(high) {
+		a, b = b, a
+	}
+	return float64(a), float64(b)
 }
