@@ -71,58 +71,25 @@ func readAll(b *testing.B, files []phantom.File) []*midsag.Instance {
 
 // BenchmarkSeriesDecodeBaseline decodes the pixels of the T2 series only:
 // the floor that preparing the study is compared against.
-func BenchmarkSeriesDecodeBaseline(b *testing.B) {
-	insts := readAll(b, benchStudy(b))
-	se, _, _, err := PickSeries(Group(insts)[0], 3)
-	if err != nil {
-		b.Fatal(err)
-	}
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		for _, in := range se.Instances {
-			if _, err := Decode(in); err != nil {
-				b.Fatal(err)
-			}
-		}
-	}
-}
+func BenchmarkSeriesDecodeBaseline(b *testing.B) { benchDecode(b, benchStudy(b)) }
 
 // BenchmarkStudyPrepare runs Prepare on the read study: series pick, slice
 // sort, decoding the picked series, midline scoring and the 3x128x128 stack.
-func BenchmarkStudyPrepare(b *testing.B) {
-	insts := readAll(b, benchStudy(b))
-	spec := midsag.InputSpec{Layout: "NCHW", Height: 128, Width: 128, Slices: 3, SliceStep: 1,
-		Normalize: "percentile", PercentileLow: 1, PercentileHigh: 99}
-	pre := New(Options{})
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		if _, err := pre.Prepare(context.Background(), insts, spec); err != nil {
-			b.Fatal(err)
-		}
-	}
-}
+func BenchmarkStudyPrepare(b *testing.B) { benchPrepare(b, benchStudy(b), 128) }
 
 // BenchmarkStudyPrepare512 is BenchmarkStudyPrepare on a study whose
 // sagittal series have a 512 x 512 matrix, stacked at 3 x 512 x 512: the
 // size of a ResNet-50 input at 512 (bench/study.sh compares it with the
 // decode floor, BenchmarkSeriesDecodeBaseline512).
-func BenchmarkStudyPrepare512(b *testing.B) {
-	insts := readAll(b, benchStudy512(b))
-	spec := midsag.InputSpec{Layout: "NCHW", Height: 512, Width: 512, Slices: 3, SliceStep: 1,
-		Normalize: "percentile", PercentileLow: 1, PercentileHigh: 99}
-	pre := New(Options{})
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		if _, err := pre.Prepare(context.Background(), insts, spec); err != nil {
-			b.Fatal(err)
-		}
-	}
-}
+func BenchmarkStudyPrepare512(b *testing.B) { benchPrepare(b, benchStudy512(b), 512) }
 
 // BenchmarkSeriesDecodeBaseline512 decodes the T2 series of the 512
 // study only.
-func BenchmarkSeriesDecodeBaseline512(b *testing.B) {
-	insts := readAll(b, benchStudy512(b))
+func BenchmarkSeriesDecodeBaseline512(b *testing.B) { benchDecode(b, benchStudy512(b)) }
+
+// benchDecode decodes the pixels of the study's T2 series.
+func benchDecode(b *testing.B, files []phantom.File) {
+	insts := readAll(b, files)
 	se, _, _, err := PickSeries(Group(insts)[0], 3)
 	if err != nil {
 		b.Fatal(err)
@@ -133,6 +100,20 @@ func BenchmarkSeriesDecodeBaseline512(b *testing.B) {
 			if _, err := Decode(in); err != nil {
 				b.Fatal(err)
 			}
+		}
+	}
+}
+
+// benchPrepare runs Prepare on the study with a 3 x size x size stack.
+func benchPrepare(b *testing.B, files []phantom.File, size int) {
+	insts := readAll(b, files)
+	spec := midsag.InputSpec{Layout: "NCHW", Height: size, Width: size, Slices: 3, SliceStep: 1,
+		Normalize: "percentile", PercentileLow: 1, PercentileHigh: 99}
+	pre := New(Options{})
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := pre.Prepare(context.Background(), insts, spec); err != nil {
+			b.Fatal(err)
 		}
 	}
 }

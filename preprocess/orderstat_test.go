@@ -39,7 +39,6 @@ func TestKthMatchesSort(t *testing.T) {
 	}
 }
 
-
 // stackValues is the pixel count of a 3 x 512 x 512 stack, the size
 // percentiles are taken over for a ResNet-50 input at 512.
 func stackValues() []float32 {
