@@ -24,10 +24,14 @@ const (
 	// DefaultRefineQuantile refines the top quarter of the cells run at
 	// each level.
 	DefaultRefineQuantile = 0.75
-	// DefaultBatchSize is how many occluded copies go to one Predict call:
-	// large enough to amortise a run's overhead, small enough that a batch
-	// of 3x512x512 inputs stays under 50 MB.
-	DefaultBatchSize = 16
+	// DefaultBatchSize is how many occluded copies go to one Predict call.
+	// Chosen by measurement (bench/explain-batch.sh: one sparse map of a
+	// ResNet-50-sized model at 3 x 512 x 512 on 2 CPU cores, 2026-12-03,
+	// two runs on a shared machine): batch 1 was the fastest, batches 2,
+	// 4, 8 and 16 took 1.38 to 2.35 times as long per map. On a CPU a
+	// batch gains nothing once one call already keeps every core busy;
+	// concurrency comes from Workers instead.
+	DefaultBatchSize = 1
 )
 
 // Modes: which patches are occluded.
