@@ -44,6 +44,19 @@ func Plots(s *Summary) ([]Plot, error) {
 		out = append(out, Plot{Name: name, Caption: caption, PNG: b})
 		return nil
 	}
+	if s.Survival != nil {
+		km, err := kmPlot(s.Survival)
+		if err != nil {
+			return nil, err
+		}
+		if err := add("km.png", "Kaplan–Meier curves by risk group ("+s.Survival.Groups+"); + marks a censored case; dashed lines are the horizons; numbers at risk below.",
+			6*vg.Inch, 5*vg.Inch, km); err != nil {
+			return nil, err
+		}
+	}
+	if s.ROC == nil {
+		return out, nil
+	}
 	roc, err := rocPlot(s)
 	if err != nil {
 		return nil, err

@@ -4,8 +4,10 @@ import (
 	"encoding/base64"
 	"fmt"
 	"html"
+	"math"
 	"os"
 	"path/filepath"
+	"sort"
 	"strings"
 )
 
@@ -54,26 +56,41 @@ func optional(v *float64, format string) string {
 
 // rows lists the report's figures in reading order.
 func rows(s *Summary) []row {
-	op := s.OperatingPoint
-	r := []row{
-		{"cases", fmt.Sprintf("%d (%d positive, prevalence %.3f)", s.N, s.NPositive, s.Prevalence),
-			fmt.Sprintf("positive label %q, negative %q", s.PositiveLabel, s.NegativeLabel)},
+	var r []row
+	if s.ROC != nil {
+		r = append(r, row{"cases", fmt.Sprintf("%d (%d positive, prevalence %.3f)", s.N, s.NPositive, s.Prevalence),
+			fmt.Sprintf("positive label %q, negative %q", s.PositiveLabel, s.NegativeLabel)})
+	} else {
+		r = append(r, row{"cases", fmt.Sprintf("%d", s.N), "time-to-event evaluation only"})
 	}
 	if len(s.Excluded) > 0 {
 		var ex []string
 		for k, v := range s.Excluded {
 			ex = append(ex, fmt.Sprintf("%s %d", k, v))
 		}
+		sort.Strings(ex)
 		r = append(r, row{"excluded rows", strings.Join(ex, ", "), "rows with an empty cell in a used column, or without a label"})
 	}
-	r = append(r, row{"AUC (" + s.Score + ")", fmt.Sprintf("%.3f (95%% CI %s)", s.AUC.Value, fmtCI(s.AUC.CI95)), s.AUC.Method})
+	if s.ROC != nil {
+		r = append(r, binaryRows(s)...)
+	}
+	if s.Survival != nil {
+		r = append(r, survivalRows(s.Survival)...)
+	}
+	return r
+}
+
+// binaryRows lists the figures of the evaluation against binary labels.
+func binaryRows(s *Summary) []row {
+	op := s.OperatingPoint
+	r := []row{{"AUC (" + s.Score + ")", fmt.Sprintf("%.3f (95%% CI %s)", s.AUC.Value, fmtCI(s.AUC.CI95)), s.AUC.Method}}
 	if c := s.Compare; c != nil {
 		r = append(r,
 			row{"AUC (" + c.Column + ")", fmt.Sprintf("%.3f (95%% CI %s)", c.AUC.Value, fmtCI(c.AUC.CI95)), c.AUC.Method},
 			row{"difference", fmt.Sprintf("%+.3f, z %s, p %s", c.Delta, optional(c.Z, "%.2f"), optional(c.PValue, "%.4g")), c.Method})
 	}
 	r = append(r,
-		row{"threshold", fmt.Sprintf("%.4g", op.Threshold), fmt.Sprintf("rule %s; a case is called positive when its score is at least the threshold", op.Rule)},
+		row{"threshold", fmt.Sprintf("%.4g", op.Threshold), thresholdNote(op.Rule)},
 		row{"sensitivity", fmtProp(op.Sensitivity), op.CIMethod},
 		row{"specificity", fmtProp(op.Specificity), op.CIMethod},
 		row{"PPV", fmtProp(op.PPV), "at this cohort's prevalence"},
@@ -100,6 +117,76 @@ func rows(s *Summary) []row {
 			fmt.Sprintf("%s; %d replicates, seed %d; threshold held fixed", b.Method, b.Replicates, b.Seed)})
 	}
 	return r
+}
+
+// thresholdNote says how the threshold was chosen and, when it was fitted
+// on these cases, that the figures at it are optimistic.
+func thresholdNote(rule Rule) string {
+	n := fmt.Sprintf("rule %s; a case is called positive when its score is at least the threshold", rule)
+	if rule != RuleFixed {
+		n += ". The threshold was chosen on these same cases, so sensitivity and specificity at it are optimistic " +
+			"(Leeflang et al. 2008); fix it on other data and pass it with --threshold for an honest estimate"
+	}
+	return n
+}
+
+// survivalRows lists the figures of the time-to-event evaluation.
+func survivalRows(sv *SurvivalSummary) []row {
+	u := sv.TimeUnit
+	r := []row{
+		{"follow-up", fmt.Sprintf("%d cases, %d events, %d censored; median follow-up %s", sv.N, sv.Events, sv.Censored, FollowUpText(sv)), sv.FUMethod},
+		{"Harrell's C", fmt.Sprintf("%.3f%s (%d comparable pairs)", sv.Harrell.C, bootCI(sv.Bootstrap, true), sv.Harrell.Comparable), sv.Harrell.Method},
+		{"Uno's C", fmt.Sprintf("%.3f%s, truncated at %.4g %s", sv.Uno.C, bootCI(sv.Bootstrap, false), sv.Uno.Truncation, u), sv.Uno.Method},
+	}
+	for _, a := range sv.TimeAUC {
+		v := "undefined"
+		if !math.IsNaN(a.AUC) {
+			v = fmt.Sprintf("%.3f", a.AUC)
+		}
+		if a.CI95 != nil {
+			v += fmt.Sprintf(" (bootstrap 95%% CI %s)", fmtCI(*a.CI95))
+		}
+		r = append(r, row{fmt.Sprintf("AUC at %.4g %s", a.Horizon, u),
+			fmt.Sprintf("%s; %d cases, %d controls, %d censored before the horizon", v, a.Cases, a.Controls, a.CensoredBefore), sv.AUCMethod})
+	}
+	r = append(r, row{"censoring", "", sv.Handling}, row{"risk groups", sv.Groups, "Kaplan–Meier (Kaplan and Meier 1958) by group"})
+	for _, c := range sv.Curves {
+		var at []string
+		for _, h := range c.AtH {
+			at = append(at, fmt.Sprintf("S(%.4g) %.3f (95%% CI %s; %d at risk, %d censored before)", h.Horizon, h.Surv, fmtOptCI(h.CI95), h.AtRisk, h.CensoredBefore))
+		}
+		r = append(r, row{"group " + c.Name, fmt.Sprintf("%d cases, %d events; %s", c.N, c.Events, strings.Join(at, "; ")), "log-Greenwood interval, as survfit"})
+	}
+	if lr := sv.LogRank; lr != nil {
+		r = append(r, row{"log-rank", fmt.Sprintf("χ² %.3f on %d df, p %.4g", lr.ChiSq, lr.DF, lr.PValue), lr.Method})
+	}
+	return r
+}
+
+func fmtOptCI(c *Interval) string {
+	if c == nil {
+		return "undefined"
+	}
+	return fmtCI(*c)
+}
+
+// FollowUpText is the median follow-up in words, with its unit.
+func FollowUpText(sv *SurvivalSummary) string {
+	if sv.FollowUp == nil {
+		return "not reached (the reverse Kaplan–Meier stays above 0.5)"
+	}
+	return fmt.Sprintf("%.4g %s", *sv.FollowUp, sv.TimeUnit)
+}
+
+func bootCI(b *SurvBootstrap, harrell bool) string {
+	if b == nil {
+		return ""
+	}
+	ci := b.Uno
+	if harrell {
+		ci = b.Harrell
+	}
+	return fmt.Sprintf(" (bootstrap 95%% CI %s)", fmtCI(ci))
 }
 
 // Markdown returns report.md, which links the plots as files beside it.

@@ -23,6 +23,9 @@ type Options struct {
 	ScoreName         string  // column names, for the output
 	CompareName       string
 	ReaderName        string
+	// Survival asks for a time-to-event evaluation of a table read with
+	// time and event columns; nil for none.
+	Survival *SurvivalOptions
 }
 
 // Summary is everything Run measures; it marshals to the JSON of
@@ -44,6 +47,7 @@ type Summary struct {
 	ROC            []ROCPoint          `json:"roc"`
 	ROCBand        ROCBand             `json:"roc_band"`
 	Bootstrap      *BootstrapSummary   `json:"bootstrap,omitempty"`
+	Survival       *SurvivalSummary    `json:"survival,omitempty"`
 	Warnings       []string            `json:"warnings"`
 	Notice         string              `json:"notice"`
 }
@@ -189,6 +193,48 @@ func Run(t *Table, positive string, o Options) (*Summary, error) {
 		s.Bootstrap = &b
 		s.ROCBand = band
 	}
+	return s, nil
+}
+
+// Evaluate runs what the table allows: with a positive label the binary
+// evaluation of Run, with o.Survival the time-to-event evaluation of
+// RunSurvival, or both. The Kaplan–Meier risk groups default to the model's
+// decision when a threshold is known (the operating point, or a fixed
+// threshold) and to tertiles of the score otherwise.
+func Evaluate(t *Table, positive string, o Options) (*Summary, error) {
+	var s *Summary
+	threshold, haveThreshold := o.Threshold, o.Rule == RuleFixed
+	if positive != "" {
+		var err error
+		if s, err = Run(t, positive, o); err != nil {
+			return nil, err
+		}
+		threshold, haveThreshold = s.OperatingPoint.Threshold, true
+	} else {
+		s = &Summary{N: len(t.Scores), Excluded: t.Excluded, Score: o.ScoreName, Warnings: []string{}, Notice: midsag.Notice}
+	}
+	if o.Survival == nil {
+		return s, nil
+	}
+	so := *o.Survival
+	if so.Groups == "" {
+		so.Groups = GroupsTertiles
+		if haveThreshold {
+			so.Groups = GroupsDecision
+		}
+	}
+	if so.Groups == GroupsDecision {
+		if !haveThreshold {
+			return nil, errors.New("evaluate: decision risk groups need a threshold (a label column or --threshold)")
+		}
+		so.Threshold = threshold
+	}
+	sv, err := RunSurvival(t, so, o.ScoreName, o.Bootstrap, o.Seed)
+	if err != nil {
+		return nil, err
+	}
+	s.Survival = sv
+	s.Warnings = append(s.Warnings, sv.Warnings...)
 	return s, nil
 }
 

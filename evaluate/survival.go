@@ -1,6 +1,7 @@
 package evaluate
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"math"
@@ -11,14 +12,14 @@ import (
 // still followed, NEvent had the event and NCensor were censored. Surv is
 // the estimate just after Time; CI95 its log-transformed Greenwood
 // interval, survfit's default conf.type "log" (Kalbfleisch and Prentice
-// 2002, section 1.4), NaN bounds where Surv is 0.
+// 2002, section 1.4), nil where Surv is 0.
 type KMStep struct {
-	Time    float64  `json:"time"`
-	NRisk   int      `json:"n_risk"`
-	NEvent  int      `json:"n_event"`
-	NCensor int      `json:"n_censor"`
-	Surv    float64  `json:"surv"`
-	CI95    Interval `json:"ci95"`
+	Time    float64   `json:"time"`
+	NRisk   int       `json:"n_risk"`
+	NEvent  int       `json:"n_event"`
+	NCensor int       `json:"n_censor"`
+	Surv    float64   `json:"surv"`
+	CI95    *Interval `json:"ci95"`
 }
 
 // timeTally is the count of events and censorings at each distinct time,
@@ -67,10 +68,10 @@ func KaplanMeier(time []float64, event []bool) []KMStep {
 		if d > 0 && n > d {
 			gw += d / (n * (n - d)) // Greenwood 1926
 		}
-		ci := Interval{math.NaN(), math.NaN()}
+		var ci *Interval
 		if s > 0 {
 			half := z975 * math.Sqrt(gw)
-			ci = Interval{s * math.Exp(-half), math.Min(1, s*math.Exp(half))}
+			ci = &Interval{s * math.Exp(-half), math.Min(1, s*math.Exp(half))}
 		}
 		out[i] = KMStep{Time: t.time[i], NRisk: t.risk[i], NEvent: t.ev[i], NCensor: t.cen[i], Surv: s, CI95: ci}
 	}
@@ -120,6 +121,32 @@ type Concordance struct {
 	Truncation  float64 `json:"truncation,omitempty"`
 	Method      string  `json:"method"`
 	Unavailable string  `json:"unavailable,omitempty"`
+}
+
+// MarshalJSON writes an undefined C as null.
+func (c Concordance) MarshalJSON() ([]byte, error) {
+	type plain Concordance
+	return json.Marshal(struct {
+		plain
+		C *float64 `json:"c"`
+	}{plain(c), finite(c.C)})
+}
+
+// MarshalJSON writes an undefined AUC as null.
+func (a TimeAUC) MarshalJSON() ([]byte, error) {
+	type plain TimeAUC
+	return json.Marshal(struct {
+		plain
+		AUC *float64 `json:"auc"`
+	}{plain(a), finite(a.AUC)})
+}
+
+// finite returns &x, or nil for NaN and infinities, which JSON cannot carry.
+func finite(x float64) *float64 {
+	if math.IsNaN(x) || math.IsInf(x, 0) {
+		return nil
+	}
+	return &x
 }
 
 // concordance sums pair weights: pair (i, j) is comparable when i has the

@@ -130,3 +130,81 @@ func TestEvaluateUsage(t *testing.T) {
 		t.Errorf("exit %d, want 2 for --threshold with --target-sensitivity", code)
 	}
 }
+
+// TestEvaluateTimeToEvent runs the verb on six hand-made cases with
+// follow-up times and no labels. Hand counts: of the 10 comparable pairs
+// (an event before the other's time) the earlier case has the higher risk
+// in 8, so Harrell's C is 0.8; the IPCW AUC at 4 is 2.875/3.5 (worked in
+// evaluate's TestTimeDependentAUCByHand), with 1 case censored before 4.
+func TestEvaluateTimeToEvent(t *testing.T) {
+	dir := t.TempDir()
+	p := writeTemp(t, dir, "t.csv", "risk,months,event\n0.9,1,1\n0.1,2,0\n0.25,3,1\n0.8,4,1\n0.3,5,0\n0.2,6,1\n,7,1\n")
+	rep := filepath.Join(dir, "rep")
+	var out, errb bytes.Buffer
+	code := run(context.Background(), []string{"evaluate", "--table", p, "--score-col", "risk", "--time-col", "months",
+		"--event-col", "event", "--horizon", "4", "--time-unit", "months", "--report", rep, "--json"}, &out, &errb)
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	var got struct {
+		N        int            `json:"n"`
+		Excluded map[string]int `json:"excluded"`
+		Survival struct {
+			Harrell struct {
+				C float64 `json:"c"`
+			} `json:"harrell_c"`
+			TimeAUC []struct {
+				AUC            float64 `json:"auc"`
+				CensoredBefore int     `json:"censored_before"`
+			} `json:"time_auc"`
+			LogRank *struct {
+				DF int `json:"df"`
+			} `json:"log_rank"`
+		} `json:"survival"`
+	}
+	if err := json.Unmarshal(out.Bytes(), &got); err != nil {
+		t.Fatalf("%v\n%s", err, out.String())
+	}
+	if got.N != 6 || got.Excluded["empty_score"] != 1 {
+		t.Errorf("n %d excluded %v, want 6 and 1 empty_score", got.N, got.Excluded)
+	}
+	if got.Survival.Harrell.C != 0.8 {
+		t.Errorf("Harrell's C %v, want 0.8", got.Survival.Harrell.C)
+	}
+	if len(got.Survival.TimeAUC) != 1 || got.Survival.TimeAUC[0].AUC != 2.875/3.5 || got.Survival.TimeAUC[0].CensoredBefore != 1 {
+		t.Errorf("time AUC %+v, want 2.875/3.5 with 1 censored before", got.Survival.TimeAUC)
+	}
+	if got.Survival.LogRank == nil || got.Survival.LogRank.DF != 2 {
+		t.Errorf("log-rank %+v, want tertiles on 2 df", got.Survival.LogRank)
+	}
+	for _, f := range []string{"report.html", "km.png"} {
+		if _, err := os.Stat(filepath.Join(rep, f)); err != nil {
+			t.Error(err)
+		}
+	}
+}
+
+// TestEvaluateTableMessages: a --positive value that never occurs names
+// the values found; a negative time or an event other than 0/1 is refused.
+func TestEvaluateTableMessages(t *testing.T) {
+	cases := []struct {
+		name, table string
+		args        []string
+		want        string
+	}{
+		{"positive never occurs", "y,s\n1,0.2\n0,0.3\n", []string{"--label-col", "y", "--positive", "yes"}, `matches none of the values read so far ("1", "0")`},
+		{"positive never occurs, one value", "y,s\n1,0.2\n1,0.3\n", []string{"--label-col", "y", "--positive", "yes"}, `positive label "yes" matches no case; the label column holds "1"`},
+		{"negative time", "t,e,s\n-1,1,0.2\n", []string{"--time-col", "t", "--event-col", "e"}, "not a finite number ≥ 0"},
+		{"event 2", "t,e,s\n1,2,0.2\n", []string{"--time-col", "t", "--event-col", "e"}, "not 0 (censored) or 1"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			p := writeTemp(t, t.TempDir(), "t.csv", c.table)
+			var out, errb bytes.Buffer
+			code := run(context.Background(), append([]string{"evaluate", "--table", p, "--score-col", "s"}, c.args...), &out, &errb)
+			if code != exitRejected || !strings.Contains(errb.String(), c.want) {
+				t.Errorf("exit %d, stderr %q; want 3 and %q", code, errb.String(), c.want)
+			}
+		})
+	}
+}
