@@ -189,6 +189,75 @@ func bootCI(b *SurvBootstrap, harrell bool) string {
 	return fmt.Sprintf(" (bootstrap 95%% CI %s)", fmtCI(ci))
 }
 
+// section is one table of the report after the results: a title, an
+// introduction, a header row and rows.
+type section struct {
+	title, intro string
+	head         []string
+	rows         [][]string
+}
+
+// sections lists the report's further tables: provenance, the flow of
+// studies and the subgroups.
+func sections(s *Summary) []section {
+	var out []section
+	if p := s.Provenance; p != nil {
+		pv := section{title: "Where these numbers came from", head: []string{"item", "value"}}
+		for _, in := range p.Inputs {
+			pv.rows = append(pv.rows, []string{in.Role, fmt.Sprintf("%s (%d bytes, sha256 %s)", in.Path, in.Bytes, in.SHA256)})
+		}
+		models := "the table has no model_sha256 column"
+		if len(p.Models) > 0 {
+			models = "sha256 " + strings.Join(p.Models, ", ")
+		}
+		pv.rows = append(pv.rows, []string{"model (from the table)", models}, []string{"midsag", p.Version},
+			[]string{"command line", strings.Join(p.Command, " ")}, []string{"date", p.Date})
+		out = append(out, pv)
+	}
+	if len(s.Flow) > 0 {
+		fl := section{title: "Flow of studies", head: []string{"step", "n", "detail"},
+			intro: "In the order of the STARD 2015 flow diagram (Bossuyt et al. 2015, BMJ 351:h5527, item 19)."}
+		for _, f := range s.Flow {
+			fl.rows = append(fl.rows, []string{f.Step, fmt.Sprintf("%d", f.N), f.Detail})
+		}
+		out = append(out, fl)
+	}
+	if len(s.Subgroups) > 0 {
+		out = append(out, subgroupSection(s))
+	}
+	return out
+}
+
+func subgroupSection(s *Summary) section {
+	sg := section{title: "Subgroups", head: []string{"column", "value", "n"},
+		intro: "AUC with its DeLong 95% interval; sensitivity and specificity at the whole cohort's threshold with Wilson intervals; Harrell's C without an interval. Subgroups are descriptive: small ones give wide intervals."}
+	if s.ROC != nil {
+		sg.head = append(sg.head, "positive", "AUC", "sensitivity", "specificity")
+	}
+	if s.Survival != nil {
+		sg.head = append(sg.head, "events", "Harrell's C")
+	}
+	for _, g := range s.Subgroups {
+		r := []string{g.Column, g.Value, fmt.Sprintf("%d", g.N)}
+		if s.ROC != nil {
+			auc := "undefined (one class)"
+			if g.AUC != nil {
+				auc = fmt.Sprintf("%.3f (%s)", g.AUC.Value, fmtCI(g.AUC.CI95))
+			}
+			r = append(r, fmt.Sprintf("%d", g.NPositive), auc, fmtProp(*g.Sensitivity), fmtProp(*g.Specificity))
+		}
+		if s.Survival != nil {
+			c := "undefined"
+			if g.HarrellC != nil {
+				c = fmt.Sprintf("%.3f", *g.HarrellC)
+			}
+			r = append(r, fmt.Sprintf("%d", g.Events), c)
+		}
+		sg.rows = append(sg.rows, r)
+	}
+	return sg
+}
+
 // Markdown returns report.md, which links the plots as files beside it.
 func Markdown(s *Summary, plots []Plot) string {
 	var b strings.Builder
@@ -197,6 +266,20 @@ func Markdown(s *Summary, plots []Plot) string {
 	cell := func(x string) string { return strings.ReplaceAll(x, "|", `\|`) }
 	for _, r := range rows(s) {
 		fmt.Fprintf(&b, "| %s | %s | %s |\n", cell(r.name), cell(r.value), cell(r.note))
+	}
+	for _, sec := range sections(s) {
+		fmt.Fprintf(&b, "\n## %s\n\n", sec.title)
+		if sec.intro != "" {
+			fmt.Fprintf(&b, "%s\n\n", sec.intro)
+		}
+		fmt.Fprintf(&b, "| %s |\n|%s\n", strings.Join(sec.head, " | "), strings.Repeat(" --- |", len(sec.head)))
+		for _, r := range sec.rows {
+			cells := make([]string, len(r))
+			for i, c := range r {
+				cells[i] = cell(c)
+			}
+			fmt.Fprintf(&b, "| %s |\n", strings.Join(cells, " | "))
+		}
 	}
 	if len(s.Warnings) > 0 {
 		b.WriteString("\n## Warnings\n\n")
@@ -222,7 +305,7 @@ func HTML(s *Summary, plots []Plot) string {
 body{font-family:system-ui,sans-serif;max-width:60em;margin:2em auto;padding:0 1em;color:#222}
 .notice{border:2px solid #d55e00;background:#fff4ec;padding:.6em 1em;font-weight:bold}
 table{border-collapse:collapse;margin:1em 0}td,th{border:1px solid #ccc;padding:.3em .6em;text-align:left;vertical-align:top}
-td.how{color:#555;font-size:.9em}figure{margin:1.5em 0}img{max-width:100%;border:1px solid #eee}
+td.how{color:#555;font-size:.9em}td{overflow-wrap:anywhere}figure{margin:1.5em 0}img{max-width:100%;border:1px solid #eee}
 </style></head><body>
 <h1>midsag evaluation</h1>
 `)
@@ -231,6 +314,25 @@ td.how{color:#555;font-size:.9em}figure{margin:1.5em 0}img{max-width:100%;border
 		fmt.Fprintf(&b, "<tr><td>%s</td><td>%s</td><td class=\"how\">%s</td></tr>\n", e(r.name), e(r.value), e(r.note))
 	}
 	b.WriteString("</table>\n")
+	for _, sec := range sections(s) {
+		fmt.Fprintf(&b, "<h2>%s</h2>\n", e(sec.title))
+		if sec.intro != "" {
+			fmt.Fprintf(&b, "<p>%s</p>\n", e(sec.intro))
+		}
+		b.WriteString("<table><tr>")
+		for _, h := range sec.head {
+			fmt.Fprintf(&b, "<th>%s</th>", e(h))
+		}
+		b.WriteString("</tr>\n")
+		for _, r := range sec.rows {
+			b.WriteString("<tr>")
+			for _, c := range r {
+				fmt.Fprintf(&b, "<td>%s</td>", e(c))
+			}
+			b.WriteString("</tr>\n")
+		}
+		b.WriteString("</table>\n")
+	}
 	if len(s.Warnings) > 0 {
 		b.WriteString("<h2>Warnings</h2><ul>\n")
 		for _, w := range s.Warnings {

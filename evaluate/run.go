@@ -48,6 +48,9 @@ type Summary struct {
 	ROCBand        ROCBand             `json:"roc_band"`
 	Bootstrap      *BootstrapSummary   `json:"bootstrap,omitempty"`
 	Survival       *SurvivalSummary    `json:"survival,omitempty"`
+	Flow           []FlowStep          `json:"flow"`
+	Subgroups      []Subgroup          `json:"subgroups,omitempty"`
+	Provenance     *Provenance         `json:"provenance,omitempty"`
 	Warnings       []string            `json:"warnings"`
 	Notice         string              `json:"notice"`
 }
@@ -71,6 +74,8 @@ type CompareSummary struct {
 	Z      *float64   `json:"z"`
 	PValue *float64   `json:"p_value"`
 	Method string     `json:"method"`
+	// ROC is the compared score's empirical ROC curve.
+	ROC []ROCPoint `json:"roc"`
 }
 
 // OperatingPoint is the model's performance at one threshold; a case is
@@ -198,10 +203,25 @@ func Run(t *Table, positive string, o Options) (*Summary, error) {
 
 // Evaluate runs what the table allows: with a positive label the binary
 // evaluation of Run, with o.Survival the time-to-event evaluation of
-// RunSurvival, or both. The Kaplan–Meier risk groups default to the model's
-// decision when a threshold is known (the operating point, or a fixed
-// threshold) and to tertiles of the score otherwise.
+// RunSurvival, or both; then the flow of studies and the subgroups. The
+// Kaplan–Meier risk groups default to the model's decision when a
+// threshold is known (the operating point, or a fixed threshold) and to
+// tertiles of the score otherwise.
 func Evaluate(t *Table, positive string, o Options) (*Summary, error) {
+	s, err := evaluate(t, positive, o)
+	if err != nil {
+		return nil, err
+	}
+	s.Flow = flowSteps(t, s)
+	s.Subgroups = subgroups(t, s)
+	s.Provenance = &Provenance{Models: modelsOf(t.Models)}
+	if len(t.Models) > 1 {
+		s.Warnings = append(s.Warnings, fmt.Sprintf("the table's scores come from %d different models (model_sha256)", len(t.Models)))
+	}
+	return s, nil
+}
+
+func evaluate(t *Table, positive string, o Options) (*Summary, error) {
 	var s *Summary
 	threshold, haveThreshold := o.Threshold, o.Rule == RuleFixed
 	if positive != "" {
@@ -250,6 +270,9 @@ func compareSummary(t *Table, name string, s *Summary) (*CompareSummary, error) 
 	}
 	cs := &CompareSummary{Column: name, AUC: aucSummary(b), Delta: s.AUC.Value - b.Value,
 		Method: "paired DeLong test, two-sided (DeLong, DeLong and Clarke-Pearson 1988)"}
+	if cs.ROC, err = ROC(t.Compare, t.Labels); err != nil {
+		return nil, err
+	}
 	c, err := Compare(t.Scores, t.Compare, t.Labels)
 	if err != nil {
 		s.Warnings = append(s.Warnings, err.Error())

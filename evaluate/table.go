@@ -23,8 +23,19 @@ type Columns struct {
 	ID       string // id column joining the table with a labels file
 	Time     string // optional follow-up time (≥ 0) for a time-to-event evaluation
 	Event    string // with Time: 1 when the event was seen at Time, 0 when censored there
-	Subgroup string // optional column whose values split the cases into subgroups
+	// Subgroups are columns whose values split the cases into subgroups.
+	Subgroups []string
 }
+
+// Batch table columns: when the table has them (a midsag batch table),
+// ReadTable counts its studies by status and reason for the flow table and
+// collects the model's sha256.
+const (
+	colStatus   = "status"
+	colReason   = "reason"
+	colModelSHA = "model_sha256"
+	scored      = "scored"
+)
 
 // Table is the cases read from a CSV table, in file order.
 type Table struct {
@@ -35,7 +46,12 @@ type Table struct {
 	Reader  []bool    // Columns.Reader (true = called positive), nil without it
 	Times   []float64 // Columns.Time, nil without it
 	Events  []bool    // Columns.Event (true = event seen), nil without it
-	Groups  []string  // Columns.Subgroup, nil without it
+	// Groups holds each subgroup column's value per case.
+	Groups map[string][]string
+	// Flow counts the table's rows before any is left out; Models counts
+	// the cases by the model_sha256 column when the table has one.
+	Flow   Flow
+	Models map[string]int
 	// NegativeLabel is the one label value other than Columns.Positive.
 	NegativeLabel string
 	// Excluded counts rows left out, by reason: "empty_score",
@@ -73,7 +89,7 @@ func ReadTable(table io.Reader, tableName string, labels io.Reader, labelsName s
 	if err != nil {
 		return nil, err
 	}
-	need := []string{cols.Score, cols.Compare, cols.Reader, cols.Time, cols.Event, cols.Subgroup}
+	need := append([]string{cols.Score, cols.Compare, cols.Reader, cols.Time, cols.Event}, cols.Subgroups...)
 	if truth != nil {
 		need = append(need, cols.ID)
 	} else {
@@ -93,10 +109,11 @@ func ReadTable(table io.Reader, tableName string, labels io.Reader, labelsName s
 	if cols.Time != "" {
 		t.Times, t.Events = []float64{}, []bool{}
 	}
-	if cols.Subgroup != "" {
-		t.Groups = []string{}
+	if len(cols.Subgroups) > 0 {
+		t.Groups = map[string][]string{}
 	}
-	rr := rowReader{t: t, cols: cols, at: at, truth: truth, name: tableName, seen: map[string]int{}}
+	rr := rowReader{t: t, cols: cols, at: at, truth: truth, name: tableName, seen: map[string]int{}, batch: batchColumns(header)}
+	t.Flow = Flow{Batch: rr.batch != nil, Status: map[string]int{}, Reasons: map[string]int{}}
 	for i, row := range rows {
 		if err := rr.add(row, i+2); err != nil { // 1-based, after the header
 			return nil, err
@@ -126,12 +143,60 @@ type rowReader struct {
 	truth map[string]string // id → label from the labels file, or nil
 	name  string
 	seen  map[string]int // id → line, for a join
+	batch map[string]int // positions of the batch table's columns, or nil
+}
+
+// batchColumns finds the status, reason and model columns of a batch
+// table; nil when the table has no status column.
+func batchColumns(header []string) map[string]int {
+	at := map[string]int{}
+	for i, h := range header {
+		switch h = strings.TrimSpace(h); h {
+		case colStatus, colReason, colModelSHA:
+			at[h] = i
+		}
+	}
+	if _, ok := at[colStatus]; !ok {
+		return nil
+	}
+	return at
+}
+
+// batchRow counts a batch table's row by status and reports whether it
+// was scored (only scored studies go on to be evaluated).
+func (rr *rowReader) batchRow(row []string) bool {
+	if rr.batch == nil {
+		return true
+	}
+	get := func(c string) string {
+		if i, ok := rr.batch[c]; ok && i < len(row) {
+			return strings.TrimSpace(row[i])
+		}
+		return ""
+	}
+	st := get(colStatus)
+	rr.t.Flow.Status[st]++
+	if st != scored {
+		rr.t.Flow.Reasons[st+": "+get(colReason)]++
+		return false
+	}
+	if m := get(colModelSHA); m != "" {
+		if rr.t.Models == nil {
+			rr.t.Models = map[string]int{}
+		}
+		rr.t.Models[m]++
+	}
+	return true
 }
 
 // add adds one row (at line) to the table, counts it as excluded, or
 // refuses it.
 func (rr *rowReader) add(row []string, line int) error {
 	cols := rr.cols
+	rr.t.Flow.Rows++
+	if !rr.batchRow(row) {
+		return nil
+	}
 	id, label, ok, err := rr.idLabel(row, line)
 	if err != nil || !ok {
 		return err
@@ -158,8 +223,8 @@ func (rr *rowReader) add(row []string, line int) error {
 		}
 		rr.t.Labels = append(rr.t.Labels, pos)
 	}
-	if cols.Subgroup != "" {
-		rr.t.Groups = append(rr.t.Groups, cell(cols.Subgroup))
+	for _, g := range cols.Subgroups {
+		rr.t.Groups[g] = append(rr.t.Groups[g], cell(g))
 	}
 	if cols.Compare != "" {
 		c, err := number(cell(cols.Compare))

@@ -2,13 +2,17 @@ package main
 
 import (
 	"context"
+	"crypto/sha256"
+	"encoding/hex"
 	"flag"
 	"fmt"
+	"hash"
 	"io"
 	"math"
 	"os"
 	"strconv"
 	"strings"
+	"time"
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/evaluate"
@@ -40,6 +44,11 @@ func runEvaluate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	report := fs.String("report", "", "write report.md, report.html and the plots into this `folder`")
 	asJSON := fs.Bool("json", false, "print the summary as JSON")
 	sf := survivalFlags(fs)
+	var subgroups []string
+	fs.Func("subgroup", "report the figures within each value of this `column` too (repeat for several)", func(c string) error {
+		subgroups = append(subgroups, c)
+		return nil
+	})
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -86,11 +95,14 @@ func runEvaluate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 		opts.Rule, opts.TargetSensitivity = evaluate.RuleTargetSensitivity, v
 	}
 	cols := evaluate.Columns{Score: *scoreCol, Label: *labelCol, Positive: *positive,
-		Compare: *compareCol, Reader: *readerCol, ID: *idCol, Time: sf.time, Event: sf.event}
+		Compare: *compareCol, Reader: *readerCol, ID: *idCol, Time: sf.time, Event: sf.event, Subgroups: subgroups}
 	s, err := evaluateFiles(*table, *labelsFile, cols, opts)
 	if err != nil {
 		return reportRejection(err, *asJSON, stderr)
 	}
+	s.Provenance.Version = evaluate.Version(midsag.ImplementationVersionName)
+	s.Provenance.Command = append([]string{"midsag", "evaluate"}, args...)
+	s.Provenance.Date = time.Now().UTC().Format(time.RFC3339)
 	if *report != "" {
 		if err := evaluate.WriteReport(*report, s, writeFileAtomic); err != nil {
 			return fmt.Errorf("evaluate: report: %w", err)
@@ -103,27 +115,65 @@ func runEvaluate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	return nil
 }
 
-// evaluateFiles opens the table (and labels) and runs the evaluation.
+// evaluateFiles opens the table (and labels), runs the evaluation and
+// records the files read, with the sha256 of the bytes read, in the
+// summary's provenance.
 func evaluateFiles(tablePath, labelsPath string, cols evaluate.Columns, opts evaluate.Options) (*evaluate.Summary, error) {
-	tf, err := os.Open(tablePath)
-	if err != nil {
-		return nil, midsag.Reject(midsag.ReasonNoInput, "open table", err)
-	}
-	defer tf.Close()
-	var lr io.Reader
-	if labelsPath != "" {
-		lf, err := os.Open(labelsPath)
-		if err != nil {
-			return nil, midsag.Reject(midsag.ReasonNoInput, "open labels", err)
-		}
-		defer lf.Close()
-		lr = lf
-	}
-	t, err := evaluate.ReadTable(tf, tablePath, lr, labelsPath, cols)
+	table, err := openHashed("table", tablePath)
 	if err != nil {
 		return nil, err
 	}
-	return evaluate.Evaluate(t, cols.Positive, opts)
+	defer table.Close()
+	var lr io.Reader
+	var labels *hashedFile
+	if labelsPath != "" {
+		if labels, err = openHashed("labels", labelsPath); err != nil {
+			return nil, err
+		}
+		defer labels.Close()
+		lr = labels
+	}
+	t, err := evaluate.ReadTable(table, tablePath, lr, labelsPath, cols)
+	if err != nil {
+		return nil, err
+	}
+	s, err := evaluate.Evaluate(t, cols.Positive, opts)
+	if err != nil {
+		return nil, err
+	}
+	s.Provenance.Inputs = append(s.Provenance.Inputs, table.input())
+	if labels != nil {
+		s.Provenance.Inputs = append(s.Provenance.Inputs, labels.input())
+	}
+	return s, nil
+}
+
+// hashedFile is an open input whose bytes are hashed as they are read.
+type hashedFile struct {
+	*os.File
+	role, path string
+	h          hash.Hash
+	n          int64
+}
+
+func openHashed(role, path string) (*hashedFile, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, midsag.Reject(midsag.ReasonNoInput, "open "+role, err)
+	}
+	return &hashedFile{File: f, role: role, path: path, h: sha256.New()}, nil
+}
+
+// Read reads from the file and hashes what it read.
+func (f *hashedFile) Read(p []byte) (int, error) {
+	n, err := f.File.Read(p)
+	f.h.Write(p[:n])
+	f.n += int64(n)
+	return n, err
+}
+
+func (f *hashedFile) input() evaluate.InputFile {
+	return evaluate.InputFile{Role: f.role, Path: f.path, SHA256: hex.EncodeToString(f.h.Sum(nil)), Bytes: f.n}
 }
 
 // survivalFlagValues are the time-to-event options as given.

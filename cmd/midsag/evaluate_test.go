@@ -10,6 +10,7 @@ import (
 	"testing"
 
 	"github.com/midsag/midsag"
+	"github.com/midsag/midsag/internal/testtool"
 )
 
 func writeTemp(t *testing.T, dir, name, body string) string {
@@ -206,5 +207,89 @@ func TestEvaluateTableMessages(t *testing.T) {
 				t.Errorf("exit %d, stderr %q; want 3 and %q", code, errb.String(), c.want)
 			}
 		})
+	}
+}
+
+// TestEvaluateBatchFlowProvenance evaluates a batch-shaped table (status,
+// reason, model_sha256) joined with labels: the flow counts are hand
+// counts of the table; the input's sha256 is checked against coreutils'
+// sha256sum; the subgroup AUC is a hand count.
+func TestEvaluateBatchFlowProvenance(t *testing.T) {
+	dir := t.TempDir()
+	table := "study_instance_uid,status,reason,calibrated_probability,model_sha256,site\n" +
+		"a,scored,,0.9,m1,north\nb,scored,,0.8,m1,north\nc,scored,,0.3,m1,north\nd,scored,,0.2,m1,north\n" +
+		"e,scored,,0.7,m1,south\nf,scored,,0.6,m1,south\ng,scored,,0.65,m1,south\n" +
+		"h,rejected,no_sagittal_series,,,north\ni,rejected,no_sagittal_series,,,south\nj,failed,io_error,,,south\n" +
+		"k,scored,,0.5,m1,south\n"
+	labels := "study_instance_uid,y\na,1\nb,1\nc,0\nd,0\ne,1\nf,0\ng,0\nh,1\ni,0\nj,1\n"
+	tp, lp := writeTemp(t, dir, "results.csv", table), writeTemp(t, dir, "labels.csv", labels)
+	rep := filepath.Join(dir, "rep")
+	var out, errb bytes.Buffer
+	code := run(context.Background(), []string{"evaluate", "--table", tp, "--labels", lp, "--id-col", "study_instance_uid",
+		"--label-col", "y", "--positive", "1", "--score-col", "calibrated_probability", "--subgroup", "site",
+		"--report", rep, "--json"}, &out, &errb)
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	var got struct {
+		Flow []struct {
+			Step   string `json:"step"`
+			N      int    `json:"n"`
+			Detail string `json:"detail"`
+		} `json:"flow"`
+		Subgroups []struct {
+			Value string `json:"value"`
+			N     int    `json:"n"`
+			AUC   *struct {
+				Value float64 `json:"value"`
+			} `json:"auc"`
+		} `json:"subgroups"`
+		Provenance struct {
+			Inputs []struct {
+				Path   string `json:"path"`
+				SHA256 string `json:"sha256"`
+			} `json:"inputs"`
+			Models  []string `json:"models"`
+			Command []string `json:"command_line"`
+			Date    string   `json:"date"`
+		} `json:"provenance"`
+	}
+	if err := json.Unmarshal(out.Bytes(), &got); err != nil {
+		t.Fatalf("%v\n%s", err, out.String())
+	}
+	// 11 rows; 3 not scored (2 rejected no_sagittal_series, 1 failed);
+	// 8 scored, of which k has no label; 7 analysed, 3 positive.
+	want := []int{11, 3, 8, 1, 0, 7, 3, 4}
+	if len(got.Flow) != len(want) {
+		t.Fatalf("flow %+v, want %d steps", got.Flow, len(want))
+	}
+	for i, w := range want {
+		if got.Flow[i].N != w {
+			t.Errorf("flow step %q: %d, want %d", got.Flow[i].Step, got.Flow[i].N, w)
+		}
+	}
+	if !strings.Contains(got.Flow[1].Detail, "rejected: no_sagittal_series 2") || !strings.Contains(got.Flow[1].Detail, "failed: io_error 1") {
+		t.Errorf("not-scored detail %q", got.Flow[1].Detail)
+	}
+	// north: a, b positive over c, d: AUC 1. south: e (0.7) against f
+	// (0.6) and g (0.65): AUC 1; both have two classes.
+	if len(got.Subgroups) != 2 || got.Subgroups[0].Value != "north" || got.Subgroups[0].N != 4 || got.Subgroups[0].AUC == nil || got.Subgroups[0].AUC.Value != 1 {
+		t.Errorf("subgroups %+v", got.Subgroups)
+	}
+	sum := strings.Fields(string(testtool.Run(t, "sha256sum", tp)))[0]
+	if len(got.Provenance.Inputs) != 2 || got.Provenance.Inputs[0].SHA256 != sum {
+		t.Errorf("provenance inputs %+v, want the table's sha256sum %s first", got.Provenance.Inputs, sum)
+	}
+	if len(got.Provenance.Models) != 1 || got.Provenance.Models[0] != "m1" || got.Provenance.Date == "" || got.Provenance.Command[1] != "evaluate" {
+		t.Errorf("provenance %+v", got.Provenance)
+	}
+	html, err := os.ReadFile(filepath.Join(rep, "report.html"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, s := range []string{"STARD 2015", sum, "Subgroups", "optimistic"} {
+		if !strings.Contains(string(html), s) {
+			t.Errorf("report.html lacks %q", s)
+		}
 	}
 }
