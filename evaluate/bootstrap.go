@@ -95,13 +95,5 @@ func stepROC(pos, neg []float64) func(float64) float64 {
 func percentileCI(x []float64) Interval {
 	s := append([]float64(nil), x...)
 	sort.Float64s(s)
-	q := func(p float64) float64 {
-		h := (float64(len(s)) - 1) * p
-		lo := math.Floor(h)
-		if int(lo)+1 >= len(s) {
-			return s[len(s)-1]
-		}
-		return s[int(lo)] + (h-lo)*(s[int(lo)+1]-s[int(lo)])
-	}
-	return Interval{q(0.025), q(0.975)}
+	return Interval{quantile7(s, 0.025), quantile7(s, 0.975)}
 }

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"fmt"
 	"image/color"
+	"math"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -44,6 +45,19 @@ func Plots(s *Summary) ([]Plot, error) {
 		out = append(out, Plot{Name: name, Caption: caption, PNG: b})
 		return nil
 	}
+	if s.Survival != nil {
+		km, err := kmPlot(s.Survival)
+		if err != nil {
+			return nil, err
+		}
+		if err := add("km.png", "Kaplan–Meier curves by risk group ("+s.Survival.Groups+"); + marks a censored case; dashed lines are the horizons; numbers at risk below.",
+			6*vg.Inch, 5*vg.Inch, km); err != nil {
+			return nil, err
+		}
+	}
+	if s.ROC == nil {
+		return out, nil
+	}
 	roc, err := rocPlot(s)
 	if err != nil {
 		return nil, err
@@ -71,7 +85,7 @@ func Plots(s *Summary) ([]Plot, error) {
 		if err != nil {
 			return nil, err
 		}
-		if err := add("decision.png", "Decision curve (Vickers and Elkin 2006): net benefit by threshold probability.",
+		if err := add("decision.png", "Decision curve (Vickers and Elkin 2006): net benefit by threshold probability. The model's curve is shown whole; treat-all continues below the lower edge as the threshold rises.",
 			6*vg.Inch, 4.5*vg.Inch, dc.Draw); err != nil {
 			return nil, err
 		}
@@ -128,7 +142,7 @@ func diagonal() *plotter.Line {
 
 func rocPlot(s *Summary) (*plot.Plot, error) {
 	p := plot.New()
-	p.Title.Text = fmt.Sprintf("ROC: AUC %.3f (95%% CI %.3f to %.3f)", s.AUC.Value, s.AUC.CI95[0], s.AUC.CI95[1])
+	p.Title.Text = fmt.Sprintf("ROC (n = %d, %d positive): AUC %.3f (95%% CI %.3f to %.3f)", s.N, s.NPositive, s.AUC.Value, s.AUC.CI95[0], s.AUC.CI95[1])
 	p.X.Label.Text = "1 − specificity (false positive rate)"
 	p.Y.Label.Text = "sensitivity (true positive rate)"
 	unitAxes(p)
@@ -156,7 +170,21 @@ func rocPlot(s *Summary) (*plot.Plot, error) {
 	line.Color, line.Width = colModel, vg.Points(2)
 	p.Add(poly, diagonal(), line)
 	p.Legend.Add("95% band", poly)
-	p.Legend.Add(s.Score, line)
+	p.Legend.Add(fmt.Sprintf("%s (AUC %.3f)", s.Score, s.AUC.Value), line)
+	if c := s.Compare; c != nil {
+		xy := make(plotter.XYs, len(c.ROC))
+		for i, pt := range c.ROC {
+			xy[i] = plotter.XY{X: pt.FPR, Y: pt.TPR}
+		}
+		cl, err := plotter.NewLine(xy)
+		if err != nil {
+			return nil, fmt.Errorf("roc of %s: %w", c.Column, err)
+		}
+		cl.Color, cl.Width = colAll, vg.Points(1.5)
+		cl.Dashes = []vg.Length{vg.Points(6), vg.Points(2)}
+		p.Add(cl)
+		p.Legend.Add(fmt.Sprintf("%s (AUC %.3f)", c.Column, c.AUC.Value), cl)
+	}
 	op := s.OperatingPoint
 	model, _ := plotter.NewScatter(plotter.XYs{{X: 1 - op.Specificity.Value, Y: op.Sensitivity.Value}}) // one finite point
 	model.GlyphStyle = draw.GlyphStyle{Color: colModel, Radius: vg.Points(5), Shape: draw.CircleGlyph{}}
@@ -175,7 +203,7 @@ func rocPlot(s *Summary) (*plot.Plot, error) {
 
 func reliabilityPlots(s *Summary) (rel, hist *plot.Plot) {
 	rel = plot.New()
-	rel.Title.Text = fmt.Sprintf("Reliability: Brier %.3f, ECE %.3f", s.Calibration.Brier, s.Calibration.ECE)
+	rel.Title.Text = fmt.Sprintf("Reliability (n = %d): Brier %.3f, ECE %.3f", s.N, s.Calibration.Brier, s.Calibration.ECE)
 	rel.X.Label.Text = "mean predicted probability in bin"
 	rel.Y.Label.Text = "observed event rate"
 	unitAxes(rel)
@@ -213,9 +241,14 @@ func reliabilityPlots(s *Summary) (rel, hist *plot.Plot) {
 		hist.Add(hp)
 		hist.Legend.Add(h.name, hp)
 	}
+	// Headroom above the tallest bar keeps the legend off the bars.
+	tallest := 0.0
+	for i := range posBins {
+		tallest = math.Max(tallest, math.Max(posBins[i].Weight, negBins[i].Weight))
+	}
+	hist.Y.Min, hist.Y.Max = 0, math.Max(1, tallest)*1.6
 	hist.Legend.Top = true
 	hist.Legend.Left = false
-	hist.Legend.XOffs = -vg.Millimeter * 18
 	return rel, hist
 }
 
@@ -287,7 +320,7 @@ func confusionPlot(title string, c Confusion) *plot.Plot {
 
 func decisionPlot(s *Summary) (*plot.Plot, error) {
 	p := plot.New()
-	p.Title.Text = "Decision curve"
+	p.Title.Text = fmt.Sprintf("Decision curve (n = %d, prevalence %.3f)", s.N, s.Prevalence)
 	p.X.Label.Text = "threshold probability"
 	p.Y.Label.Text = "net benefit"
 	p.Add(plotter.NewGrid())
@@ -311,10 +344,15 @@ func decisionPlot(s *Summary) (*plot.Plot, error) {
 		p.Add(line)
 		p.Legend.Add(l.name, line)
 	}
-	// Treat-all falls without bound as the threshold rises; show the range
-	// where the curves can be compared, with headroom for the legend.
+	// The model's curve is shown whole. Treat-all falls without bound as
+	// the threshold rises (to −98·(1 − prevalence) at 0.99), so it leaves
+	// the plot below the model's lowest value; the caption says so.
+	low := -0.05
+	for _, pt := range s.DecisionCurve {
+		low = math.Min(low, pt.Model)
+	}
 	p.X.Min, p.X.Max = 0, 1
-	p.Y.Min, p.Y.Max = -0.05, s.Prevalence*1.35+0.05
+	p.Y.Min, p.Y.Max = low-0.02, s.Prevalence*1.35+0.05
 	p.Legend.Top = true
 	return p, nil
 }

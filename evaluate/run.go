@@ -23,6 +23,9 @@ type Options struct {
 	ScoreName         string  // column names, for the output
 	CompareName       string
 	ReaderName        string
+	// Survival asks for a time-to-event evaluation of a table read with
+	// time and event columns; nil for none.
+	Survival *SurvivalOptions
 }
 
 // Summary is everything Run measures; it marshals to the JSON of
@@ -44,6 +47,10 @@ type Summary struct {
 	ROC            []ROCPoint          `json:"roc"`
 	ROCBand        ROCBand             `json:"roc_band"`
 	Bootstrap      *BootstrapSummary   `json:"bootstrap,omitempty"`
+	Survival       *SurvivalSummary    `json:"survival,omitempty"`
+	Flow           []FlowStep          `json:"flow"`
+	Subgroups      []Subgroup          `json:"subgroups,omitempty"`
+	Provenance     *Provenance         `json:"provenance,omitempty"`
 	Warnings       []string            `json:"warnings"`
 	Notice         string              `json:"notice"`
 }
@@ -67,6 +74,8 @@ type CompareSummary struct {
 	Z      *float64   `json:"z"`
 	PValue *float64   `json:"p_value"`
 	Method string     `json:"method"`
+	// ROC is the compared score's empirical ROC curve.
+	ROC []ROCPoint `json:"roc"`
 }
 
 // OperatingPoint is the model's performance at one threshold; a case is
@@ -192,6 +201,63 @@ func Run(t *Table, positive string, o Options) (*Summary, error) {
 	return s, nil
 }
 
+// Evaluate runs what the table allows: with a positive label the binary
+// evaluation of Run, with o.Survival the time-to-event evaluation of
+// RunSurvival, or both; then the flow of studies and the subgroups. The
+// Kaplan–Meier risk groups default to the model's decision when a
+// threshold is known (the operating point, or a fixed threshold) and to
+// tertiles of the score otherwise.
+func Evaluate(t *Table, positive string, o Options) (*Summary, error) {
+	s, err := evaluate(t, positive, o)
+	if err != nil {
+		return nil, err
+	}
+	s.Flow = flowSteps(t, s)
+	s.Subgroups = subgroups(t, s)
+	s.Provenance = &Provenance{Models: modelsOf(t.Models)}
+	if len(t.Models) > 1 {
+		s.Warnings = append(s.Warnings, fmt.Sprintf("the table's scores come from %d different models (model_sha256)", len(t.Models)))
+	}
+	return s, nil
+}
+
+func evaluate(t *Table, positive string, o Options) (*Summary, error) {
+	var s *Summary
+	threshold, haveThreshold := o.Threshold, o.Rule == RuleFixed
+	if positive != "" {
+		var err error
+		if s, err = Run(t, positive, o); err != nil {
+			return nil, err
+		}
+		threshold, haveThreshold = s.OperatingPoint.Threshold, true
+	} else {
+		s = &Summary{N: len(t.Scores), Excluded: t.Excluded, Score: o.ScoreName, Warnings: []string{}, Notice: midsag.Notice}
+	}
+	if o.Survival == nil {
+		return s, nil
+	}
+	so := *o.Survival
+	if so.Groups == "" {
+		so.Groups = GroupsTertiles
+		if haveThreshold {
+			so.Groups = GroupsDecision
+		}
+	}
+	if so.Groups == GroupsDecision {
+		if !haveThreshold {
+			return nil, errors.New("evaluate: decision risk groups need a threshold (a label column or --threshold)")
+		}
+		so.Threshold = threshold
+	}
+	sv, err := RunSurvival(t, so, o.ScoreName, o.Bootstrap, o.Seed)
+	if err != nil {
+		return nil, err
+	}
+	s.Survival = sv
+	s.Warnings = append(s.Warnings, sv.Warnings...)
+	return s, nil
+}
+
 func aucSummary(a AUCResult) AUCSummary {
 	return AUCSummary{Value: a.Value, SE: a.SE, CI95: a.CI95,
 		Method: "DeLong (DeLong, DeLong and Clarke-Pearson 1988; Sun and Xu 2014), AUC ± 1.96·SE clipped to [0, 1]"}
@@ -204,6 +270,9 @@ func compareSummary(t *Table, name string, s *Summary) (*CompareSummary, error) 
 	}
 	cs := &CompareSummary{Column: name, AUC: aucSummary(b), Delta: s.AUC.Value - b.Value,
 		Method: "paired DeLong test, two-sided (DeLong, DeLong and Clarke-Pearson 1988)"}
+	if cs.ROC, err = ROC(t.Compare, t.Labels); err != nil {
+		return nil, err
+	}
 	c, err := Compare(t.Scores, t.Compare, t.Labels)
 	if err != nil {
 		s.Warnings = append(s.Warnings, err.Error())
