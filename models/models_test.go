@@ -59,7 +59,7 @@ func refInput(shape []int64) *midsag.Tensor {
 
 // needORT initialises ONNX Runtime or skips the test when the library is
 // missing, unless MIDSAG_REQUIRE_TOOLS=1 makes that a failure.
-func needORT(t *testing.T) {
+func needORT(t testing.TB) {
 	t.Helper()
 	lib, err := FindLibrary("")
 	if err == nil {

@@ -2,6 +2,8 @@ package models
 
 import (
 	"fmt"
+	"strconv"
+	"strings"
 
 	"google.golang.org/protobuf/encoding/protowire"
 
@@ -401,6 +403,51 @@ func EmbedManifest(onnx []byte, manifest []byte) ([]byte, error) {
 	return out, nil
 }
 
+// intDims returns the shape with symbolic or unknown dimensions as -1,
+// as ONNX Runtime reports them, or nil for a value that is not a tensor
+// or has no declared shape.
+func (v pbValueInfo) intDims() []int64 {
+	if v.dims == nil {
+		return nil
+	}
+	out := make([]int64, len(v.dims))
+	for i, d := range v.dims {
+		n, err := strconv.ParseInt(d, 10, 64)
+		if err != nil || n < 0 {
+			n = -1
+		}
+		out[i] = n
+	}
+	return out
+}
+
+// describe says what the value is, for errors: "float32 [N,3,32,32]".
+func (v pbValueInfo) describe() string {
+	if v.elemType == "" {
+		return "not a tensor"
+	}
+	if v.dims == nil {
+		return v.elemType + " of undeclared shape"
+	}
+	return v.elemType + " [" + strings.Join(v.dims, ",") + "]"
+}
+
+// manifest returns the sidecar manifest when given, else the embedded one.
+func (m *pbModel) manifest(sidecar []byte) (*Manifest, error) {
+	if sidecar != nil {
+		man, err := ParseManifest(sidecar)
+		if err != nil {
+			return nil, fmt.Errorf("sidecar manifest: %w", err)
+		}
+		return man, nil
+	}
+	raw, ok := m.manifestBytes()
+	if !ok {
+		return nil, midsag.Rejectf(midsag.ReasonBadModel, "model has no %q metadata entry and no sidecar manifest", ManifestKey)
+	}
+	return ParseManifest(raw)
+}
+
 // ReadManifest returns the manifest embedded in an ONNX model's metadata.
 // A model without one, or with one that does not validate, is refused with
 // midsag.ReasonBadModel.
@@ -409,11 +456,7 @@ func ReadManifest(onnx []byte) (*Manifest, error) {
 	if err != nil {
 		return nil, err
 	}
-	raw, ok := pm.manifestBytes()
-	if !ok {
-		return nil, midsag.Rejectf(midsag.ReasonBadModel, "model has no %q metadata entry and no sidecar manifest", ManifestKey)
-	}
-	return ParseManifest(raw)
+	return pm.manifest(nil)
 }
 
 // manifestBytes returns the last ManifestKey entry, as ONNX Runtime's
