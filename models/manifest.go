@@ -47,8 +47,8 @@ type InputManifest struct {
 	Normalize      string    `json:"normalize"`
 	PercentileLow  float64   `json:"percentile_low"`
 	PercentileHigh float64   `json:"percentile_high"`
-	Mean           []float64 `json:"mean"`
-	Std            []float64 `json:"std"`
+	Mean           []float64 `json:"mean,omitempty"`
+	Std            []float64 `json:"std,omitempty"`
 }
 
 // OutputManifest names the model's output tensor and how to read it. The
@@ -189,7 +189,9 @@ func (in InputManifest) validate() error {
 // its per-slice mean and std.
 func (in InputManifest) validateNormalize() error {
 	if !(in.PercentileLow >= 0 && in.PercentileLow < in.PercentileHigh && in.PercentileHigh <= 100) {
-		return badManifest("input percentiles must satisfy 0 <= low < high <= 100, got %v and %v", in.PercentileLow, in.PercentileHigh)
+		return badManifest("input.percentile_low and input.percentile_high must satisfy 0 <= low < high <= 100, got %v and %v; "+
+			"both normalize modes need them, since the stack is clipped to these percentiles and scaled to [0,1] before \"meanstd\" applies (x-mean)/std (docs/MANIFEST.md)",
+			in.PercentileLow, in.PercentileHigh)
 	}
 	switch in.Normalize {
 	case "percentile":
