@@ -110,18 +110,35 @@ const (
 // MRI classifier input, it only stops absurd allocations (common practice).
 const maxSide = 4096
 
-// ParseManifest decodes and validates a manifest. Unknown fields are
-// refused so that a misspelt key is not silently ignored. Errors carry
-// midsag.ReasonBadModel.
+// ParseManifest decodes a manifest, validates it against
+// ManifestJSONSchema (filling the schema's defaults for absent fields) and
+// then with Validate. Unknown fields are refused so that a misspelt key is
+// not silently ignored. Errors carry midsag.ReasonBadModel and name the
+// field, what was wrong and what is allowed.
 func ParseManifest(data []byte) (*Manifest, error) {
 	dec := json.NewDecoder(bytes.NewReader(data))
-	dec.DisallowUnknownFields()
-	var m Manifest
-	if err := dec.Decode(&m); err != nil {
+	dec.UseNumber()
+	var raw any
+	if err := dec.Decode(&raw); err != nil {
 		return nil, midsag.Reject(midsag.ReasonBadModel, "manifest is not valid JSON", err)
 	}
 	if dec.More() {
 		return nil, midsag.Rejectf(midsag.ReasonBadModel, "manifest has data after its JSON object")
+	}
+	if err := manifestSchema.check("", raw); err != nil {
+		return nil, err
+	}
+	filled, err := json.Marshal(raw)
+	if err != nil {
+		return nil, fmt.Errorf("manifest: %w", err)
+	}
+	strict := json.NewDecoder(bytes.NewReader(filled))
+	strict.DisallowUnknownFields()
+	var m Manifest
+	if err := strict.Decode(&m); err != nil {
+		// The schema and the struct are kept in step by a test; this is
+		// reached only if they drift.
+		return nil, midsag.Reject(midsag.ReasonBadModel, "manifest does not fit its Go type", err)
 	}
 	if err := m.Validate(); err != nil {
 		return nil, err
