@@ -54,6 +54,9 @@ type Inspection struct {
 	Manifest       *Manifest `json:"manifest,omitempty"`
 	ManifestSource string    `json:"manifest_source,omitempty"`
 	ManifestError  string    `json:"manifest_error,omitempty"`
+	// InitCommand, set when the model has no manifest at all, is the
+	// "midsag model init" command that writes one.
+	InitCommand string `json:"init_command,omitempty"`
 	// Runtime is filled by CheckRuntime.
 	Runtime *RuntimeCheck `json:"runtime,omitempty"`
 	Notice  string        `json:"notice"`
@@ -117,6 +120,7 @@ func Inspect(path string) (*Inspection, error) {
 		man, err = ParseManifest(raw)
 	} else {
 		err = fmt.Errorf("no %q metadata entry and no sidecar %s", ManifestKey, SidecarPath(path))
+		ins.InitCommand = InitCommand(path, data)
 	}
 	if err != nil {
 		ins.ManifestError = err.Error()

@@ -47,8 +47,8 @@ type InputManifest struct {
 	Normalize      string    `json:"normalize"`
 	PercentileLow  float64   `json:"percentile_low"`
 	PercentileHigh float64   `json:"percentile_high"`
-	Mean           []float64 `json:"mean"`
-	Std            []float64 `json:"std"`
+	Mean           []float64 `json:"mean,omitempty"`
+	Std            []float64 `json:"std,omitempty"`
 }
 
 // OutputManifest names the model's output tensor and how to read it. The
@@ -110,18 +110,35 @@ const (
 // MRI classifier input, it only stops absurd allocations (common practice).
 const maxSide = 4096
 
-// ParseManifest decodes and validates a manifest. Unknown fields are
-// refused so that a misspelt key is not silently ignored. Errors carry
-// midsag.ReasonBadModel.
+// ParseManifest decodes a manifest, validates it against
+// ManifestJSONSchema (filling the schema's defaults for absent fields) and
+// then with Validate. Unknown fields are refused so that a misspelt key is
+// not silently ignored. Errors carry midsag.ReasonBadModel and name the
+// field, what was wrong and what is allowed.
 func ParseManifest(data []byte) (*Manifest, error) {
 	dec := json.NewDecoder(bytes.NewReader(data))
-	dec.DisallowUnknownFields()
-	var m Manifest
-	if err := dec.Decode(&m); err != nil {
+	dec.UseNumber()
+	var raw any
+	if err := dec.Decode(&raw); err != nil {
 		return nil, midsag.Reject(midsag.ReasonBadModel, "manifest is not valid JSON", err)
 	}
 	if dec.More() {
 		return nil, midsag.Rejectf(midsag.ReasonBadModel, "manifest has data after its JSON object")
+	}
+	if err := manifestSchema.check("", raw); err != nil {
+		return nil, err
+	}
+	filled, err := json.Marshal(raw)
+	if err != nil {
+		return nil, fmt.Errorf("manifest: %w", err)
+	}
+	strict := json.NewDecoder(bytes.NewReader(filled))
+	strict.DisallowUnknownFields()
+	var m Manifest
+	if err := strict.Decode(&m); err != nil {
+		// The schema and the struct are kept in step by a test; this is
+		// reached only if they drift.
+		return nil, midsag.Reject(midsag.ReasonBadModel, "manifest does not fit its Go type", err)
 	}
 	if err := m.Validate(); err != nil {
 		return nil, err
@@ -189,7 +206,9 @@ func (in InputManifest) validate() error {
 // its per-slice mean and std.
 func (in InputManifest) validateNormalize() error {
 	if !(in.PercentileLow >= 0 && in.PercentileLow < in.PercentileHigh && in.PercentileHigh <= 100) {
-		return badManifest("input percentiles must satisfy 0 <= low < high <= 100, got %v and %v", in.PercentileLow, in.PercentileHigh)
+		return badManifest("input.percentile_low and input.percentile_high must satisfy 0 <= low < high <= 100, got %v and %v; "+
+			"both normalize modes need them, since the stack is clipped to these percentiles and scaled to [0,1] before \"meanstd\" applies (x-mean)/std (docs/MANIFEST.md)",
+			in.PercentileLow, in.PercentileHigh)
 	}
 	switch in.Normalize {
 	case "percentile":

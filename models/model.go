@@ -1,11 +1,13 @@
 package models
 
 import (
+	"bytes"
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -53,7 +55,7 @@ var _ midsag.Model = (*Model)(nil)
 // Load reads NAME.onnx and, if present, its sidecar NAME.manifest.json,
 // and loads the model with ONNX Runtime (Init must have succeeded).
 func Load(path string, opts Options) (*Model, error) {
-	data, err := os.ReadFile(path)
+	data, sum, err := readHashed(path)
 	if err != nil {
 		return nil, fmt.Errorf("load model: %w", err)
 	}
@@ -61,56 +63,95 @@ func Load(path string, opts Options) (*Model, error) {
 	if err != nil {
 		return nil, fmt.Errorf("load model %s: %w", path, err)
 	}
-	return LoadBytes(filepath.Base(path), data, sidecar, opts)
+	m, err := loadBytes(data, sum, sidecar, opts)
+	if err != nil {
+		return nil, fmt.Errorf("load model %s: %w", filepath.Base(path), err)
+	}
+	return m, nil
+}
+
+// readHashed reads a file and computes its sha256 in the same pass, so a
+// large model's bytes are walked once rather than read, then hashed.
+func readHashed(path string) ([]byte, string, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, "", err
+	}
+	defer f.Close()
+	var buf bytes.Buffer
+	if st, err := f.Stat(); err == nil && st.Size() > 0 {
+		buf.Grow(int(st.Size()) + bytes.MinRead)
+	}
+	h := sha256.New()
+	if _, err := buf.ReadFrom(io.TeeReader(f, h)); err != nil {
+		return nil, "", fmt.Errorf("read %s: %w", path, err)
+	}
+	return buf.Bytes(), hex.EncodeToString(h.Sum(nil)), nil
 }
 
 // LoadBytes loads a model from its bytes; name is used in errors only.
 // sidecar, when non-nil, is the manifest and wins over one embedded in the
 // model's metadata. It serves models embedded in the binary as well as files.
 func LoadBytes(name string, onnx []byte, sidecar []byte, opts Options) (*Model, error) {
-	m, err := loadBytes(onnx, sidecar, opts)
+	sum := sha256.Sum256(onnx)
+	m, err := loadBytes(onnx, hex.EncodeToString(sum[:]), sidecar, opts)
 	if err != nil {
 		return nil, fmt.Errorf("load model %s: %w", name, err)
 	}
 	return m, nil
 }
 
-func loadBytes(onnx []byte, sidecar []byte, opts Options) (*Model, error) {
+// loadBytes checks the manifest against the inputs and outputs the ONNX
+// protobuf declares (read by parseModel, so no ONNX Runtime session is
+// built just to list them) and then builds the model's one session.
+func loadBytes(onnx []byte, sum string, sidecar []byte, opts Options) (*Model, error) {
 	if err := initialised(); err != nil {
 		return nil, err
 	}
 	if opts.IntraOpThreads < 0 || opts.MaxConcurrent < 0 {
 		return nil, fmt.Errorf("options: thread and concurrency counts must not be negative, got %d and %d", opts.IntraOpThreads, opts.MaxConcurrent)
 	}
-	var (
-		man *Manifest
-		err error
-	)
-	if sidecar != nil {
-		man, err = ParseManifest(sidecar)
-		if err != nil {
-			return nil, fmt.Errorf("sidecar manifest: %w", err)
-		}
-	} else if man, err = ReadManifest(onnx); err != nil {
+	pm, err := parseModel(onnx)
+	if err != nil {
+		return nil, err
+	}
+	man, err := pm.manifest(sidecar)
+	if err != nil {
 		return nil, err
 	}
 	cal, err := CalibratorFromManifest(man.Calibration)
 	if err != nil {
 		return nil, err
 	}
-	ins, outs, err := ort.GetInputOutputInfoWithONNXData(onnx)
-	if err != nil {
-		return nil, midsag.Reject(midsag.ReasonBadModel, "ONNX Runtime cannot read the model", err)
-	}
-	batch, err := checkInput(man, ins)
+	batch, err := checkInput(man, pm.inputs)
 	if err != nil {
 		return nil, err
 	}
-	width, err := checkOutput(man, outs, batch)
+	width, err := checkOutput(man, pm.outputs, batch)
 	if err != nil {
 		return nil, err
 	}
+	sess, err := newSession(onnx, man, opts)
+	if err != nil {
+		return nil, err
+	}
+	conc := opts.MaxConcurrent
+	if conc == 0 {
+		conc = 1
+	}
+	return &Model{
+		manifest: man,
+		cal:      cal,
+		info:     midsag.ModelInfo{Name: man.Name, Version: man.Version, SHA256: sum},
+		batch:    batch,
+		width:    width,
+		sem:      make(chan struct{}, conc),
+		session:  sess,
+	}, nil
+}
 
+// newSession builds the ONNX Runtime session with the options' threads.
+func newSession(onnx []byte, man *Manifest, opts Options) (*ort.DynamicAdvancedSession, error) {
 	so, err := ort.NewSessionOptions()
 	if err != nil {
 		return nil, fmt.Errorf("session options: %w", err)
@@ -131,80 +172,69 @@ func loadBytes(onnx []byte, sidecar []byte, opts Options) (*Model, error) {
 	if err != nil {
 		return nil, midsag.Reject(midsag.ReasonBadModel, "ONNX Runtime cannot create a session", err)
 	}
-	conc := opts.MaxConcurrent
-	if conc == 0 {
-		conc = 1
-	}
-	sum := sha256.Sum256(onnx)
-	return &Model{
-		manifest: man,
-		cal:      cal,
-		info:     midsag.ModelInfo{Name: man.Name, Version: man.Version, SHA256: hex.EncodeToString(sum[:])},
-		batch:    batch,
-		width:    width,
-		sem:      make(chan struct{}, conc),
-		session:  sess,
-	}, nil
+	return sess, nil
 }
 
 // checkInput finds the manifest's input among the model's inputs and
 // checks its type and shape; it returns the model's batch dimension.
-func checkInput(man *Manifest, ins []ort.InputOutputInfo) (int64, error) {
+func checkInput(man *Manifest, ins []pbValueInfo) (int64, error) {
 	if len(ins) != 1 {
 		return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch,
 			"model has %d inputs (%s) but the manifest describes exactly one, %q", len(ins), ioNames(ins), man.Input.Name)
 	}
 	in := ins[0]
-	if in.Name != man.Input.Name {
+	if in.name != man.Input.Name {
 		return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch,
-			"model input is named %q but the manifest names %q", in.Name, man.Input.Name)
+			"model input is named %q but the manifest names %q", in.name, man.Input.Name)
 	}
-	if in.OrtValueType != ort.ONNXTypeTensor || in.DataType != ort.TensorElementDataTypeFloat {
+	got := in.intDims()
+	if in.elemType != "float32" || got == nil {
 		return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch,
-			"model input %q is %s, want a float32 tensor", in.Name, in.String())
+			"model input %q is %s, want a float32 tensor", in.name, in.describe())
 	}
 	want := man.inputDims()
-	got := in.Dimensions
 	ok := len(got) == len(want) && (got[0] == -1 || got[0] >= 1)
 	for i := 1; ok && i < len(want); i++ {
 		ok = got[i] == want[i]
 	}
 	if !ok {
 		return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch,
-			"model input '%s' is %s but the manifest asks for %s", in.Name, formatDims(got), man.describeInput())
+			"model input '%s' is %s but the manifest asks for %s", in.name, formatDims(got), man.describeInput())
 	}
 	return got[0], nil
 }
 
 // checkOutput finds the manifest's output and checks it is a float32
-// [N,1] or [N,2] tensor with the input's batch; it returns 1 or 2.
-func checkOutput(man *Manifest, outs []ort.InputOutputInfo, batch int64) (int64, error) {
+// [N,1] or [N,2] tensor with the input's batch; it returns 1 or 2. A
+// manifest that does not fit the model's outputs is a bad model, not a
+// study that does not fit: no study could be scored with it.
+func checkOutput(man *Manifest, outs []pbValueInfo, batch int64) (int64, error) {
 	for _, o := range outs {
-		if o.Name != man.Output.Name {
+		if o.name != man.Output.Name {
 			continue
 		}
-		if o.OrtValueType != ort.ONNXTypeTensor || o.DataType != ort.TensorElementDataTypeFloat {
-			return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch, "model output %q is %s, want a float32 tensor", o.Name, o.String())
+		d := o.intDims()
+		if o.elemType != "float32" || d == nil {
+			return 0, midsag.Rejectf(midsag.ReasonBadModel, "model output %q is %s, want a float32 tensor", o.name, o.describe())
 		}
-		d := o.Dimensions
 		if len(d) != 2 || (d[1] != 1 && d[1] != 2) || (d[0] != batch && d[0] != -1) {
-			return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch,
-				"model output '%s' is %s but the manifest needs [N,1] or [N,2] with N=%s as in the input", o.Name, formatDims(d), formatDim(batch))
+			return 0, midsag.Rejectf(midsag.ReasonBadModel,
+				"model output '%s' is %s but the manifest needs [N,1] or [N,2] with N=%s as in the input", o.name, formatDims(d), formatDim(batch))
 		}
 		if int64(man.Output.PositiveIndex) >= d[1] {
-			return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch,
-				"manifest output.positive_index is %d but model output '%s' has %d column(s)", man.Output.PositiveIndex, o.Name, d[1])
+			return 0, midsag.Rejectf(midsag.ReasonBadModel,
+				"manifest output.positive_index is %d but model output '%s' has %d column(s)", man.Output.PositiveIndex, o.name, d[1])
 		}
 		return d[1], nil
 	}
-	return 0, midsag.Rejectf(midsag.ReasonModelInputMismatch,
-		"model has no output %q (it has %s)", man.Output.Name, ioNames(outs))
+	return 0, midsag.Rejectf(midsag.ReasonBadModel,
+		"manifest output.name is %q but the model has no such output; its outputs are %s (set output.name to one of them)", man.Output.Name, ioNames(outs))
 }
 
-func ioNames(v []ort.InputOutputInfo) string {
+func ioNames(v []pbValueInfo) string {
 	names := make([]string, len(v))
 	for i, x := range v {
-		names[i] = fmt.Sprintf("%q", x.Name)
+		names[i] = fmt.Sprintf("%q", x.name)
 	}
 	return strings.Join(names, ", ")
 }

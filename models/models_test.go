@@ -32,15 +32,21 @@ type reference struct {
 
 func loadReference(t *testing.T) reference {
 	t.Helper()
-	b, err := os.ReadFile("testdata/reference.json")
+	var r reference
+	readJSON(t, "testdata/reference.json", &r)
+	return r
+}
+
+// readJSON decodes the JSON file at path into v or fails t.
+func readJSON(t *testing.T, path string, v any) {
+	t.Helper()
+	b, err := os.ReadFile(path)
 	if err != nil {
 		t.Fatal(err)
 	}
-	var r reference
-	if err := json.Unmarshal(b, &r); err != nil {
-		t.Fatal(err)
+	if err := json.Unmarshal(b, v); err != nil {
+		t.Fatalf("%s: %v", path, err)
 	}
-	return r
 }
 
 // refInput rebuilds the input make_models.py fed to torch:
@@ -59,7 +65,7 @@ func refInput(shape []int64) *midsag.Tensor {
 
 // needORT initialises ONNX Runtime or skips the test when the library is
 // missing, unless MIDSAG_REQUIRE_TOOLS=1 makes that a failure.
-func needORT(t *testing.T) {
+func needORT(t testing.TB) {
 	t.Helper()
 	lib, err := FindLibrary("")
 	if err == nil {

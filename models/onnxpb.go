@@ -2,6 +2,8 @@ package models
 
 import (
 	"fmt"
+	"strconv"
+	"strings"
 
 	"google.golang.org/protobuf/encoding/protowire"
 
@@ -30,6 +32,7 @@ const (
 	graphInput       = 11 // GraphProto.input (ValueInfoProto)
 	graphOutput      = 12 // GraphProto.output (ValueInfoProto)
 
+	nodeOutput = 2 // NodeProto.output
 	nodeOpType = 4 // NodeProto.op_type
 	nodeDomain = 7 // NodeProto.domain
 
@@ -104,6 +107,8 @@ type pbModel struct {
 	opsets          []Opset
 	opCounts        map[string]int
 	nodes           int
+	// producers maps each node output's name to the node's operator.
+	producers       map[string]string
 	inputs, outputs []pbValueInfo
 	metadata        []MetadataEntry
 }
@@ -114,7 +119,7 @@ func parseModel(data []byte) (*pbModel, error) {
 	if err != nil {
 		return nil, badModel("model", err)
 	}
-	m := &pbModel{opCounts: map[string]int{}}
+	m := &pbModel{opCounts: map[string]int{}, producers: map[string]string{}}
 	graph, sawGraph, err := m.parseTop(top)
 	if err != nil {
 		return nil, err
@@ -198,9 +203,12 @@ func (m *pbModel) parseGraph(gfs []field) error {
 		}
 		switch f.num {
 		case graphNode:
-			op, err := nodeOp(f.val)
+			op, outs, err := nodeOp(f.val)
 			if err != nil {
 				return badModel("node", err)
+			}
+			for _, o := range outs {
+				m.producers[o] = op
 			}
 			m.opCounts[op]++
 			m.nodes++
@@ -242,17 +250,20 @@ func initializerNames(gfs []field) (map[string]bool, error) {
 	return names, nil
 }
 
-// nodeOp returns a NodeProto's operator. Custom-domain ops are named with
-// their domain so they cannot be confused with standard ops of the same
-// name.
-func nodeOp(b []byte) (string, error) {
+// nodeOp returns a NodeProto's operator and output names. Custom-domain
+// ops are named with their domain so they cannot be confused with standard
+// ops of the same name.
+func nodeOp(b []byte) (string, []string, error) {
 	nfs, err := fields(b)
 	if err != nil {
-		return "", err
+		return "", nil, err
 	}
 	var op, domain string
+	var outs []string
 	for _, g := range nfs {
 		switch {
+		case g.num == nodeOutput && g.typ == protowire.BytesType:
+			outs = append(outs, string(g.val))
 		case g.num == nodeOpType && g.typ == protowire.BytesType:
 			op = string(g.val)
 		case g.num == nodeDomain && g.typ == protowire.BytesType:
@@ -262,7 +273,7 @@ func nodeOp(b []byte) (string, error) {
 	if domain != "" && domain != "ai.onnx" {
 		op = domain + "." + op
 	}
-	return op, nil
+	return op, outs, nil
 }
 
 func parseEntry(b []byte) (key, value string, err error) {
@@ -401,6 +412,52 @@ func EmbedManifest(onnx []byte, manifest []byte) ([]byte, error) {
 	return out, nil
 }
 
+// intDims returns the shape with symbolic or unknown dimensions as -1,
+// as ONNX Runtime reports them, or nil for a value that is not a tensor
+// or has no declared shape.
+func (v pbValueInfo) intDims() []int64 {
+	if v.dims == nil {
+		return nil
+	}
+	out := make([]int64, len(v.dims))
+	for i, d := range v.dims {
+		n, err := strconv.ParseInt(d, 10, 64)
+		if err != nil || n < 0 {
+			n = -1
+		}
+		out[i] = n
+	}
+	return out
+}
+
+// describe says what the value is, for errors: "float32 [N,3,32,32]".
+func (v pbValueInfo) describe() string {
+	if v.elemType == "" {
+		return "not a tensor"
+	}
+	if v.dims == nil {
+		return v.elemType + " of undeclared shape"
+	}
+	return v.elemType + " [" + strings.Join(v.dims, ",") + "]"
+}
+
+// manifest returns the sidecar manifest when given, else the embedded one.
+func (m *pbModel) manifest(sidecar []byte) (*Manifest, error) {
+	if sidecar != nil {
+		man, err := ParseManifest(sidecar)
+		if err != nil {
+			return nil, fmt.Errorf("sidecar manifest: %w", err)
+		}
+		return man, nil
+	}
+	raw, ok := m.manifestBytes()
+	if !ok {
+		return nil, midsag.Rejectf(midsag.ReasonBadModel,
+			"model has no %q metadata entry and no sidecar manifest; write one with \"midsag model init MODEL.onnx\" (\"midsag model inspect MODEL.onnx\" prints the full command)", ManifestKey)
+	}
+	return ParseManifest(raw)
+}
+
 // ReadManifest returns the manifest embedded in an ONNX model's metadata.
 // A model without one, or with one that does not validate, is refused with
 // midsag.ReasonBadModel.
@@ -409,11 +466,7 @@ func ReadManifest(onnx []byte) (*Manifest, error) {
 	if err != nil {
 		return nil, err
 	}
-	raw, ok := pm.manifestBytes()
-	if !ok {
-		return nil, midsag.Rejectf(midsag.ReasonBadModel, "model has no %q metadata entry and no sidecar manifest", ManifestKey)
-	}
-	return ParseManifest(raw)
+	return pm.manifest(nil)
 }
 
 // manifestBytes returns the last ManifestKey entry, as ONNX Runtime's

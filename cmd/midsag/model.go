@@ -15,23 +15,25 @@ import (
 )
 
 func init() {
-	register("model", "inspect a model and its manifest", runModel)
+	register("model", "write a model's manifest (init) or inspect a model and its manifest", runModel)
 }
 
-// runModel dispatches "midsag model <subverb>"; inspect is the only one.
+// runModel dispatches "midsag model <subverb>": init or inspect.
 func runModel(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
-		fmt.Fprintln(stderr, "usage: midsag model inspect [flags] PATH")
+		fmt.Fprintln(stderr, "usage: midsag model init [flags] MODEL.onnx\n       midsag model inspect [flags] PATH")
 		if len(args) == 0 {
-			return usagef("model: missing subverb (inspect)")
+			return usagef("model: missing subverb (init or inspect)")
 		}
 		return nil
 	}
 	switch args[0] {
+	case "init":
+		return runModelInit(ctx, args[1:], stdout, stderr)
 	case "inspect":
 		return runModelInspect(ctx, args[1:], stdout, stderr)
 	default:
-		return usagef("model: unknown subverb %q (want inspect)", args[0])
+		return usagef("model: unknown subverb %q (want init or inspect)", args[0])
 	}
 }
 
@@ -61,6 +63,8 @@ func runModelInspect(_ context.Context, args []string, stdout, stderr io.Writer)
 		err = models.Init(lib)
 	}
 	switch {
+	case ins.InitCommand != "":
+		ins.Runtime = &models.RuntimeCheck{Error: "no manifest to check the model against"}
 	case err == nil:
 		ins.CheckRuntime(lib, models.Options{IntraOpThreads: 1})
 	case *ortLib != "":
@@ -86,6 +90,9 @@ func runModelInspect(_ context.Context, args []string, stdout, stderr io.Writer)
 // exits with the rejection code after the full report was printed.
 func inspectVerdict(ins *models.Inspection, stderr io.Writer) error {
 	problem := ins.ManifestError
+	if ins.InitCommand != "" {
+		problem += "; write one with: " + ins.InitCommand
+	}
 	if r := ins.Runtime; problem == "" && r != nil && r.Library != "" && !r.OK {
 		problem = r.Error
 	}
@@ -146,6 +153,9 @@ func printInspection(w io.Writer, ins *models.Inspection) error {
 		row("  threshold", fmt.Sprint(m.Threshold))
 	} else {
 		row("manifest", "MISSING OR INVALID: "+ins.ManifestError)
+	}
+	if ins.InitCommand != "" {
+		row("write one", ins.InitCommand)
 	}
 	if r := ins.Runtime; r != nil {
 		switch {
