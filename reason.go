@@ -37,6 +37,9 @@ const (
 	// ReasonMultipleStudies refuses an input holding instances of more
 	// than one study, or a STOW-RS part of another study than the URL's.
 	ReasonMultipleStudies Reason = "multiple_studies"
+	// ReasonSOPClassMismatch refuses a C-STORE whose dataset names another
+	// SOP Class or SOP Instance than its command (PS3.4 B.2.3, A900).
+	ReasonSOPClassMismatch Reason = "sop_class_mismatch"
 	// ReasonNoSagittalT2 refuses a study with no series that passes as
 	// T2-weighted sagittal; the refusal lists every candidate.
 	ReasonNoSagittalT2 Reason = "no_sagittal_t2_series"
@@ -120,7 +123,7 @@ const (
 func AllReasons() []Reason {
 	return []Reason{
 		ReasonNoInput, ReasonNotDICOM, ReasonTruncated, ReasonTooLarge, ReasonUnsupportedSyntax,
-		ReasonBadPixelData, ReasonMultipleStudies, ReasonNoSagittalT2, ReasonTooFewSlices,
+		ReasonBadPixelData, ReasonMultipleStudies, ReasonSOPClassMismatch, ReasonNoSagittalT2, ReasonTooFewSlices,
 		ReasonInconsistentGeometry, ReasonMidlineNotInSlab, ReasonIncompleteSeries,
 		ReasonDuplicateInstance, ReasonUnreadable,
 		ReasonModelInputMismatch, ReasonBadModel, ReasonUnknownModel,

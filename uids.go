@@ -1,5 +1,11 @@
 package midsag
 
+import (
+	"crypto/rand"
+	"math/big"
+	"strings"
+)
+
 // DICOM UIDs midsag reads and writes, one source for every package.
 
 // Transfer syntax UIDs (PS3.5 Section 10 and Annex A; PS3.6 Annex A).
@@ -50,7 +56,21 @@ const (
 	// LegacyConvertedEnhancedMRImageStorage holds single-frame MR images
 	// converted into one multi-frame instance (PS3.3 A.71).
 	LegacyConvertedEnhancedMRImageStorage = "1.2.840.10008.5.1.4.1.1.4.4"
+	// ComprehensiveSRStorage is Comprehensive SR Storage (PS3.3 A.35.3),
+	// the class of the reports midsag writes.
+	ComprehensiveSRStorage = "1.2.840.10008.5.1.4.1.1.88.33"
 )
+
+// IsMRImageStorage reports whether a Storage SOP Class holds MR images
+// midsag scores: MR, Enhanced MR and Legacy Converted Enhanced MR
+// (PS3.4 B.5). Instances of every other class are stored, not scored.
+func IsMRImageStorage(sopClassUID string) bool {
+	switch sopClassUID {
+	case MRImageStorage, EnhancedMRImageStorage, LegacyConvertedEnhancedMRImageStorage:
+		return true
+	}
+	return false
+}
 
 // ImplementationClassUID identifies midsag's DICOM implementation in
 // association negotiation (PS3.7 D.3.3.2) and in File Meta Information of
@@ -61,3 +81,24 @@ const ImplementationClassUID = "2.25.163754905504511878491646896874482852857"
 // ImplementationVersionName is midsag's Implementation Version Name
 // (PS3.7 D.3.3.2.3, at most 16 characters).
 const ImplementationVersionName = "MIDSAG_0.1"
+
+// OutputUIDRoot is the root of every UID midsag makes for its own outputs
+// (the Secondary Capture map, the Structured Report, their series): the
+// implementation class UID, which midsag owns, with ".1" (PS3.5 9.1: an
+// organisation extends a root it holds). The DICOM listener recognises an
+// instance by this root and never stores or scores it again, so a PACS
+// rule that forwards everything back to midsag does not loop.
+const OutputUIDRoot = ImplementationClassUID + ".1"
+
+// NewOutputUID returns a new UID under OutputUIDRoot, completed with 50
+// random bits in decimal to at most 64 characters (PS3.5 9.1).
+func NewOutputUID() string {
+	n, _ := rand.Int(rand.Reader, new(big.Int).Lsh(big.NewInt(1), 50))
+	// A component other than "0" has no leading zero (PS3.5 9.1).
+	return OutputUIDRoot + "." + new(big.Int).Add(n, big.NewInt(1)).String()
+}
+
+// IsOutputUID reports whether uid was made by NewOutputUID.
+func IsOutputUID(uid string) bool {
+	return strings.HasPrefix(uid, OutputUIDRoot+".")
+}

@@ -2,11 +2,9 @@ package explain
 
 import (
 	"bytes"
-	"crypto/rand"
 	"encoding/binary"
 	"errors"
 	"fmt"
-	"math/big"
 	"sort"
 	"strconv"
 	"time"
@@ -23,7 +21,8 @@ const (
 
 // SCOptions name the new series and instance of a Secondary Capture.
 // Zero fields take defaults: DefaultSeriesNumber, DefaultSeriesDescription,
-// new random UIDs (PS3.5 B.2, 2.25 + a 128-bit random number) and now.
+// new UIDs under midsag.OutputUIDRoot (so the listener knows the map as
+// midsag's own if a PACS sends it back) and now.
 type SCOptions struct {
 	SeriesNumber      int
 	SeriesDescription string
@@ -54,10 +53,10 @@ func SecondaryCapture(res *midsag.Result, o SCOptions) ([]byte, error) {
 		o.SeriesDescription = DefaultSeriesDescription
 	}
 	if o.SeriesInstanceUID == "" {
-		o.SeriesInstanceUID = newUID()
+		o.SeriesInstanceUID = midsag.NewOutputUID()
 	}
 	if o.SOPInstanceUID == "" {
-		o.SOPInstanceUID = newUID()
+		o.SOPInstanceUID = midsag.NewOutputUID()
 	}
 	if o.Now.IsZero() {
 		o.Now = time.Now()
@@ -199,11 +198,4 @@ func (e element) encode(b *bytes.Buffer) {
 	}
 	b.Write(hdr)
 	b.Write(val)
-}
-
-// newUID returns a UID under 2.25 from 128 random bits (PS3.5 B.2).
-func newUID() string {
-	// crypto/rand never fails on supported platforms (Go 1.24+).
-	n, _ := rand.Int(rand.Reader, new(big.Int).Lsh(big.NewInt(1), 128))
-	return "2.25." + n.String()
 }

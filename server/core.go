@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"slices"
 	"sync"
 	"time"
 
@@ -462,6 +463,8 @@ func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
 	if err != nil {
 		return nil, fmt.Errorf("list instances: %w", err)
 	}
+	// Every Storage SOP Class is stored; only MR is scored.
+	insts = slices.DeleteFunc(insts, func(in store.Instance) bool { return !midsag.IsMRImageStorage(in.SOPClassUID) })
 	sources := make([]midsag.Source, len(insts))
 	for i, in := range insts {
 		in := in

@@ -58,6 +58,7 @@ var ReasonTable = map[midsag.Reason]Mapping{
 	midsag.ReasonUnsupportedSyntax:    {HTTP: http.StatusUnsupportedMediaType, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
 	midsag.ReasonBadPixelData:         {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
 	midsag.ReasonMultipleStudies:      {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusMismatch},
+	midsag.ReasonSOPClassMismatch:     {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusMismatch},
 	midsag.ReasonNoSagittalT2:         {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
 	midsag.ReasonTooFewSlices:         {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},
 	midsag.ReasonInconsistentGeometry: {HTTP: http.StatusUnprocessableEntity, GRPC: codes.FailedPrecondition, DICOM: statusCannotParse},

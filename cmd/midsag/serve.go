@@ -21,6 +21,7 @@ import (
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/credentials"
 
+	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/models"
 	"github.com/midsag/midsag/pipeline"
 	"github.com/midsag/midsag/server"
@@ -55,6 +56,7 @@ type serveFlags struct {
 	tlsKey       string
 	grace        time.Duration
 	sendTo       string
+	ignoreSOP    string
 }
 
 func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -81,6 +83,7 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate `file` for HTTP and gRPC (with --tls-key)")
 	fs.StringVar(&f.tlsKey, "tls-key", "", "TLS key `file`")
 	fs.StringVar(&f.sendTo, "send-to", "", "send each result's map back as a DICOM Secondary Capture by C-STORE to `AE@host:port` (implies --explain)")
+	fs.StringVar(&f.ignoreSOP, "ignore-sop-class", "", "comma-separated Storage SOP Class `UIDs or keywords` (e.g. CTImageStorage) the DICOM listener acknowledges and drops")
 	fs.DurationVar(&f.grace, "shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish; unfinished ones resume at the next start")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -98,6 +101,9 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		if _, _, err := parseAEAddr(f.sendTo); err != nil {
 			return usagef("--send-to: %v", err)
 		}
+	}
+	if _, err := dimse.ParseSOPClasses(f.ignoreSOP); err != nil {
+		return usagef("--ignore-sop-class: %v", err)
 	}
 	log := slog.New(slog.NewJSONHandler(stderr, nil))
 	return serve(ctx, &f, log)
@@ -377,8 +383,10 @@ func (ls *listeners) startDICOM(ctx context.Context, f *serveFlags, svc *servePa
 			allow = append(allow, a)
 		}
 	}
+	ignore, _ := dimse.ParseSOPClasses(f.ignoreSOP) // checked in runServe
 	dsrv, err := dimse.NewServer(dimse.Config{AETitle: f.aeTitle, AllowedCallingAEs: allow, MaxAssociations: f.maxAssoc,
-		IdleTimeout: f.idle, MaxDatasetBytes: f.maxBody, Logger: log}, storeHandler(svc.core))
+		IdleTimeout: f.idle, MaxDatasetBytes: f.maxBody, IgnoreSOPClasses: ignore, StatusOf: server.DICOMStatus,
+		Logger: log}, storeHandler(svc.core))
 	if err != nil {
 		return err
 	}
@@ -417,21 +425,30 @@ func watchModels(reg *models.Registry, log *slog.Logger) func() {
 }
 
 // storeHandler answers a C-STORE with success only once the instance is
-// durable; a refusal maps to its reason's DIMSE status (server.ReasonTable:
-// "cannot understand", or "out of resources" for too_large) and a storage
-// failure to "out of resources" (PS3.4 B.2.3, from memory).
+// durable; a refusal maps to its reason's DIMSE status through
+// server.ReasonTable, with the refusal's message as Error Comment, and a
+// storage failure to A700 out of resources (PS3.4 B.2.3).
 func storeHandler(core *server.Core) dimse.StoreHandler {
-	return func(ctx context.Context, a dimse.Association, part10 []byte) uint16 {
+	return func(ctx context.Context, a dimse.Association, part10 []byte) dimse.Status {
 		_, err := core.Ingest(ctx, server.Origin{Listener: "dicom", CallingAE: a.CallingAE, Remote: a.Remote}, part10)
 		switch {
 		case err == nil:
-			return 0x0000
+			return dimse.Status{Code: dimse.StatusSuccess}
 		case isRefusal(err):
-			return server.RefusalStatus(err)
+			return dimse.Status{Code: server.RefusalStatus(err), Comment: refusalComment(err)}
 		default:
-			return 0xA700
+			return dimse.Status{Code: dimse.StatusOutOfResources, Comment: "the instance could not be stored"}
 		}
 	}
+}
+
+// refusalComment is the Error Comment of a refusal: its reason code and
+// message (reason texts name attributes, not patient data).
+func refusalComment(err error) string {
+	if e := midsag.RefusalOf(err); e != nil {
+		return string(e.Reason) + ": " + e.Msg
+	}
+	return err.Error()
 }
 
 // readyHandler reports ready when the default model is loaded and the

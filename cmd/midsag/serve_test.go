@@ -647,3 +647,51 @@ func TestServeExplainSendsSecondaryCapture(t *testing.T) {
 		time.Sleep(100 * time.Millisecond)
 	}
 }
+
+// TestServeStorescuCTInMRStudy: DCMTK storescu sends, in one
+// association, a phantom MR study, pydicom's CT_small.dcm (CT Image
+// Storage) moved into that study, and a copy of it bearing a SOP Instance
+// UID under midsag's output root (as if a PACS forwarded midsag's own map
+// back). The whole transfer succeeds; the study is scored from its MR
+// instances only (the series candidates add up to the MR count), the CT
+// is stored (the spool holds it), and midsag's own output is
+// acknowledged and not stored.
+func TestServeStorescuCTInMRStudy(t *testing.T) {
+	s := startService(t, t.TempDir())
+	dir := t.TempDir()
+	truths, err := phantom.Generate(dir, phantom.Options{Studies: 1, Seed: 65, NoDecoys: true, Syntaxes: []string{midsag.ExplicitVRLittleEndian}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	study := filepath.Join(dir, truths[0].Study)
+	nMR := countFiles(t, study)
+	extra := t.TempDir()
+	py := testtool.Python(t, "pydicom")
+	script := `import pydicom, sys
+ds = pydicom.dcmread(sys.argv[1])
+ds.StudyInstanceUID = sys.argv[2]
+ds.save_as(sys.argv[3] + "/ct.dcm", write_like_original=False)
+ds.SOPInstanceUID = ds.file_meta.MediaStorageSOPInstanceUID = sys.argv[4]
+ds.save_as(sys.argv[3] + "/own.dcm", write_like_original=False)
+`
+	if out, err := exec.Command(py, "-c", script, testtool.PydicomFile(t, "CT_small.dcm"), truths[0].StudyInstanceUID, extra, midsag.NewOutputUID()).CombinedOutput(); err != nil {
+		t.Fatalf("pydicom: %v\n%s", err, out)
+	}
+	st := exec.Command(testtool.Command(t, "storescu"), "-aec", "MIDSAG", "+sd", "+r", "127.0.0.1", portOf(s.dicom), study, extra)
+	st.Env = tcpNoDelay()
+	if out, err := st.CombinedOutput(); err != nil {
+		t.Fatalf("storescu: %v %s", err, out)
+	}
+	r := s.waitCovering(truths[0].StudyInstanceUID, nMR)
+	if r["center_sop_instance_uid"] != truths[0].CenterSOPInstanceUID {
+		t.Errorf("centre %v, truth %s", r["center_sop_instance_uid"], truths[0].CenterSOPInstanceUID)
+	}
+	if logs := s.log.String(); !strings.Contains(logs, "C-STORE of midsag's own output acknowledged and dropped") {
+		t.Errorf("no log line for midsag's own output:\n%s", logs)
+	}
+	s.terminate()
+	// The spool holds the MR instances and the CT, not the own output.
+	if n := countFiles(t, filepath.Join(s.data, "spool")); n != nMR+1 {
+		t.Errorf("spool holds %d files, want %d MR + 1 CT", n, nMR)
+	}
+}

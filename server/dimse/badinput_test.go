@@ -153,7 +153,7 @@ func TestIdleTimeout(t *testing.T) {
 // TestHandlerPanic: a panicking handler costs its association an
 // A-ABORT; the server goes on.
 func TestHandlerPanic(t *testing.T) {
-	s, addr, _ := startSCP(t, Config{}, func(context.Context, Association, []byte) uint16 { panic("boom") })
+	s, addr, _ := startSCP(t, Config{}, func(context.Context, Association, []byte) Status { panic("boom") })
 	files := [][]byte{part10.Wrap(part10.Meta{SOPClassUID: midsag.MRImageStorage, SOPInstanceUID: "1.2.3", TransferSyntaxUID: midsag.ImplicitVRLittleEndian}, []byte{8, 0, 0x18, 0, 0, 0, 0, 0})}
 	c := &Client{CallingAE: "T", CalledAE: "MIDSAG", Timeout: 5 * time.Second}
 	if _, err := c.Store(context.Background(), addr, files); !errors.Is(err, ErrAborted) {

@@ -16,20 +16,20 @@ import (
 // file, fsync, rename, into dir, before answering success.
 func durableHandler(dir string) StoreHandler {
 	var n atomic.Int64
-	return func(_ context.Context, _ Association, part10 []byte) uint16 {
+	return func(_ context.Context, _ Association, part10 []byte) Status {
 		name := filepath.Join(dir, fmt.Sprintf("%06d.dcm", n.Add(1)))
 		f, err := os.CreateTemp(dir, ".tmp-*")
 		if err != nil {
-			return StatusOutOfResources
+			return Status{Code: StatusOutOfResources}
 		}
 		_, werr := f.Write(part10)
 		serr := f.Sync()
 		cerr := f.Close()
 		if werr != nil || serr != nil || cerr != nil || os.Rename(f.Name(), name) != nil {
 			os.Remove(f.Name())
-			return StatusOutOfResources
+			return Status{Code: StatusOutOfResources}
 		}
-		return StatusSuccess
+		return Status{Code: StatusSuccess}
 	}
 }
 
@@ -54,7 +54,7 @@ func BenchmarkStorescu(b *testing.B) {
 	})
 	// Without fsync: what the protocol costs apart from durability.
 	b.Run("midsag-nofsync", func(b *testing.B) {
-		_, _, port := startSCP(b, Config{}, func(context.Context, Association, []byte) uint16 { return StatusSuccess })
+		_, _, port := startSCP(b, Config{}, func(context.Context, Association, []byte) Status { return Status{Code: StatusSuccess} })
 		run(b, port, "MIDSAG")
 	})
 	b.Run("storescp", func(b *testing.B) {

@@ -150,7 +150,7 @@ func TestRoundTripSmallPDU(t *testing.T) {
 
 // TestStoreStatuses: the handler's status reaches the SCU, a dataset
 // above MaxDatasetBytes is answered A700 without calling the handler, and
-// a SOP class outside the accepted list is never sent.
+// a SOP class outside a restricted accepted list is never sent.
 func TestStoreStatuses(t *testing.T) {
 	files, _, err := phantom.GenerateStudy(phantom.Options{Studies: 1, Seed: 4}, 0)
 	if err != nil {
@@ -164,7 +164,7 @@ func TestStoreStatuses(t *testing.T) {
 	c := &Client{CallingAE: "A", CalledAE: "MIDSAG", Timeout: 10 * time.Second}
 
 	var warn received
-	_, addr, _ := startSCP(t, Config{}, warn.handler(0xB007))
+	_, addr, _ := startSCP(t, Config{SOPClasses: []string{midsag.MRImageStorage}}, warn.handler(0xB007))
 	st, err := c.Store(context.Background(), addr, [][]byte{one, ct})
 	if err != nil {
 		t.Fatal(err)

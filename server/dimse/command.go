@@ -3,6 +3,7 @@ package dimse
 import (
 	"encoding/binary"
 	"fmt"
+	"strings"
 )
 
 // Command Field values (PS3.7 Annex E and the service chapters).
@@ -71,6 +72,7 @@ type command struct {
 	dataSetType   uint16 // (0000,0800) Command Data Set Type
 	status        uint16 // (0000,0900) Status
 	sopInstance   string // (0000,1000) Affected SOP Instance UID
+	errorComment  string // (0000,0902) Error Comment, responses only
 	hasMessageID  bool
 	hasRespondsTo bool
 }
@@ -156,6 +158,24 @@ func (e *cmdEncoder) uid(elem uint16, s string) {
 	e.elem(elem, b)
 }
 
+// maxLO is the length of an LO value in characters (PS3.5 6.2).
+const maxLO = 64
+
+// lo writes an LO value (Error Comment, PS3.7 C.4): at most 64
+// characters, backslashes (the value separator) replaced, padded with a
+// space to even length (PS3.5 6.2).
+func (e *cmdEncoder) lo(elem uint16, s string) {
+	s = strings.ReplaceAll(s, `\`, "/")
+	if r := []rune(s); len(r) > maxLO {
+		s = string(r[:maxLO])
+	}
+	b := []byte(s)
+	if len(b)%2 == 1 {
+		b = append(b, ' ')
+	}
+	e.elem(elem, b)
+}
+
 // encode returns the command set with its (0000,0000) Command Group
 // Length first.
 func (c *command) encode() []byte {
@@ -175,6 +195,9 @@ func (c *command) encode() []byte {
 	e.us(0x0800, c.dataSetType)
 	if c.field&0x8000 != 0 {
 		e.us(0x0900, c.status)
+		if c.errorComment != "" && c.status != StatusSuccess {
+			e.lo(0x0902, c.errorComment)
+		}
 	}
 	if c.sopInstance != "" {
 		e.uid(0x1000, c.sopInstance)

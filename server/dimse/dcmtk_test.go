@@ -265,12 +265,13 @@ func datasetLines(dump string) string {
 }
 
 // TestStorescuUnsupportedSOPClass: pydicom's CT_small.dcm is CT Image
-// Storage, which we do not accept; DCMTK storescu must fail for lack of
-// an accepted presentation context and nothing reaches the handler.
+// Storage, which a listener restricted to MR does not accept; DCMTK
+// storescu must fail for lack of an accepted presentation context and
+// nothing reaches the handler.
 func TestStorescuUnsupportedSOPClass(t *testing.T) {
 	ct := testtool.PydicomFile(t, "CT_small.dcm")
 	var got received
-	_, _, port := startSCP(t, Config{}, got.handler(StatusSuccess))
+	_, _, port := startSCP(t, Config{SOPClasses: []string{midsag.MRImageStorage}}, got.handler(StatusSuccess))
 	out, err := dcmtk(t, "storescu", "-aet", "PACS", "-aec", "MIDSAG", "127.0.0.1", port, ct)
 	if err == nil {
 		t.Fatalf("storescu succeeded with an unsupported SOP class:\n%s", out)

@@ -14,6 +14,7 @@ import (
 
 	"github.com/midsag/midsag/internal/testtool"
 	"github.com/midsag/midsag/phantom"
+	"github.com/midsag/midsag/server"
 )
 
 // received collects what a test SCP's handler got.
@@ -24,10 +25,10 @@ type received struct {
 }
 
 func (r *received) handler(status uint16) StoreHandler {
-	return func(_ context.Context, a Association, part10 []byte) uint16 {
+	return func(_ context.Context, a Association, part10 []byte) Status {
 		m, err := parsePart10(part10)
 		if err != nil {
-			return StatusCannotUnderstand
+			return Status{Code: StatusCannotUnderstand}
 		}
 		r.mu.Lock()
 		defer r.mu.Unlock()
@@ -36,7 +37,7 @@ func (r *received) handler(status uint16) StoreHandler {
 		}
 		r.files[m.SOPInstanceUID] = append([]byte(nil), part10...)
 		r.assoc = append(r.assoc, a)
-		return status
+		return Status{Code: status}
 	}
 }
 
@@ -58,6 +59,9 @@ func startSCP(t testing.TB, cfg Config, h StoreHandler) (*Server, string, string
 	}
 	if cfg.DrainTimeout == 0 {
 		cfg.DrainTimeout = 2 * time.Second
+	}
+	if cfg.StatusOf == nil {
+		cfg.StatusOf = server.DICOMStatus
 	}
 	s, err := NewServer(cfg, h)
 	if err != nil {

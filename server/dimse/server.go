@@ -55,10 +55,10 @@ var DefaultTransferSyntaxes = []string{
 }
 
 // DefaultSOPClasses are the storage SOP classes accepted when
-// Config.SOPClasses is empty: the image classes midsag reads slices from,
-// and Secondary Capture.
-var DefaultSOPClasses = []string{midsag.MRImageStorage, midsag.EnhancedMRImageStorage,
-	midsag.LegacyConvertedEnhancedMRImageStorage, midsag.SecondaryCaptureImageStorage}
+// Config.SOPClasses is empty: every Storage SOP Class (StorageSOPClasses),
+// so that one instance midsag does not score never fails a PACS's
+// transfer; what is not MR is stored and counted, not scored.
+var DefaultSOPClasses = StorageSOPClassUIDs()
 
 // Config configures a Server. Zero fields take the defaults above.
 type Config struct {
@@ -88,6 +88,14 @@ type Config struct {
 	// SOPClasses are the storage SOP classes accepted; Verification is
 	// always accepted.
 	SOPClasses []string
+	// IgnoreSOPClasses are accepted and answered with success, but not
+	// handed to the StoreHandler: nothing of them is kept.
+	IgnoreSOPClasses []string
+	// StatusOf maps the reason of a refusal the listener makes itself
+	// (too large, dataset not of the command's SOP class, no dataset) to
+	// its DIMSE status; serve passes server.DICOMStatus, the one table of
+	// statuses. Nil answers every such refusal with C000.
+	StatusOf func(midsag.Reason) uint16
 	// DrainTimeout bounds how long Serve waits for running associations
 	// after its context is cancelled before closing them.
 	DrainTimeout time.Duration
@@ -100,12 +108,23 @@ type Association struct {
 	CallingAE, CalledAE, Remote string
 }
 
+// Status is a C-STORE response's Status (0000,0900) and, for a failure
+// or warning, its Error Comment (0000,0902) (PS3.7 C.4, Table C.4-1).
+type Status struct {
+	// Code is StatusSuccess, a B000-BFFF warning or a failure: A7xx out
+	// of resources, A9xx dataset does not match SOP class, Cxxx cannot
+	// understand (PS3.4 B.2.3).
+	Code uint16
+	// Comment says why, without patient data; it is cut to the 64
+	// characters of an LO (PS3.5 6.2).
+	Comment string
+}
+
 // StoreHandler receives one C-STORE instance as a complete DICOM Part 10
-// file (see Part10) and returns the DIMSE status to send: StatusSuccess
-// only after the instance is durable, StatusOutOfResources,
-// StatusDataSetMismatch, StatusCannotUnderstand, or a B000-BFFF warning.
-// The response is sent only after the handler returns.
-type StoreHandler func(ctx context.Context, a Association, part10 []byte) uint16
+// file (see Part10) and returns the status to send: StatusSuccess only
+// after the instance is durable. The response is sent only after the
+// handler returns.
+type StoreHandler func(ctx context.Context, a Association, part10 []byte) Status
 
 // Stats are a Server's counters since it was created.
 type Stats struct {
@@ -124,6 +143,12 @@ type Stats struct {
 	StoresOK int64
 	// StoresFailed counts C-STORE answered with a failure status.
 	StoresFailed int64
+	// Ignored counts instances of Config.IgnoreSOPClasses answered with
+	// success and dropped.
+	Ignored int64
+	// OwnOutputs counts instances midsag made (midsag.IsOutputUID)
+	// answered with success and dropped, never stored or scored again.
+	OwnOutputs int64
 }
 
 // Server is a Verification and Storage SCP.
@@ -132,11 +157,13 @@ type Server struct {
 	handler  StoreHandler
 	log      *slog.Logger
 	accepted map[string]bool // abstract syntaxes
+	ignored  map[string]bool // SOP classes answered and dropped
 	slots    chan struct{}
 	rejects  chan struct{}
 
 	active, total, rejected, aborted atomic.Int64
 	echoes, storesOK, storesFailed   atomic.Int64
+	ignoredN, ownOutputs             atomic.Int64
 
 	wg    sync.WaitGroup
 	mu    sync.Mutex
@@ -182,17 +209,24 @@ func NewServer(cfg Config, h StoreHandler) (*Server, error) {
 	if cfg.Logger == nil {
 		cfg.Logger = slog.Default()
 	}
+	if cfg.StatusOf == nil {
+		cfg.StatusOf = func(midsag.Reason) uint16 { return StatusCannotUnderstand }
+	}
 	s := &Server{
 		cfg:      cfg,
 		handler:  h,
 		log:      cfg.Logger.With("component", "dimse", "ae", cfg.AETitle),
 		accepted: map[string]bool{verificationSOPClass: true},
+		ignored:  map[string]bool{},
 		slots:    make(chan struct{}, cfg.MaxAssociations),
 		rejects:  make(chan struct{}, cfg.MaxAssociations),
 		conns:    map[net.Conn]struct{}{},
 	}
 	for _, c := range cfg.SOPClasses {
 		s.accepted[c] = true
+	}
+	for _, c := range cfg.IgnoreSOPClasses {
+		s.accepted[c], s.ignored[c] = true, true
 	}
 	return s, nil
 }
@@ -203,6 +237,7 @@ func (s *Server) Stats() Stats {
 		Active: s.active.Load(), Total: s.total.Load(), Rejected: s.rejected.Load(),
 		Aborted: s.aborted.Load(), Echoes: s.echoes.Load(),
 		StoresOK: s.storesOK.Load(), StoresFailed: s.storesFailed.Load(),
+		Ignored: s.ignoredN.Load(), OwnOutputs: s.ownOutputs.Load(),
 	}
 }
 
@@ -489,12 +524,9 @@ func (a *assoc) handle(ctx context.Context, m *message) error {
 	case cmd.field == cmdCStoreRQ:
 		// PS3.7 9.3.1 C-STORE.
 		rsp.field = cmdCStoreRSP
-		rsp.status = a.store(ctx, pc, m)
-		if rsp.status == StatusSuccess || rsp.status&0xF000 == 0xB000 {
-			a.s.storesOK.Add(1)
-		} else {
-			a.s.storesFailed.Add(1)
-		}
+		st := a.store(ctx, pc, m)
+		rsp.status, rsp.errorComment = st.Code, st.Comment
+		a.count(cmd, st)
 	case cmd.field == cmdCCancelRQ:
 		// C-CANCEL has no response (PS3.7 9.3.2.3) and nothing of ours
 		// is cancellable.
@@ -507,23 +539,72 @@ func (a *assoc) handle(ctx context.Context, m *message) error {
 	return a.u.writeMessage(a.s.cfg.IdleTimeout, a.peerMax, m.pcID, rsp, nil)
 }
 
-// store checks a C-STORE request and calls the handler.
-func (a *assoc) store(ctx context.Context, pc presContext, m *message) uint16 {
+// count counts a C-STORE response and logs a refusal: status, reason
+// and the UIDs of the command, never the dataset's patient attributes.
+func (a *assoc) count(cmd *command, st Status) {
+	if st.Code == StatusSuccess || st.Code&0xF000 == 0xB000 {
+		a.s.storesOK.Add(1)
+		return
+	}
+	a.s.storesFailed.Add(1)
+	a.log.Warn("C-STORE refused", "status", fmt.Sprintf("%04X", st.Code), "comment", st.Comment,
+		"sop_class_uid", cmd.sopClass, "sop_instance_uid", cmd.sopInstance, "message_id", cmd.messageID)
+}
+
+// refuse is the status of a refusal the listener makes itself, through
+// Config.StatusOf.
+func (a *assoc) refuse(r midsag.Reason, comment string) Status {
+	return Status{Code: a.s.cfg.StatusOf(r), Comment: comment}
+}
+
+// store checks a C-STORE request, answers midsag's own outputs and
+// ignored classes itself, and hands the rest to the handler.
+func (a *assoc) store(ctx context.Context, pc presContext, m *message) Status {
 	cmd := m.cmd
 	switch {
 	case !cmd.hasDataSet():
-		return StatusCannotUnderstand
+		return a.refuse(midsag.ReasonBadRequest, "C-STORE-RQ without a data set")
 	case m.overflow:
-		a.log.Warn("C-STORE dataset above limit", "limit", a.s.cfg.MaxDatasetBytes)
-		return StatusOutOfResources
+		return a.refuse(midsag.ReasonTooLarge, fmt.Sprintf("data set above the limit of %d bytes", a.s.cfg.MaxDatasetBytes))
 	case cmd.sopClass != pc.abstract:
 		// The Affected SOP Class must be the context's abstract syntax
 		// (PS3.7 9.1.1.1.1 via the presentation context).
-		return StatusSOPClassNotSupported
+		return Status{Code: StatusSOPClassNotSupported, Comment: "Affected SOP Class differs from the presentation context"}
 	case cmd.sopInstance == "":
-		return StatusCannotUnderstand
+		return a.refuse(midsag.ReasonBadRequest, "C-STORE-RQ without Affected SOP Instance UID")
+	}
+	if st, done := a.screen(cmd, pc, m.data); done {
+		m.data = nil
+		return st
 	}
 	status := a.s.handler(ctx, a.info, m.data)
 	m.data = nil
 	return status
+}
+
+// screen answers, without the handler, an instance that is midsag's own
+// output or of an ignored class, and refuses one whose dataset names
+// another SOP Class or Instance than its command (PS3.4 B.2.3: A900).
+func (a *assoc) screen(cmd *command, pc presContext, file []byte) (Status, bool) {
+	if midsag.IsOutputUID(cmd.sopInstance) {
+		a.s.ownOutputs.Add(1)
+		a.log.Info("C-STORE of midsag's own output acknowledged and dropped", "sop_class_uid", cmd.sopClass, "sop_instance_uid", cmd.sopInstance)
+		return Status{Code: StatusSuccess}, true
+	}
+	if a.s.ignored[cmd.sopClass] {
+		a.s.ignoredN.Add(1)
+		return Status{Code: StatusSuccess}, true
+	}
+	_, ds, err := part10.Parse(file)
+	if err != nil {
+		return Status{}, false
+	}
+	class, inst, ok := datasetUIDs(pc.syntaxes[0], ds)
+	switch {
+	case ok && class != cmd.sopClass:
+		return a.refuse(midsag.ReasonSOPClassMismatch, "SOP Class UID (0008,0016) differs from the command's"), true
+	case ok && inst != cmd.sopInstance:
+		return a.refuse(midsag.ReasonSOPClassMismatch, "SOP Instance UID (0008,0018) differs from the command's"), true
+	}
+	return Status{}, false
 }

@@ -17,13 +17,13 @@ import (
 // overruns DrainTimeout sees its context cancelled and Serve returns.
 func TestServeGracefulStop(t *testing.T) {
 	entered := make(chan struct{}, 1)
-	h := func(ctx context.Context, _ Association, _ []byte) uint16 {
+	h := func(ctx context.Context, _ Association, _ []byte) Status {
 		entered <- struct{}{}
 		select {
 		case <-time.After(300 * time.Millisecond):
-			return StatusSuccess
+			return Status{Code: StatusSuccess}
 		case <-ctx.Done():
-			return StatusOutOfResources
+			return Status{Code: StatusOutOfResources}
 		}
 	}
 	for _, tc := range []struct {
@@ -88,7 +88,7 @@ func TestServeGracefulStop(t *testing.T) {
 
 // TestNewServerConfig: invalid configurations are refused up front.
 func TestNewServerConfig(t *testing.T) {
-	ok := func(context.Context, Association, []byte) uint16 { return StatusSuccess }
+	ok := func(context.Context, Association, []byte) Status { return Status{Code: StatusSuccess} }
 	for _, cfg := range []Config{{}, {AETitle: "SEVENTEEN_CHARS_X"}, {AETitle: "A", MaxPDULength: 100}} {
 		if _, err := NewServer(cfg, ok); err == nil {
 			t.Errorf("NewServer(%+v) accepted", cfg)
