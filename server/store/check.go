@@ -57,19 +57,19 @@ func (s *Store) Healthy() error { return s.damaged }
 type Problem struct {
 	// Kind is "database", "missing", "corrupt", "unreferenced" or
 	// "leftover".
-	Kind string
+	Kind string `json:"kind"`
 	// SOPInstanceUID names the instance, when the problem is about one.
-	SOPInstanceUID string
+	SOPInstanceUID string `json:"sop_instance_uid,omitempty"`
 	// Path is relative to the store's folder.
-	Path   string
-	Detail string
+	Path   string `json:"path"`
+	Detail string `json:"detail"`
 }
 
 // Report is what Check found.
 type Report struct {
-	Instances int64
-	Bytes     int64
-	Problems  []Problem
+	Instances int64     `json:"instances"`
+	Bytes     int64     `json:"bytes"`
+	Problems  []Problem `json:"problems"`
 }
 
 // Bad reports whether any problem is damage, not only leftovers a restart

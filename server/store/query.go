@@ -150,7 +150,7 @@ func (s *Store) Open(inst Instance) (io.ReadCloser, error) {
 
 // ErrCorrupt is returned when a spool file no longer holds the bytes its
 // row recorded (size or SHA-256), or is missing.
-var ErrCorrupt = errors.New("spool file does not match its stored sha256")
+var ErrCorrupt = errors.New("the spool file no longer holds the instance as stored")
 
 // verify reads r whole and compares its size and SHA-256 with inst's.
 func verify(r io.Reader, inst Instance) error {
