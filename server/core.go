@@ -114,6 +114,14 @@ type Core struct {
 	mu      sync.Mutex
 	waiters map[string][]chan struct{}
 	queued  map[string]bool
+	// holds counts the requests and sessions still sending to a study;
+	// activity is when one of its instances last arrived or a hold ended.
+	// A study settles only once it has no hold and has been quiet since
+	// activity for the settle time, so a slow upload (an instance that
+	// takes long to stream, a REST request stored at its end) is not
+	// scored half-way.
+	holds    map[string]int
+	activity map[string]time.Time
 }
 
 var (
@@ -145,8 +153,10 @@ func New(cfg Config) *Core {
 		log:     cfg.Logger,
 		slots:   make(chan struct{}, cfg.QueueSize),
 		queue:   make(chan string, cfg.QueueSize),
-		waiters: map[string][]chan struct{}{},
-		queued:  map[string]bool{},
+		waiters:  map[string][]chan struct{}{},
+		queued:   map[string]bool{},
+		holds:    map[string]int{},
+		activity: map[string]time.Time{},
 	}
 }
 
@@ -360,8 +370,13 @@ func (c *Core) schedule(ctx context.Context) {
 			}
 			continue
 		}
+		now := time.Now()
+		c.forgetQuiet(now)
 	studies:
 		for _, st := range due {
+			if c.settling(st.StudyInstanceUID, now) {
+				continue
+			}
 			select {
 			case c.slots <- struct{}{}:
 			default:
@@ -376,6 +391,57 @@ func (c *Core) schedule(ctx context.Context) {
 			}
 			c.log.Info("study settled; scoring", "study_instance_uid", st.StudyInstanceUID, "result_id", rec.ID, "version", rec.Version)
 			c.enqueue(rec.ID)
+		}
+	}
+}
+
+// Hold marks a study as still being sent to (a STOW-RS request, a REST
+// upload, a DICOM association) until the returned function is called; the
+// settle time counts from then. Calling the function again does nothing.
+func (c *Core) Hold(study string) func() {
+	c.mu.Lock()
+	c.holds[study]++
+	c.mu.Unlock()
+	var once sync.Once
+	return func() {
+		once.Do(func() {
+			c.mu.Lock()
+			defer c.mu.Unlock()
+			if c.holds[study]--; c.holds[study] <= 0 {
+				delete(c.holds, study)
+			}
+			c.activity[study] = time.Now()
+		})
+	}
+}
+
+// touch records that an instance of the study arrived.
+func (c *Core) touch(study string) {
+	c.mu.Lock()
+	c.activity[study] = time.Now()
+	c.mu.Unlock()
+}
+
+// settling reports whether the study is held or had activity within the
+// settle time.
+func (c *Core) settling(study string, now time.Time) bool {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	if c.holds[study] > 0 {
+		return true
+	}
+	at, ok := c.activity[study]
+	return ok && now.Sub(at) < c.cfg.Settle
+}
+
+// forgetQuiet drops activity older than the settle time, which no longer
+// delays anything.
+func (c *Core) forgetQuiet(now time.Time) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	for study, at := range c.activity {
+		if now.Sub(at) >= c.cfg.Settle {
+			delete(c.activity, study)
 		}
 	}
 }

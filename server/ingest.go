@@ -119,6 +119,9 @@ func (c *Core) Receive(ctx context.Context, origin Origin, r io.Reader, limit in
 		st.Abort()
 		return st, midsag.Rejectf(midsag.ReasonMultipleStudies, "instance of another study than the request's")
 	}
+	// The study is busy from the moment one of its headers is read, so
+	// a request stored at its end does not look quiet until then.
+	c.touch(inst.StudyInstanceUID)
 	st.inst = store.Instance{
 		StudyInstanceUID:  inst.StudyInstanceUID,
 		SeriesInstanceUID: inst.SeriesInstanceUID,
@@ -199,6 +202,7 @@ func (c *Core) Commit(ctx context.Context, st *Staged) (Stored, error) {
 		return st.Stored, fmt.Errorf("store instance: %w", err)
 	}
 	c.cfg.Metrics.instanceStored(st.origin.Listener)
+	c.touch(rec.StudyInstanceUID)
 	return Stored{
 		StudyInstanceUID:  rec.StudyInstanceUID,
 		SeriesInstanceUID: rec.SeriesInstanceUID,

@@ -89,6 +89,10 @@ type Backend interface {
 	// the instance (already discarded).
 	Receive(ctx context.Context, origin Origin, r io.Reader, limit int64) (*Staged, error)
 	Commit(ctx context.Context, st *Staged) (Stored, error)
+	// Hold keeps a study from settling while a request or session is
+	// still sending to it, until the returned function is called (once or
+	// more); the settle time counts from then.
+	Hold(study string) func()
 	// NewUpload returns a temporary file in the store's spool for an
 	// upload that must be on disk before it is read (a zip archive).
 	NewUpload() (Upload, error)

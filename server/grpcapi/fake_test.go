@@ -104,6 +104,9 @@ func (f *fakeBackend) Commit(_ context.Context, st *server.Staged) (server.Store
 	return st.Stored, nil
 }
 
+// Hold holds nothing: the fake has no scheduler.
+func (f *fakeBackend) Hold(string) func() { return func() {} }
+
 // NewUpload returns a temporary file.
 func (f *fakeBackend) NewUpload() (server.Upload, error) {
 	file, err := os.CreateTemp("", "fake-upload-*")

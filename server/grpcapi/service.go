@@ -211,6 +211,9 @@ type ingester struct {
 	origin  server.Origin
 	staged  []*server.Staged
 	uids    []string
+	// held are the studies this request keeps from settling, with their
+	// release functions, until it ends.
+	held map[string]func()
 }
 
 // receive streams one instance into the spool; name says which part of
@@ -223,6 +226,12 @@ func (g *ingester) receive(ctx context.Context, name string, r io.Reader, limit 
 		return prefixed(name, err)
 	}
 	g.staged = append(g.staged, st)
+	if g.held == nil {
+		g.held = map[string]func(){}
+	}
+	if _, ok := g.held[st.StudyInstanceUID]; !ok {
+		g.held[st.StudyInstanceUID] = g.backend.Hold(st.StudyInstanceUID)
+	}
 	return nil
 }
 
@@ -257,12 +266,17 @@ func (g *ingester) commit(ctx context.Context) error {
 	return nil
 }
 
-// abort discards what was staged and not stored.
+// abort discards what was staged and not stored and lets the request's
+// studies settle; the handler defers it.
 func (g *ingester) abort() {
 	for _, st := range g.staged {
 		st.Abort()
 	}
 	g.staged = nil
+	for _, release := range g.held {
+		release()
+	}
+	g.held = nil
 }
 
 // prefixed names the part of a request an error is about: a refusal gets

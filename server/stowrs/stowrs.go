@@ -117,7 +117,13 @@ func (a *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	origin := server.Origin{Listener: "stow", Remote: r.RemoteAddr, Study: r.PathValue("study")}
-	refs, fails, err := a.stowParts(r.Context(), origin, mr)
+	held := map[string]func(){}
+	defer func() {
+		for _, release := range held {
+			release()
+		}
+	}()
+	refs, fails, err := a.stowParts(r.Context(), origin, mr, held)
 	if err != nil && len(refs) == 0 {
 		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
@@ -186,13 +192,14 @@ func acceptable(values []string) *midsag.Error {
 		"Accept %q admits no response this service makes; STOW-RS answers in %s (PS3.18 10.5.3)", strings.Join(values, ", "), mediaType)
 }
 
-// stowParts ingests every part of mr and returns the Referenced SOP items
+// stowParts ingests every part of mr, holding each study stored to in
+// held, and returns the Referenced SOP items
 // of those stored and the failed items of the rest; the error is a body
 // that breaks off, is not valid MIME or is beyond the input limits,
 // returned with the items of the parts before it.
-func (a *handler) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader) (refs, fails []any, err error) {
+func (a *handler) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader, held map[string]func()) (refs, fails []any, err error) {
 	err = inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, r io.Reader) error {
-		ref, code, err := a.stowPart(ctx, origin, n, part.Header.Get("Content-Type"), r)
+		ref, code, err := a.stowPart(ctx, origin, n, part.Header.Get("Content-Type"), r, held)
 		if err != nil {
 			return err
 		}
@@ -212,7 +219,7 @@ func (a *handler) stowParts(ctx context.Context, origin server.Origin, mr *multi
 // parsed once, by Ingest, which also refuses an instance of another study
 // than origin.Study before storing it. The error is the body's, which
 // ends the request.
-func (a *handler) stowPart(ctx context.Context, origin server.Origin, n int, contentType string, r io.Reader) (dicomJSON, int, error) {
+func (a *handler) stowPart(ctx context.Context, origin server.Origin, n int, contentType string, r io.Reader, held map[string]func()) (dicomJSON, int, error) {
 	item := dicomJSON{tagReferencedSOPClass: uiAttr(""), tagReferencedSOPInstance: uiAttr("")}
 	if contentType != "" {
 		if mt, _, err := mime.ParseMediaType(contentType); err != nil || mt != "application/dicom" {
@@ -230,6 +237,10 @@ func (a *handler) stowPart(ctx context.Context, origin server.Origin, n int, con
 	if err != nil {
 		item, code := a.stowFailed(item, n, err)
 		return item, code, nil
+	}
+	if _, ok := held[st.StudyInstanceUID]; !ok {
+		// The study settles from the request's end, not from this part.
+		held[st.StudyInstanceUID] = a.cfg.Backend.Hold(st.StudyInstanceUID)
 	}
 	return item, 0, nil
 }
