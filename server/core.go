@@ -148,11 +148,11 @@ func New(cfg Config) *Core {
 		cfg.Logger = slog.New(slog.DiscardHandler)
 	}
 	return &Core{
-		budget:  semaphore.NewWeighted(cfg.InflightBytes),
-		cfg:     cfg,
-		log:     cfg.Logger,
-		slots:   make(chan struct{}, cfg.QueueSize),
-		queue:   make(chan string, cfg.QueueSize),
+		budget:   semaphore.NewWeighted(cfg.InflightBytes),
+		cfg:      cfg,
+		log:      cfg.Logger,
+		slots:    make(chan struct{}, cfg.QueueSize),
+		queue:    make(chan string, cfg.QueueSize),
 		waiters:  map[string][]chan struct{}{},
 		queued:   map[string]bool{},
 		holds:    map[string]int{},
