@@ -106,6 +106,9 @@ const (
 	// ReasonUnauthenticated refuses a request without a known bearer
 	// token where one is required.
 	ReasonUnauthenticated Reason = "unauthenticated"
+	// ReasonNotAcceptable refuses a request whose Accept header admits
+	// no media type the route answers in.
+	ReasonNotAcceptable Reason = "not_acceptable"
 )
 
 // Failures: nothing was wrong with the input; the service or the run
@@ -113,6 +116,10 @@ const (
 const (
 	// ReasonInternal is a service failure; the log has the cause.
 	ReasonInternal Reason = "internal"
+	// ReasonCorruptInstance fails a job one of whose stored instances no
+	// longer matches the sha256 recorded when it was received (the disk
+	// or someone changed the spool file), or is missing.
+	ReasonCorruptInstance Reason = "corrupt_instance"
 	// ReasonError is the reason of a batch row whose scoring failed (not
 	// refused): its message column says more.
 	ReasonError Reason = "error"
@@ -128,8 +135,8 @@ func AllReasons() []Reason {
 		ReasonDuplicateInstance, ReasonUnreadable,
 		ReasonModelInputMismatch, ReasonBadModel, ReasonUnknownModel,
 		ReasonBadTable, ReasonMixedModels, ReasonOverlappingStudies,
-		ReasonOverloaded, ReasonBadRequest, ReasonNotFound, ReasonUnauthenticated,
-		ReasonInternal, ReasonError,
+		ReasonOverloaded, ReasonBadRequest, ReasonNotFound, ReasonUnauthenticated, ReasonNotAcceptable,
+		ReasonInternal, ReasonCorruptInstance, ReasonError,
 	}
 }
 

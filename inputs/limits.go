@@ -24,7 +24,16 @@ type Limits struct {
 	// on disk is read whole while a small archive bomb is not.
 	MaxTotalBytes int64
 	MaxInflation  int64
+	// MaxEntryRatio bounds one zip entry's inflated size to this many
+	// times its compressed size, for entries inflating beyond
+	// ratioFloor; zero is DefaultLimits'.
+	MaxEntryRatio int64
 }
+
+// ratioFloor is the inflated size below which an entry's ratio is not
+// checked: a small, mostly empty header-only instance may compress far
+// better than pixel data does, and cannot cost much. Our choice.
+const ratioFloor = 1 << 20
 
 // MaxInstanceBytes is the default bound on one instance at every edge:
 // a file, a zip entry, a part, a request body, a C-STORE dataset, and the
@@ -43,6 +52,11 @@ var DefaultLimits = Limits{
 	MaxEntryBytes: MaxInstanceBytes,
 	MaxTotalBytes: 4 << 30,
 	MaxInflation:  4,
+	// DEFLATE cannot exceed about 1032:1 (zlib's technical notes, from
+	// memory); MR pixel data deflates by a few times (common practice),
+	// so 200 leaves a wide margin and stops an entry that is a run of
+	// zeros.
+	MaxEntryRatio: 200,
 }
 
 // OrDefault returns l with every zero field taken from DefaultLimits.
@@ -58,6 +72,9 @@ func (l Limits) OrDefault() Limits {
 	}
 	if l.MaxInflation <= 0 {
 		l.MaxInflation = DefaultLimits.MaxInflation
+	}
+	if l.MaxEntryRatio <= 0 {
+		l.MaxEntryRatio = DefaultLimits.MaxEntryRatio
 	}
 	return l
 }

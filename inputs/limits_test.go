@@ -4,8 +4,10 @@ import (
 	"archive/zip"
 	"bytes"
 	"compress/flate"
+	"encoding/binary"
 	"errors"
 	"hash/crc32"
+	"io"
 	"math/rand/v2"
 	"mime/multipart"
 	"net/textproto"
@@ -167,14 +169,15 @@ func related(t *testing.T, parts ...[]byte) *multipart.Reader {
 func TestPartsLimits(t *testing.T) {
 	lim := Limits{MaxEntries: 2, MaxEntryBytes: 8}
 	var got []string
-	err := Parts(related(t, []byte("one"), []byte("two")), lim, func(n int, p *multipart.Part, data []byte) error {
+	err := Parts(related(t, []byte("one"), []byte("two")), lim, func(n int, p *multipart.Part, r io.Reader) error {
+		data, err := io.ReadAll(r)
 		got = append(got, string(data)+"/"+p.Header.Get("Content-Type"))
-		return nil
+		return err
 	})
 	if err != nil || strings.Join(got, ",") != "one/application/dicom,two/application/dicom" {
 		t.Errorf("parts %v, %v", got, err)
 	}
-	none := func(int, *multipart.Part, []byte) error { return nil }
+	none := func(_ int, _ *multipart.Part, r io.Reader) error { _, err := io.ReadAll(r); return err }
 	wantReason(t, "three parts, limit two", Parts(related(t, []byte("1"), []byte("2"), []byte("3")), lim, none), midsag.ReasonTooLarge)
 	err = Parts(related(t, []byte("far more than eight bytes")), lim, none)
 	wantReason(t, "part beyond MaxEntryBytes", err, midsag.ReasonTooLarge)
@@ -192,4 +195,74 @@ func TestReadEntry(t *testing.T) {
 	}
 	_, err := ReadEntry(strings.NewReader("abcde"), lim)
 	wantReason(t, "one byte over", err, midsag.ReasonTooLarge)
+}
+
+// TestZipEntryRatio: an entry of 4 MiB of zeros deflates about 1000 to 1
+// (DEFLATE's bound is near 1032:1, zlib's technical notes, from memory),
+// beyond MaxEntryRatio, and is refused at Open, also when its header
+// forges a small uncompressed size (the reader stops at the ratio's
+// limit). Random bytes of the same size, which deflate cannot shrink,
+// read whole.
+func TestZipEntryRatio(t *testing.T) {
+	lim := Limits{MaxEntries: 10, MaxEntryBytes: 8 << 20, MaxTotalBytes: 64 << 20, MaxEntryRatio: 200}
+	zeros := make([]byte, 4<<20)
+	rnd := make([]byte, 4<<20)
+	rand.NewChaCha8([32]byte{2}).Read(rnd)
+	r := zipOf(t, false, map[string][]byte{"zeros": zeros, "random": rnd})
+	entries, err := ZipEntries(r, r.Size(), "ratio.zip", lim)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, e := range entries {
+		data, err := ReadSource(e.Source)
+		switch e.Path {
+		case "zeros":
+			wantReason(t, "zeros beyond the ratio", err, midsag.ReasonTooLarge)
+		case "random":
+			if err != nil || len(data) != len(rnd) {
+				t.Errorf("random entry: %d bytes, %v", len(data), err)
+			}
+		}
+	}
+	r = zipOf(t, true, map[string][]byte{"zeros": zeros})
+	entries, err = ZipEntries(r, r.Size(), "forged-ratio.zip", lim)
+	if err != nil {
+		t.Fatal(err)
+	}
+	data, err := ReadSource(entries[0].Source)
+	if err == nil || len(data) > 2<<20 {
+		t.Errorf("forged ratio: read %d bytes, %v; want a refusal within the 1 MiB floor", len(data), err)
+	}
+}
+
+// TestZipOverlappingEntries: an archive whose central directory lists the
+// same local entry twice (the shape of a bomb of many entries over one
+// stream) is refused as too_large before any entry inflates; the honest
+// archive it was made from is accepted. Record layouts from APPNOTE.TXT
+// 4.3.12 (central directory header, 46 bytes before the name) and 4.3.16
+// (end of central directory, 22 bytes).
+func TestZipOverlappingEntries(t *testing.T) {
+	honest := zipOf(t, false, map[string][]byte{"a": []byte("one instance")})
+	b := make([]byte, honest.Size())
+	honest.ReadAt(b, 0)
+	eocd := len(b) - 22
+	cdSize := binary.LittleEndian.Uint32(b[eocd+12:])
+	cdOff := binary.LittleEndian.Uint32(b[eocd+16:])
+	cd := b[cdOff : cdOff+cdSize]
+	dup := bytes.Clone(cd)
+	dup[46] = 'b' // the same data under another name
+	crafted := append(append(append(bytes.Clone(b[:cdOff]), cd...), dup...), b[eocd:]...)
+	end := crafted[len(crafted)-22:]
+	binary.LittleEndian.PutUint16(end[8:], 2)
+	binary.LittleEndian.PutUint16(end[10:], 2)
+	binary.LittleEndian.PutUint32(end[12:], 2*cdSize)
+	if _, err := ZipEntries(honest, honest.Size(), "honest.zip", DefaultLimits); err != nil {
+		t.Fatalf("honest archive: %v", err)
+	}
+	zr, err := zip.NewReader(bytes.NewReader(crafted), int64(len(crafted)))
+	if err != nil || len(zr.File) != 2 {
+		t.Fatalf("crafted archive does not list two entries: %v", err)
+	}
+	_, err = ZipEntries(bytes.NewReader(crafted), int64(len(crafted)), "crafted.zip", DefaultLimits)
+	wantReason(t, "two entries over one stream", err, midsag.ReasonTooLarge)
 }

@@ -2,7 +2,11 @@ package inputs
 
 import (
 	"archive/zip"
+	"cmp"
+	"errors"
+	"fmt"
 	"io"
+	"slices"
 
 	"github.com/midsag/midsag"
 )
@@ -36,6 +40,9 @@ func ZipEntries(r io.ReaderAt, size int64, archive string, lim Limits) ([]Entry,
 	if len(zr.File) > lim.MaxEntries {
 		return nil, tooManyEntries("zip archive "+archive, len(zr.File), lim)
 	}
+	if err := overlapping(zr.File); err != nil {
+		return nil, midsag.Reject(midsag.ReasonTooLarge, "zip archive "+archive+" is refused", err)
+	}
 	b := newBudget(max(lim.MaxTotalBytes, lim.MaxInflation*size))
 	var out []Entry
 	for i, zf := range zr.File {
@@ -50,19 +57,54 @@ func ZipEntries(r io.ReaderAt, size int64, archive string, lim Limits) ([]Entry,
 	return out, nil
 }
 
-// openEntry opens zf within the limits: a declared size beyond
-// MaxEntryBytes is refused at once, and the reader stops at the limit
+// overlapping refuses an archive two of whose entries share compressed
+// bytes: an honest archive never does, and a bomb made of many entries
+// pointing at one stream inflates it once per entry.
+func overlapping(files []*zip.File) error {
+	type span struct{ start, end int64 }
+	spans := make([]span, 0, len(files))
+	for _, zf := range files {
+		off, err := zf.DataOffset()
+		if err != nil {
+			return fmt.Errorf("entry %s: %w", zf.Name, err)
+		}
+		spans = append(spans, span{off, off + int64(zf.CompressedSize64)})
+	}
+	slices.SortFunc(spans, func(a, b span) int { return cmp.Compare(a.start, b.start) })
+	for i := 1; i < len(spans); i++ {
+		if spans[i].start < spans[i-1].end {
+			return errors.New("two entries overlap: the archive is crafted, not made by an archiver")
+		}
+	}
+	return nil
+}
+
+// entryLimit is what zf may inflate to: MaxEntryBytes, and
+// MaxEntryRatio times its compressed size above ratioFloor.
+func entryLimit(zf *zip.File, lim Limits) int64 {
+	byRatio := max(ratioFloor, lim.MaxEntryRatio*int64(min(zf.CompressedSize64, uint64(lim.MaxEntryBytes))))
+	return min(lim.MaxEntryBytes, byRatio)
+}
+
+// openEntry opens zf within the limits: a compressed or declared
+// uncompressed size beyond MaxEntryBytes, or a declared ratio beyond
+// MaxEntryRatio, is refused at once, and the reader stops at the limit
 // whatever the header says, so a forged size cannot bypass it.
 func openEntry(zf *zip.File, lim Limits, b *budget) func() (io.ReadCloser, error) {
 	return func() (io.ReadCloser, error) {
-		if zf.UncompressedSize64 > uint64(lim.MaxEntryBytes) {
-			return nil, midsag.Rejectf(midsag.ReasonTooLarge, "the entry declares %d bytes uncompressed; the limit is %d",
-				zf.UncompressedSize64, lim.MaxEntryBytes)
+		if zf.CompressedSize64 > uint64(lim.MaxEntryBytes) {
+			return nil, midsag.Rejectf(midsag.ReasonTooLarge, "the entry holds %d compressed bytes; the limit is %d",
+				zf.CompressedSize64, lim.MaxEntryBytes)
+		}
+		limit := entryLimit(zf, lim)
+		if zf.UncompressedSize64 > uint64(limit) {
+			return nil, midsag.Rejectf(midsag.ReasonTooLarge, "the entry declares %d bytes uncompressed from %d; the limit is %d (at most %d bytes, %d times its compressed size)",
+				zf.UncompressedSize64, zf.CompressedSize64, limit, lim.MaxEntryBytes, lim.MaxEntryRatio)
 		}
 		rc, err := zf.Open()
 		if err != nil {
 			return nil, midsag.Reject(midsag.ReasonNotDICOM, "the zip entry cannot be opened", err)
 		}
-		return &limitedEntry{rc: rc, left: lim.MaxEntryBytes, limit: lim.MaxEntryBytes, budget: b}, nil
+		return &limitedEntry{rc: rc, left: limit, limit: limit, budget: b}, nil
 	}
 }

@@ -1,7 +1,6 @@
 package server
 
 import (
-	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -13,6 +12,7 @@ import (
 	"time"
 
 	"golang.org/x/sync/errgroup"
+	"golang.org/x/sync/semaphore"
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/explain"
@@ -23,10 +23,15 @@ import (
 // Store is where Core keeps instances, jobs and results durably.
 // *store.Store implements it.
 type Store interface {
-	// Put stores an instance's bytes and row; the bool is true for an
-	// identical duplicate. store.ErrStudyFull refuses a full study.
-	Put(ctx context.Context, inst store.Instance, data []byte) (store.Instance, bool, error)
-	// Open opens an instance's stored bytes.
+	// NewUpload starts an instance's upload: a temporary file in the
+	// spool, removed by Abort or at the next start.
+	NewUpload() (store.Upload, error)
+	// PutUpload stores an upload's bytes and the instance's row; the bool
+	// is true for an identical duplicate. store.ErrStudyFull refuses a
+	// full study.
+	PutUpload(ctx context.Context, inst store.Instance, u store.Upload) (store.Instance, bool, error)
+	// Open opens an instance's stored bytes once they match their stored
+	// sha256 (an error wrapping store.ErrCorrupt otherwise).
 	Open(inst store.Instance) (io.ReadCloser, error)
 	// Instances lists a study's instances up to maxSeq (all when <= 0) in
 	// arrival order; InstancesBySOP those among the UIDs.
@@ -81,8 +86,12 @@ type Config struct {
 	QueueSize int
 	// MaxInstancesPerRequest bounds one direct request (default 5000).
 	MaxInstancesPerRequest int
-	Logger                 *slog.Logger
-	Metrics                *Metrics
+	// InflightBytes bounds the copy buffers of every instance being
+	// received at once (default DefaultInflightBytes); an instance beyond
+	// it waits for a buffer.
+	InflightBytes int64
+	Logger        *slog.Logger
+	Metrics       *Metrics
 	// Explain adds an occlusion map to every job, not only to requests
 	// that ask for one.
 	Explain bool
@@ -99,10 +108,21 @@ type Core struct {
 	log   *slog.Logger
 	slots chan struct{}
 	queue chan string
+	// budget holds InflightBytes; each instance in flight takes one
+	// ingest buffer from it.
+	budget *semaphore.Weighted
 
 	mu      sync.Mutex
 	waiters map[string][]chan struct{}
 	queued  map[string]bool
+	// holds counts the requests and sessions still sending to a study;
+	// activity is when one of its instances last arrived or a hold ended.
+	// A study settles only once it has no hold and has been quiet since
+	// activity for the settle time, so a slow upload (an instance that
+	// takes long to stream, a REST request stored at its end) is not
+	// scored half-way.
+	holds    map[string]int
+	activity map[string]time.Time
 }
 
 var (
@@ -122,63 +142,27 @@ func New(cfg Config) *Core {
 	if cfg.MaxInstancesPerRequest <= 0 {
 		cfg.MaxInstancesPerRequest = 5000
 	}
+	if cfg.InflightBytes < ingestBuffer {
+		cfg.InflightBytes = DefaultInflightBytes
+	}
 	if cfg.Logger == nil {
 		cfg.Logger = slog.New(slog.DiscardHandler)
 	}
 	return &Core{
-		cfg:     cfg,
-		log:     cfg.Logger,
-		slots:   make(chan struct{}, cfg.QueueSize),
-		queue:   make(chan string, cfg.QueueSize),
-		waiters: map[string][]chan struct{}{},
-		queued:  map[string]bool{},
+		budget:   semaphore.NewWeighted(cfg.InflightBytes),
+		cfg:      cfg,
+		log:      cfg.Logger,
+		slots:    make(chan struct{}, cfg.QueueSize),
+		queue:    make(chan string, cfg.QueueSize),
+		waiters:  map[string][]chan struct{}{},
+		queued:   map[string]bool{},
+		holds:    map[string]int{},
+		activity: map[string]time.Time{},
 	}
 }
 
 // QueueDepth returns the number of jobs waiting or running.
 func (c *Core) QueueDepth() int { return len(c.slots) }
-
-// Ingest parses the instance's header and stores it durably.
-func (c *Core) Ingest(ctx context.Context, origin Origin, data []byte) (Stored, error) {
-	// Headers only: the pixels are decoded when the study is scored, from
-	// the spool, so ingesting does not copy them a second time.
-	inst, err := c.cfg.Pre.ReadHeader(origin.Listener, bytes.NewReader(data), int64(len(data)))
-	if err != nil {
-		return Stored{}, err
-	}
-	if inst.StudyInstanceUID == "" || inst.SeriesInstanceUID == "" {
-		return Stored{}, midsag.Rejectf(midsag.ReasonNotDICOM, "instance has no Study or Series Instance UID")
-	}
-	if origin.Study != "" && inst.StudyInstanceUID != origin.Study {
-		named := Stored{StudyInstanceUID: inst.StudyInstanceUID, SeriesInstanceUID: inst.SeriesInstanceUID,
-			SOPInstanceUID: inst.SOPInstanceUID, SOPClassUID: inst.SOPClassUID}
-		return named, midsag.Rejectf(midsag.ReasonMultipleStudies, "instance of another study than the request's")
-	}
-	rec, dup, err := c.cfg.Store.Put(ctx, store.Instance{
-		StudyInstanceUID:  inst.StudyInstanceUID,
-		SeriesInstanceUID: inst.SeriesInstanceUID,
-		SOPInstanceUID:    inst.SOPInstanceUID,
-		SOPClassUID:       inst.SOPClassUID,
-		TransferSyntaxUID: inst.TransferSyntaxUID,
-		Origin:            origin.Listener,
-		CallingAE:         origin.CallingAE,
-		Remote:            origin.Remote,
-	}, data)
-	if errors.Is(err, store.ErrStudyFull) {
-		return Stored{}, midsag.Reject(midsag.ReasonTooLarge, "the study has reached the instance limit", err)
-	}
-	if err != nil {
-		return Stored{}, fmt.Errorf("store instance: %w", err)
-	}
-	c.cfg.Metrics.instanceStored(origin.Listener)
-	return Stored{
-		StudyInstanceUID:  rec.StudyInstanceUID,
-		SeriesInstanceUID: rec.SeriesInstanceUID,
-		SOPInstanceUID:    rec.SOPInstanceUID,
-		SOPClassUID:       rec.SOPClassUID,
-		Duplicate:         dup,
-	}, nil
-}
 
 // Score creates a job for the request's instances and, unless Async,
 // waits for its result.
@@ -387,8 +371,13 @@ func (c *Core) schedule(ctx context.Context) {
 			}
 			continue
 		}
+		now := time.Now()
+		c.forgetQuiet(now)
 	studies:
 		for _, st := range due {
+			if c.settling(st.StudyInstanceUID, now) {
+				continue
+			}
 			select {
 			case c.slots <- struct{}{}:
 			default:
@@ -403,6 +392,57 @@ func (c *Core) schedule(ctx context.Context) {
 			}
 			c.log.Info("study settled; scoring", "study_instance_uid", st.StudyInstanceUID, "result_id", rec.ID, "version", rec.Version)
 			c.enqueue(rec.ID)
+		}
+	}
+}
+
+// Hold marks a study as still being sent to (a STOW-RS request, a REST
+// upload, a DICOM association) until the returned function is called; the
+// settle time counts from then. Calling the function again does nothing.
+func (c *Core) Hold(study string) func() {
+	c.mu.Lock()
+	c.holds[study]++
+	c.mu.Unlock()
+	var once sync.Once
+	return func() {
+		once.Do(func() {
+			c.mu.Lock()
+			defer c.mu.Unlock()
+			if c.holds[study]--; c.holds[study] <= 0 {
+				delete(c.holds, study)
+			}
+			c.activity[study] = time.Now()
+		})
+	}
+}
+
+// touch records that an instance of the study arrived.
+func (c *Core) touch(study string) {
+	c.mu.Lock()
+	c.activity[study] = time.Now()
+	c.mu.Unlock()
+}
+
+// settling reports whether the study is held or had activity within the
+// settle time.
+func (c *Core) settling(study string, now time.Time) bool {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	if c.holds[study] > 0 {
+		return true
+	}
+	at, ok := c.activity[study]
+	return ok && now.Sub(at) < c.cfg.Settle
+}
+
+// forgetQuiet drops activity older than the settle time, which no longer
+// delays anything.
+func (c *Core) forgetQuiet(now time.Time) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	for study, at := range c.activity {
+		if now.Sub(at) >= c.cfg.Settle {
+			delete(c.activity, study)
 		}
 	}
 }
@@ -467,8 +507,7 @@ func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
 	insts = slices.DeleteFunc(insts, func(in store.Instance) bool { return !midsag.IsMRImageStorage(in.SOPClassUID) })
 	sources := make([]midsag.Source, len(insts))
 	for i, in := range insts {
-		in := in
-		sources[i] = midsag.Source{Name: in.SOPInstanceUID, Open: func() (io.ReadCloser, error) { return c.cfg.Store.Open(in) }}
+		sources[i] = midsag.Source{Name: in.SOPInstanceUID, Open: func() (io.ReadCloser, error) { return c.openStored(rec, in) }}
 	}
 	name, version := rec.ModelName, rec.ModelVersion
 	m, release, err := c.cfg.Registry.Acquire(name, version)
@@ -484,6 +523,9 @@ func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
 		p.Explainer = c.cfg.Explainer
 	}
 	res, err := p.Run(ctx, sources)
+	if errors.Is(err, store.ErrCorrupt) {
+		return nil, midsag.Reject(midsag.ReasonCorruptInstance, "a stored instance of the study is damaged; resend it", err)
+	}
 	if err != nil || res.Explanation == nil {
 		return res, err
 	}
@@ -507,6 +549,19 @@ func (c *Core) score(ctx context.Context, rec Record) (*midsag.Result, error) {
 		}
 	}
 	return res, nil
+}
+
+// openStored opens one stored instance for a job. A spool file that no
+// longer matches its stored sha256 fails the job (the Pipeline stops at a
+// read error that is not a refusal) and is logged at ERROR: the disk, or
+// someone, changed what was acknowledged.
+func (c *Core) openStored(rec Record, in store.Instance) (io.ReadCloser, error) {
+	rc, err := c.cfg.Store.Open(in)
+	if errors.Is(err, store.ErrCorrupt) {
+		c.log.Error("stored instance is corrupt", "reason", midsag.ReasonCorruptInstance, "result_id", rec.ID,
+			"study_instance_uid", in.StudyInstanceUID, "sop_instance_uid", in.SOPInstanceUID, "path", in.Path, "err", err)
+	}
+	return rc, err
 }
 
 // HeatmapPNG is the artifact name of an explained result's heatmap.

@@ -110,7 +110,23 @@ func newFakeStore() *fakeStore {
 	return &fakeStore{data: map[string][]byte{}, received: map[string]time.Time{}, records: map[string]Record{}, artifacts: map[string][]byte{}}
 }
 
-func (s *fakeStore) Put(_ context.Context, in store.Instance, data []byte) (store.Instance, bool, error) {
+// memUpload is the fake store's store.Upload, in memory.
+type memUpload struct {
+	bytes.Buffer
+	aborted bool
+}
+
+func (u *memUpload) ReadAt(p []byte, off int64) (int, error) {
+	return bytes.NewReader(u.Bytes()).ReadAt(p, off)
+}
+func (u *memUpload) Size() int64 { return int64(u.Len()) }
+func (u *memUpload) Park() error { return nil }
+func (u *memUpload) Abort()      { u.aborted = true }
+
+func (s *fakeStore) NewUpload() (store.Upload, error) { return &memUpload{}, nil }
+
+func (s *fakeStore) PutUpload(_ context.Context, in store.Instance, up store.Upload) (store.Instance, bool, error) {
+	data := up.(*memUpload).Bytes()
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	for _, old := range s.insts {

@@ -41,7 +41,7 @@ const (
 //
 // HTTP statuses by RFC 9110 section 15: 400 Bad Request (15.5.1: the
 // request is malformed), 401 Unauthorized (15.5.2), 404 Not Found
-// (15.5.5), 413 Content Too Large (15.5.14), 415 Unsupported Media Type
+// (15.5.5), 406 Not Acceptable (15.5.7), 413 Content Too Large (15.5.14), 415 Unsupported Media Type
 // (15.5.16: the payload's format is not accepted), 422 Unprocessable
 // Content (15.5.21: well-formed, but its contents cannot be processed),
 // 500 Internal Server Error (15.6.1); 429 Too Many Requests is RFC 6585
@@ -49,7 +49,8 @@ const (
 // (grpc/grpc doc/statuscodes.md): INVALID_ARGUMENT for an argument that is
 // wrong whatever the system's state, FAILED_PRECONDITION for one the
 // system cannot act on in its present form, RESOURCE_EXHAUSTED for a
-// quota or capacity, NOT_FOUND, UNAUTHENTICATED, INTERNAL.
+// quota or capacity, NOT_FOUND, UNAUTHENTICATED, INTERNAL, DATA_LOSS for
+// unrecoverable data corruption.
 var ReasonTable = map[midsag.Reason]Mapping{
 	midsag.ReasonNoInput:              {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
 	midsag.ReasonNotDICOM:             {HTTP: http.StatusUnsupportedMediaType, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
@@ -76,7 +77,9 @@ var ReasonTable = map[midsag.Reason]Mapping{
 	midsag.ReasonBadRequest:           {HTTP: http.StatusBadRequest, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
 	midsag.ReasonNotFound:             {HTTP: http.StatusNotFound, GRPC: codes.NotFound, DICOM: statusCannotParse},
 	midsag.ReasonUnauthenticated:      {HTTP: http.StatusUnauthorized, GRPC: codes.Unauthenticated, DICOM: statusCannotParse},
+	midsag.ReasonNotAcceptable:        {HTTP: http.StatusNotAcceptable, GRPC: codes.InvalidArgument, DICOM: statusCannotParse},
 	midsag.ReasonInternal:             {HTTP: http.StatusInternalServerError, GRPC: codes.Internal, Fault: true, DICOM: statusProcessing},
+	midsag.ReasonCorruptInstance:      {HTTP: http.StatusInternalServerError, GRPC: codes.DataLoss, Fault: true, DICOM: statusProcessing},
 	midsag.ReasonError:                {HTTP: http.StatusInternalServerError, GRPC: codes.Internal, Fault: true, DICOM: statusProcessing},
 }
 

@@ -2,6 +2,7 @@ package server
 
 import (
 	"context"
+	"io"
 
 	"github.com/midsag/midsag/server/store"
 )
@@ -78,6 +79,23 @@ type Backend interface {
 	// durably (spool file and database row) before returning. A refusal
 	// after the header was read comes with the Stored UIDs it names.
 	Ingest(ctx context.Context, origin Origin, data []byte) (Stored, error)
+	// IngestFrom is Ingest streaming from r, at most limit bytes when
+	// limit > 0 (too_large beyond): the instance is copied to its spool
+	// file through one small buffer.
+	IngestFrom(ctx context.Context, origin Origin, r io.Reader, limit int64) (Stored, error)
+	// Receive streams one instance from r into the spool and reads its
+	// header without storing it; Commit stores it, Staged.Abort discards
+	// it. A refusal after the header was read may return a Staged naming
+	// the instance (already discarded).
+	Receive(ctx context.Context, origin Origin, r io.Reader, limit int64) (*Staged, error)
+	Commit(ctx context.Context, st *Staged) (Stored, error)
+	// Hold keeps a study from settling while a request or session is
+	// still sending to it, until the returned function is called (once or
+	// more); the settle time counts from then.
+	Hold(study string) func()
+	// NewUpload returns a temporary file in the store's spool for an
+	// upload that must be on disk before it is read (a zip archive).
+	NewUpload() (Upload, error)
 	// Score scores the request's instances as one study. Without Async it
 	// waits for the result; with Async it returns the pending record.
 	// Refusals are *midsag.Error values; a full queue is

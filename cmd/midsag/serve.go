@@ -48,6 +48,9 @@ type serveFlags struct {
 	workers      int
 	queue        int
 	maxBody      int64
+	inflight     int64
+	readIdle     time.Duration
+	minRate      int64
 	maxInstances int
 	maxAssoc     int
 	idle         time.Duration
@@ -76,6 +79,9 @@ func runServe(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.IntVar(&f.workers, "workers", 1, "studies scored at once")
 	fs.IntVar(&f.queue, "queue", 64, "scoring jobs allowed to wait; beyond it requests get 429 / RESOURCE_EXHAUSTED")
 	fs.Int64Var(&f.maxBody, "max-body", 1<<30, "largest request body in `bytes`")
+	fs.Int64Var(&f.inflight, "inflight-bytes", server.DefaultInflightBytes, "memory in `bytes` for the copy buffers of all instances being received at once (256 KiB each); more wait")
+	fs.DurationVar(&f.readIdle, "read-idle", server.DefaultReadIdle, "close an HTTP upload that brings nothing for this long")
+	fs.Int64Var(&f.minRate, "min-read-rate", server.DefaultMinRate, "close an HTTP upload bringing fewer `bytes` per second over a --read-idle window (negative: no minimum)")
 	fs.IntVar(&f.maxInstances, "max-instances", 5000, "most instances in one study or request")
 	fs.IntVar(&f.maxAssoc, "max-associations", 16, "most DICOM associations at once")
 	fs.DurationVar(&f.idle, "idle-timeout", 60*time.Second, "close a DICOM association idle for this long")
@@ -147,7 +153,8 @@ func serve(ctx context.Context, f *serveFlags, log *slog.Logger) error {
 	runCtx, stop := context.WithCancel(ctx)
 	defer stop()
 	ls := &listeners{errs: make(chan error, 4)}
-	apiCfg := grpcapi.Config{Backend: svc.core, MaxBodyBytes: f.maxBody, Tokens: tokens, Logger: log, Observe: svc.metrics.ObserveRequest}
+	apiCfg := grpcapi.Config{Backend: svc.core, MaxBodyBytes: f.maxBody, ReadIdle: f.readIdle, MinReadRate: f.minRate,
+		Tokens: tokens, Logger: log, Observe: svc.metrics.ObserveRequest}
 	if err := ls.startGRPC(f, apiCfg, tlsCfg, log); err != nil {
 		ls.shutdown()
 		return err
@@ -235,6 +242,9 @@ func openService(f *serveFlags, log *slog.Logger) (*serveParts, error) {
 		reg.Close()
 		return nil, fmt.Errorf("open store: %w", err)
 	}
+	if err := st.Healthy(); err != nil {
+		log.Error("the store's database is damaged: not ready; run midsag store check", "data_dir", f.dataDir, "err", err)
+	}
 	pre, ok := pipe.Pre.(server.Preprocessor)
 	if !ok {
 		st.Close()
@@ -244,7 +254,7 @@ func openService(f *serveFlags, log *slog.Logger) (*serveParts, error) {
 	svc := &serveParts{reg: reg, st: st}
 	svc.metrics = server.NewMetrics(func() float64 { return float64(svc.core.QueueDepth()) }, svc.associations)
 	svc.core = server.New(server.Config{Store: st, Registry: reg, Pre: pre, Explainer: pipe.Explainer,
-		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances,
+		Settle: f.settle, Workers: f.workers, QueueSize: f.queue, MaxInstancesPerRequest: f.maxInstances, InflightBytes: f.inflight,
 		Logger: log, Metrics: svc.metrics, Explain: explainAll, SendTo: f.sender()})
 	return svc, nil
 }
@@ -351,7 +361,10 @@ func (ls *listeners) startHTTP(ctx context.Context, f *serveFlags, apiCfg grpcap
 	if err != nil {
 		return err
 	}
-	hs := &http.Server{Addr: f.httpAddr, Handler: h, TLSConfig: tlsCfg, ReadHeaderTimeout: 30 * time.Second}
+	// Bodies get their own read deadlines (server.NewBody: --read-idle,
+	// --min-read-rate); the header and a kept-alive connection waiting for
+	// its next request get these.
+	hs := &http.Server{Addr: f.httpAddr, Handler: h, TLSConfig: tlsCfg, ReadHeaderTimeout: f.readIdle, IdleTimeout: 2 * f.readIdle}
 	l, err := net.Listen("tcp", f.httpAddr)
 	if err != nil {
 		return fmt.Errorf("HTTP listener: %w", err)
@@ -452,7 +465,8 @@ func refusalComment(err error) string {
 }
 
 // readyHandler reports ready when the default model is loaded and the
-// store is writable.
+// store passed its integrity check at start and is writable; otherwise
+// 503 with the reason in the body.
 func readyHandler(reg *models.Registry, st *store.Store) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		if _, release, err := reg.Acquire("", ""); err != nil {
@@ -464,7 +478,7 @@ func readyHandler(reg *models.Registry, st *store.Store) http.Handler {
 		ctx, cancel := context.WithTimeout(r.Context(), 5*time.Second)
 		defer cancel()
 		if err := st.Ping(ctx); err != nil {
-			http.Error(w, "store not writable: "+err.Error(), http.StatusServiceUnavailable)
+			http.Error(w, "store not ready: "+err.Error(), http.StatusServiceUnavailable)
 			return
 		}
 		io.WriteString(w, "ready\n")

@@ -28,6 +28,12 @@ type Config struct {
 	// multipart body and each instance (inputs.Limits); zero fields are
 	// inputs.DefaultLimits.
 	Limits inputs.Limits
+	// ReadIdle and MinReadRate close an HTTP body that brings nothing for
+	// ReadIdle or less than MinReadRate bytes per second over a window of
+	// ReadIdle (server.BodyLimits); zero means server.DefaultReadIdle and
+	// server.DefaultMinRate.
+	ReadIdle    time.Duration
+	MinReadRate int64
 	// Tokens are the accepted bearer tokens. Empty means no
 	// authentication. /healthz, /readyz, /metrics and the gRPC health
 	// service never need one.

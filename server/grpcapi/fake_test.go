@@ -6,8 +6,10 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"io"
 	"mime/multipart"
 	"net/textproto"
+	"os"
 	"sync"
 	"testing"
 	"time"
@@ -31,32 +33,103 @@ type fakeBackend struct {
 	records  map[string]server.Record
 	// scoreErr, when set, is what Score returns.
 	scoreErr error
+	// staged are instances received, not yet committed, with their origin.
+	staged map[*server.Staged]server.Origin
 }
 
 func newFake() *fakeBackend {
 	return &fakeBackend{pre: preprocess.New(preprocess.Options{}), records: map[string]server.Record{}}
 }
 
-func (f *fakeBackend) Ingest(_ context.Context, origin server.Origin, data []byte) (server.Stored, error) {
-	inst, err := f.pre.Read("upload", bytes.NewReader(data))
+func (f *fakeBackend) Ingest(ctx context.Context, origin server.Origin, data []byte) (server.Stored, error) {
+	return f.IngestFrom(ctx, origin, bytes.NewReader(data), 0)
+}
+
+func (f *fakeBackend) IngestFrom(ctx context.Context, origin server.Origin, r io.Reader, limit int64) (server.Stored, error) {
+	st, err := f.Receive(ctx, origin, r, limit)
 	if err != nil {
+		if st != nil {
+			return st.Stored, err
+		}
 		return server.Stored{}, err
 	}
-	st := server.Stored{
+	return f.Commit(ctx, st)
+}
+
+// Receive reads the instance whole and parses it; the staged instance
+// remembers its origin for Commit.
+func (f *fakeBackend) Receive(_ context.Context, origin server.Origin, r io.Reader, limit int64) (*server.Staged, error) {
+	if limit <= 0 {
+		limit = 1 << 40
+	}
+	data, err := io.ReadAll(io.LimitReader(r, limit+1))
+	if err != nil {
+		return nil, err
+	}
+	if int64(len(data)) > limit {
+		return nil, midsag.Rejectf(midsag.ReasonTooLarge, "an instance is larger than the %d-byte limit", limit)
+	}
+	inst, err := f.pre.Read("upload", bytes.NewReader(data))
+	if err != nil {
+		return nil, err
+	}
+	st := &server.Staged{Stored: server.Stored{
 		StudyInstanceUID:  inst.StudyInstanceUID,
 		SeriesInstanceUID: inst.SeriesInstanceUID,
 		SOPInstanceUID:    inst.SOPInstanceUID,
 		SOPClassUID:       inst.SOPClassUID,
-	}
+	}}
 	if origin.Study != "" && st.StudyInstanceUID != origin.Study {
 		return st, midsag.Rejectf(midsag.ReasonMultipleStudies, "instance of another study")
 	}
 	f.mu.Lock()
 	defer f.mu.Unlock()
-	f.ingested = append(f.ingested, st)
-	f.origins = append(f.origins, origin)
+	if f.staged == nil {
+		f.staged = map[*server.Staged]server.Origin{}
+	}
+	f.staged[st] = origin
 	return st, nil
 }
+
+func (f *fakeBackend) Commit(_ context.Context, st *server.Staged) (server.Stored, error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	origin, ok := f.staged[st]
+	if !ok {
+		return server.Stored{}, fmt.Errorf("commit of an instance not staged")
+	}
+	delete(f.staged, st)
+	f.ingested = append(f.ingested, st.Stored)
+	f.origins = append(f.origins, origin)
+	return st.Stored, nil
+}
+
+// Hold holds nothing: the fake has no scheduler.
+func (f *fakeBackend) Hold(string) func() { return func() {} }
+
+// NewUpload returns a temporary file.
+func (f *fakeBackend) NewUpload() (server.Upload, error) {
+	file, err := os.CreateTemp("", "fake-upload-*")
+	if err != nil {
+		return nil, err
+	}
+	return &fileUpload{File: file}, nil
+}
+
+// fileUpload is a temporary file as a server.Upload.
+type fileUpload struct {
+	*os.File
+	n int64
+}
+
+func (u *fileUpload) Write(p []byte) (int, error) {
+	n, err := u.File.Write(p)
+	u.n += int64(n)
+	return n, err
+}
+func (u *fileUpload) Size() int64 { return u.n }
+func (u *fileUpload) Park() error { return nil }
+func (u *fileUpload) Abort()      { u.File.Close(); os.Remove(u.Name()) }
 
 func (f *fakeBackend) Score(_ context.Context, req server.ScoreRequest) (server.Record, error) {
 	f.mu.Lock()

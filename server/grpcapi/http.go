@@ -52,7 +52,8 @@ func NewHTTPHandler(ctx context.Context, cfg Config, extra map[string]http.Handl
 		return nil, fmt.Errorf("register gateway: %w", err)
 	}
 
-	stow := stowrs.Handler(stowrs.Config{Backend: cfg.Backend, MaxBodyBytes: cfg.MaxBodyBytes, Limits: cfg.Limits, Logger: cfg.Logger})
+	stow := stowrs.Handler(stowrs.Config{Backend: cfg.Backend, MaxBodyBytes: cfg.MaxBodyBytes, Limits: cfg.Limits, Logger: cfg.Logger,
+		ReadIdle: cfg.ReadIdle, MinReadRate: cfg.MinReadRate})
 	mux := http.NewServeMux()
 	routes := map[string]http.Handler{
 		"GET /v1/results/{result_id}":             gw,

@@ -221,7 +221,7 @@ func TestCurlScoreTooLarge(t *testing.T) {
 // every kind of upload: a zip with more entries than MaxEntries, a
 // multipart/related body with more parts, and a part or a single body
 // beyond MaxEntryBytes are refused as too_large with 413 (RFC 9110
-// 15.5.14) and nothing is ingested.
+// 15.5.14) and nothing is ingested; STOW-RS reports the part as failed.
 func TestCurlScoreInputLimits(t *testing.T) {
 	files := phantomStudy(t)
 	fake := newFake()
@@ -236,9 +236,16 @@ func TestCurlScoreInputLimits(t *testing.T) {
 	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
 		"--data-binary", "@"+p, srv.URL+"/v1/studies:score")
 	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+	// STOW-RS stores instance by instance (PS3.18 10.5): the part beyond
+	// the limit is one failed item with 0xA700 Out of Resources, and with
+	// none stored the answer is 409.
 	r = runCurl(t, "-H", `Content-Type: multipart/related; type="application/dicom"; boundary=`+boundary,
 		"--data-binary", "@"+p, srv.URL+"/dicomweb/studies")
-	wantRefusal(t, r, http.StatusRequestEntityTooLarge, midsag.ReasonTooLarge)
+	if r.code != http.StatusConflict {
+		t.Errorf("STOW-RS part beyond the limit: %d %s, want 409", r.code, r.body)
+	} else if fails := stowItems(t, decodeDICOMJSON(t, r.body)["00081198"].Value); len(fails) != 1 || fails[0]["00081197"].Value[0] != float64(0xA700) {
+		t.Errorf("STOW-RS part beyond the limit: failed items %v, want one with 0xA700", fails)
+	}
 
 	one := writeTemp(t, "one.dcm", files[0].Data)
 	r = runCurl(t, "-H", "Content-Type: application/dicom", "--data-binary", "@"+one, srv.URL+"/v1/studies:score")

@@ -11,7 +11,6 @@ import (
 	"mime/multipart"
 	"net/http"
 	"net/url"
-	"os"
 	"strconv"
 	"strings"
 
@@ -30,8 +29,9 @@ const gzipRefusal = "gzip is not accepted; send a zip or application/dicom"
 const sniffLen = 132
 
 // score serves POST /v1/studies:score: every instance of the body is
-// ingested (durable) before Score is asked, and only then is anything
-// answered.
+// received into the spool and its header read before any is stored, so a
+// refused request stores nothing; then all are stored (durable) and only
+// then scored and answered.
 func (a *httpAPI) score(w http.ResponseWriter, r *http.Request) {
 	opts, err := scoreOptions(r.URL.Query())
 	if err != nil {
@@ -42,9 +42,15 @@ func (a *httpAPI) score(w http.ResponseWriter, r *http.Request) {
 		server.WriteError(w, a.cfg.Logger, server.TooLarge(a.cfg.MaxBodyBytes))
 		return
 	}
-	body := http.MaxBytesReader(w, r.Body, a.cfg.MaxBodyBytes)
+	body := server.NewBody(w, r, a.bodyLimits())
 	ing := &ingester{backend: a.cfg.Backend, origin: server.Origin{Listener: "rest", Remote: r.RemoteAddr}}
-	if err := a.readStudy(r.Context(), r.Header, body, ing); err != nil {
+	defer ing.abort()
+	err = a.readStudy(r.Context(), r.Header, body, ing)
+	body.Done()
+	if err == nil {
+		err = ing.commit(r.Context())
+	}
+	if err != nil {
 		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
@@ -66,6 +72,11 @@ func (a *httpAPI) score(w http.ResponseWriter, r *http.Request) {
 	server.WriteBytes(w, code, "application/json", append(b, '\n'))
 }
 
+// bodyLimits are the limits of every request body this API reads.
+func (a *httpAPI) bodyLimits() server.BodyLimits {
+	return server.BodyLimits{MaxBytes: a.cfg.MaxBodyBytes, Idle: a.cfg.ReadIdle, MinRate: a.cfg.MinReadRate}
+}
+
 // scoreOptions reads the query parameters model, model_version, explain
 // and async.
 func scoreOptions(q url.Values) (*midsagv1.ScoreOptions, error) {
@@ -82,8 +93,8 @@ func scoreOptions(q url.Values) (*midsagv1.ScoreOptions, error) {
 	return opts, nil
 }
 
-// readStudy ingests every instance of an upload: a zip of one study, one
-// application/dicom instance, or multipart/related parts of
+// readStudy receives every instance of an upload: a zip of one study,
+// one application/dicom instance, or multipart/related parts of
 // application/dicom (PS3.18 8.6.1.2). The media type decides; a generic
 // or missing one is settled by the body's first bytes.
 func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, ing *ingester) error {
@@ -97,7 +108,7 @@ func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, 
 	if mt == "multipart/related" {
 		return a.readMultipart(ctx, params, body, ing)
 	}
-	br := bufio.NewReaderSize(body, 64<<10)
+	br := bufio.NewReaderSize(body, sniffLen)
 	head, err := br.Peek(sniffLen)
 	if err != nil && !errors.Is(err, io.EOF) {
 		return fmt.Errorf("read body: %w", err)
@@ -111,11 +122,7 @@ func (a *httpAPI) readStudy(ctx context.Context, h http.Header, body io.Reader, 
 	case mt == "application/zip", mt == "application/x-zip-compressed", isZip && genericType(mt):
 		return a.readZip(ctx, br, ing)
 	case mt == "application/dicom", genericType(mt):
-		data, err := inputs.ReadEntry(br, a.cfg.Limits)
-		if err != nil {
-			return prefixed("body", err)
-		}
-		return ing.ingest(ctx, "body", data)
+		return ing.receive(ctx, "body", br, a.cfg.Limits.MaxEntryBytes)
 	}
 	return midsag.Rejectf(midsag.ReasonNotDICOM,
 		"Content-Type %s is not accepted; send application/zip, application/dicom or multipart/related; type=\"application/dicom\"", mt)
@@ -127,7 +134,7 @@ func genericType(mt string) bool {
 	return mt == "" || mt == "application/octet-stream" || mt == "application/x-www-form-urlencoded"
 }
 
-// readMultipart ingests each part of a multipart/related body within
+// readMultipart receives each part of a multipart/related body within
 // the input limits; every part must be application/dicom (PS3.18
 // 8.6.1.2).
 func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, body io.Reader, ing *ingester) error {
@@ -135,11 +142,11 @@ func (a *httpAPI) readMultipart(ctx context.Context, params map[string]string, b
 	if err != nil {
 		return err
 	}
-	return inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, data []byte) error {
+	return inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, r io.Reader) error {
 		if err := partIsDICOM(part); err != nil {
 			return midsag.Rejectf(midsag.ReasonNotDICOM, "part %d: %v", n, err)
 		}
-		return ing.ingest(ctx, fmt.Sprintf("part %d", n), data)
+		return ing.receive(ctx, fmt.Sprintf("part %d", n), r, 0)
 	})
 }
 
@@ -157,44 +164,43 @@ func partIsDICOM(p *multipart.Part) error {
 	return nil
 }
 
-// readZip spools the archive to a temporary file (zip needs random
-// access; memory stays bounded) and ingests each entry within the input
-// limits. Entries that are not DICOM (a README, DICOMDIR-less junk) are
-// skipped as the CLI skips them in folders; the upload is refused only if
-// none is DICOM.
+// zipCopyBuffer is the buffer the archive is copied to the spool through.
+const zipCopyBuffer = 64 << 10
+
+// readZip spools the archive to a temporary file under the store's folder
+// (zip needs random access; memory stays bounded; a crash leaves nothing
+// the next start does not remove) and receives each entry within the
+// input limits. Entries that are not DICOM (a README, DICOMDIR-less junk)
+// are skipped as the CLI skips them in folders; the upload is refused
+// only if none is DICOM.
 func (a *httpAPI) readZip(ctx context.Context, body io.Reader, ing *ingester) error {
-	f, err := os.CreateTemp("", "midsag-upload-*.zip")
+	up, err := a.cfg.Backend.NewUpload()
+	if err != nil {
+		return err
+	}
+	defer up.Abort()
+	// Wrapped so neither side's WriterTo or ReaderFrom replaces the buffer.
+	size, err := io.CopyBuffer(struct{ io.Writer }{up}, struct{ io.Reader }{body}, make([]byte, zipCopyBuffer))
 	if err != nil {
 		return fmt.Errorf("spool zip: %w", err)
 	}
-	defer func() {
-		f.Close()
-		os.Remove(f.Name())
-	}()
-	size, err := io.Copy(f, body)
-	if err != nil {
-		return fmt.Errorf("spool zip: %w", err)
-	}
-	entries, err := inputs.ZipEntries(f, size, "upload", a.cfg.Limits)
+	entries, err := inputs.ZipEntries(up, size, "upload", a.cfg.Limits)
 	if err != nil {
 		return err
 	}
 	skipped := 0
 	for _, e := range entries {
 		name := fmt.Sprintf("zip entry %d (%s)", e.Index, e.Path)
-		data, err := inputs.ReadSource(e.Source)
-		if err != nil {
-			return prefixed(name, err)
+		err := ing.receiveSource(ctx, name, e.Source)
+		if err != nil && server.Classify(err).Reason == midsag.ReasonNotDICOM {
+			skipped++
+			continue
 		}
-		if err := ing.ingest(ctx, name, data); err != nil {
-			if server.Classify(err).Reason == midsag.ReasonNotDICOM {
-				skipped++
-				continue
-			}
+		if err != nil {
 			return err
 		}
 	}
-	if len(ing.uids) == 0 {
+	if len(ing.staged) == 0 {
 		return midsag.Rejectf(midsag.ReasonNotDICOM, "the zip holds no DICOM instance (%d entries skipped)", skipped)
 	}
 	return nil

@@ -75,8 +75,9 @@ func (s *service) ListModels(ctx context.Context, _ *midsagv1.ListModelsRequest)
 	return modelsProto(s.cfg.Backend.Models(ctx)), nil
 }
 
-// ScoreStudy reassembles instances from the stream, ingests each as soon
-// as it is complete, and scores them as one study when the stream closes.
+// ScoreStudy streams each instance of the stream into the spool as its
+// chunks arrive, and when the stream closes stores them all and scores
+// them as one study; a refused stream stores nothing.
 func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) error {
 	ctx := stream.Context()
 	origin := server.Origin{Listener: "grpc"}
@@ -84,75 +85,198 @@ func (s *service) ScoreStudy(stream midsagv1.StudyScoring_ScoreStudyServer) erro
 		origin.Remote = p.Addr.String()
 	}
 	ing := &ingester{backend: s.cfg.Backend, origin: origin}
-	var (
-		opts  = &midsagv1.ScoreOptions{}
-		buf   []byte
-		total int64
-	)
-	for n := 0; ; n++ {
-		msg, err := stream.Recv()
-		if errors.Is(err, io.EOF) {
+	defer ing.abort()
+	cr := &chunkReader{stream: stream, maxTotal: s.cfg.MaxBodyBytes}
+	for {
+		more, err := cr.next()
+		if err != nil {
+			return err
+		}
+		if !more {
 			break
 		}
-		if err != nil {
-			return err // the transport's own status
-		}
-		switch part := msg.GetPart().(type) {
-		case *midsagv1.ScoreStudyRequest_Options:
-			if n > 0 {
-				return grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "options may only be the first message of the stream"))
+		name := fmt.Sprintf("instance %d", len(ing.staged)+1)
+		if err := ing.receive(ctx, name, cr, s.cfg.Limits.MaxEntryBytes); err != nil {
+			if cr.err != nil {
+				return cr.err
 			}
-			opts = part.Options
-		case *midsagv1.ScoreStudyRequest_Chunk:
-			total += int64(len(part.Chunk.GetData()))
-			if total > s.cfg.MaxBodyBytes {
-				return grpcStatus(server.TooLarge(s.cfg.MaxBodyBytes))
-			}
-			buf = append(buf, part.Chunk.GetData()...)
-			if int64(len(buf)) > s.cfg.Limits.MaxEntryBytes {
-				return grpcStatus(midsag.Rejectf(midsag.ReasonTooLarge, "instance %d is larger than the %d-byte limit",
-					len(ing.uids)+1, s.cfg.Limits.MaxEntryBytes))
-			}
-			if part.Chunk.GetEndOfInstance() {
-				if err := ing.ingest(ctx, fmt.Sprintf("instance %d", len(ing.uids)+1), buf); err != nil {
-					return grpcStatus(err)
-				}
-				// Ingest may keep the slice; the next instance gets its own.
-				buf = nil
-			}
-		default:
-			return grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "message %d has neither options nor a chunk", n+1))
-		}
-	}
-	if len(buf) > 0 {
-		if err := ing.ingest(ctx, fmt.Sprintf("instance %d", len(ing.uids)+1), buf); err != nil {
 			return grpcStatus(err)
 		}
 	}
-	res, err := score(ctx, s.cfg.Backend, ing.uids, opts)
+	if err := ing.commit(ctx); err != nil {
+		return grpcStatus(err)
+	}
+	res, err := score(ctx, s.cfg.Backend, ing.uids, cr.opts)
 	if err != nil {
 		return grpcStatus(err)
 	}
 	return stream.SendAndClose(&midsagv1.ScoreStudyResponse{Result: res})
 }
 
-// ingester stores the instances of one request and remembers their SOP
-// Instance UIDs, in arrival order, for the Score call.
+// chunkReader reads the instances of a ScoreStudy stream one after the
+// other: next waits for the first chunk of the next instance, Read
+// returns its bytes until the chunk marked end_of_instance (or the
+// stream's end). Only the message being read is in memory.
+type chunkReader struct {
+	stream   midsagv1.StudyScoring_ScoreStudyServer
+	maxTotal int64
+	opts     *midsagv1.ScoreOptions
+	n        int   // messages received
+	total    int64 // chunk bytes received
+	cur      []byte
+	last     bool // cur ends its instance
+	eof      bool // the stream has ended
+	// err is a gRPC status that ends the stream (the transport's, or a
+	// protocol refusal), as opposed to a refusal of one instance.
+	err error
+}
+
+// recv takes the next chunk into cur; false at the stream's end.
+func (c *chunkReader) recv() (bool, error) {
+	for !c.eof {
+		msg, err := c.stream.Recv()
+		if errors.Is(err, io.EOF) {
+			c.eof = true
+			return false, nil
+		}
+		if err != nil {
+			return false, err // the transport's own status
+		}
+		c.n++
+		switch part := msg.GetPart().(type) {
+		case *midsagv1.ScoreStudyRequest_Options:
+			if c.n > 1 {
+				return false, grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "options may only be the first message of the stream"))
+			}
+			c.opts = part.Options
+		case *midsagv1.ScoreStudyRequest_Chunk:
+			c.total += int64(len(part.Chunk.GetData()))
+			if c.total > c.maxTotal {
+				return false, grpcStatus(server.TooLarge(c.maxTotal))
+			}
+			c.cur, c.last = part.Chunk.GetData(), part.Chunk.GetEndOfInstance()
+			if len(c.cur) > 0 || c.last {
+				return true, nil
+			}
+		default:
+			return false, grpcStatus(midsag.Rejectf(midsag.ReasonBadRequest, "message %d has neither options nor a chunk", c.n))
+		}
+	}
+	return false, nil
+}
+
+// next reports whether another instance follows, having read its first
+// chunk.
+func (c *chunkReader) next() (bool, error) {
+	if len(c.cur) > 0 {
+		return true, nil
+	}
+	ok, err := c.recv()
+	if c.opts == nil {
+		c.opts = &midsagv1.ScoreOptions{}
+	}
+	return ok, err
+}
+
+// Read returns the current instance's bytes; io.EOF at its end.
+func (c *chunkReader) Read(p []byte) (int, error) {
+	for len(c.cur) == 0 {
+		if c.last || c.eof {
+			c.last = false
+			return 0, io.EOF
+		}
+		ok, err := c.recv()
+		if err != nil {
+			c.err = err
+			return 0, err
+		}
+		if !ok {
+			return 0, io.EOF
+		}
+	}
+	n := copy(p, c.cur)
+	c.cur = c.cur[n:]
+	if len(c.cur) == 0 && c.last {
+		// The next Read reports the end; the next instance starts afresh.
+		c.cur = nil
+	}
+	return n, nil
+}
+
+// ingester receives the instances of one request into the spool, then
+// stores them all; it remembers their SOP Instance UIDs, in arrival
+// order, for the Score call.
 type ingester struct {
 	backend server.Backend
 	origin  server.Origin
+	staged  []*server.Staged
 	uids    []string
+	// held are the studies this request keeps from settling, with their
+	// release functions, until it ends.
+	held map[string]func()
 }
 
-// ingest stores one instance; name says which part of the request it was
-// (never a file name in logs: those can hold patient names).
-func (g *ingester) ingest(ctx context.Context, name string, data []byte) error {
-	st, err := g.backend.Ingest(ctx, g.origin, data)
+// receive streams one instance into the spool; name says which part of
+// the request it was (never a file name in logs: those can hold patient
+// names).
+func (g *ingester) receive(ctx context.Context, name string, r io.Reader, limit int64) error {
+	st, err := g.backend.Receive(ctx, g.origin, r, limit)
+	if err != nil {
+		st.Abort()
+		return prefixed(name, err)
+	}
+	g.staged = append(g.staged, st)
+	if g.held == nil {
+		g.held = map[string]func(){}
+	}
+	if _, ok := g.held[st.StudyInstanceUID]; !ok {
+		g.held[st.StudyInstanceUID] = g.backend.Hold(st.StudyInstanceUID)
+	}
+	return nil
+}
+
+// receiveSource receives one source, such as a zip entry.
+func (g *ingester) receiveSource(ctx context.Context, name string, src midsag.Source) error {
+	rc, err := src.Open()
 	if err != nil {
 		return prefixed(name, err)
 	}
-	g.uids = append(g.uids, st.SOPInstanceUID)
+	defer rc.Close()
+	return g.receive(ctx, name, rc, 0)
+}
+
+// commit stores every staged instance, once they are known to be of one
+// study (Score would refuse more after they were stored).
+func (g *ingester) commit(ctx context.Context) error {
+	studies := map[string]bool{}
+	for _, st := range g.staged {
+		studies[st.StudyInstanceUID] = true
+	}
+	if len(studies) > 1 {
+		return midsag.Rejectf(midsag.ReasonMultipleStudies, "the request holds %d studies; send one study at a time", len(studies))
+	}
+	for i, st := range g.staged {
+		stored, err := g.backend.Commit(ctx, st)
+		if err != nil {
+			return prefixed(fmt.Sprintf("instance %d", i+1), err)
+		}
+		g.uids = append(g.uids, stored.SOPInstanceUID)
+	}
+	g.staged = nil
 	return nil
+}
+
+// abort discards what was staged and not stored and lets the request's
+// studies settle; the handler defers it.
+func (g *ingester) abort() {
+	for _, st := range g.staged {
+		st.Abort()
+	}
+	g.staged = nil
+	for _, release := range g.held {
+		release()
+	}
+	g.held = nil
 }
 
 // prefixed names the part of a request an error is about: a refusal gets

@@ -10,7 +10,6 @@ import (
 	"hash/fnv"
 	"io"
 	"os"
-	"path"
 	"path/filepath"
 	"sync"
 	"time"
@@ -29,88 +28,6 @@ type putReq struct {
 	dir  string
 	err  error
 	done chan struct{}
-}
-
-// Put makes one instance durable. It returns only after the bytes are in
-// dir/spool/<study-hash>/<sop-hash>-<sha256>.dcm (written to a temporary
-// file, fsynced, renamed, folder fsynced) and the instance's row is
-// committed. Put fills Seq, Size, SHA256, ReceivedAt and Path.
-//
-// Re-sending a SOP Instance UID with identical bytes returns the stored
-// instance with duplicate=true and writes nothing. With different bytes the
-// new file and row replace the old ones under a new Seq; the old file is
-// removed only after the new row committed, so a crash keeps one complete
-// version. The file name carries the content hash for that reason: the new
-// version never overwrites the acknowledged one in place.
-func (s *Store) Put(ctx context.Context, inst Instance, data []byte) (Instance, bool, error) {
-	if inst.StudyInstanceUID == "" || inst.SOPInstanceUID == "" {
-		return Instance{}, false, errors.New("store: put: study and SOP instance UIDs are required")
-	}
-	if err := s.enter(); err != nil {
-		return Instance{}, false, err
-	}
-	defer s.puts.Done()
-
-	lock := s.sopLock(inst.SOPInstanceUID)
-	lock.Lock()
-	defer lock.Unlock()
-	if err := ctx.Err(); err != nil {
-		return Instance{}, false, fmt.Errorf("store: put: %w", err)
-	}
-
-	sum := sha256.Sum256(data)
-	inst.SHA256 = hex.EncodeToString(sum[:])
-	old, found, err := s.instanceBySOP(ctx, inst.SOPInstanceUID)
-	if err != nil {
-		return Instance{}, false, err
-	}
-	if found && old.SHA256 == inst.SHA256 {
-		return old, true, nil
-	}
-	// Cheap early refusal so a full study costs no file write; commit checks
-	// again inside the transaction, where concurrent Puts are serialised.
-	if !found || old.StudyInstanceUID != inst.StudyInstanceUID {
-		n, err := s.studyCount(ctx, inst.StudyInstanceUID)
-		if err != nil {
-			return Instance{}, false, err
-		}
-		if n >= s.opts.MaxInstancesPerStudy {
-			return Instance{}, false, ErrStudyFull
-		}
-	}
-
-	s.inflight.Add(1)
-	defer s.inflight.Add(-1)
-
-	inst.Size = int64(len(data))
-	inst.ReceivedAt = time.Now().UTC()
-	studyDir := uidHash(inst.StudyInstanceUID)
-	name := uidHash(inst.SOPInstanceUID) + "-" + inst.SHA256 + ".dcm"
-	inst.Path = path.Join("spool", studyDir, name)
-	dir := filepath.Join(s.spool, studyDir)
-	if err := s.ensureDir(dir); err != nil {
-		return Instance{}, false, err
-	}
-	// The folder's fsync is the committer's, once per folder per batch,
-	// before the rows commit.
-	if err := atomicfile.WriteFile(filepath.Join(dir, name), data, atomicfile.SkipDirSync()); err != nil {
-		return Instance{}, false, fmt.Errorf("store: %w", err)
-	}
-
-	req := &putReq{inst: inst, dir: dir}
-	if s.reqs == nil {
-		s.commit([]*putReq{req})
-	} else {
-		// Once queued, wait for the outcome whatever ctx says: returning
-		// early would leave a row the caller was told had failed.
-		req.done = make(chan struct{})
-		s.reqs <- req
-		<-req.done
-	}
-	if req.err != nil {
-		return Instance{}, false, req.err
-	}
-	return req.inst, false, nil
 }
 
 func (s *Store) enter() error {

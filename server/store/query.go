@@ -3,10 +3,13 @@ package store
 import (
 	"cmp"
 	"context"
+	"crypto/sha256"
 	"database/sql"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"slices"
@@ -120,16 +123,49 @@ func (s *Store) InstancesBySOP(ctx context.Context, sopUIDs []string) ([]Instanc
 	return out, nil
 }
 
-// Open opens an instance's spool file for reading.
+// Open opens an instance's spool file for reading, once its size and
+// SHA-256 match those stored with its row; a mismatch or a missing file is
+// ErrCorrupt.
 func (s *Store) Open(inst Instance) (io.ReadCloser, error) {
 	if !filepath.IsLocal(filepath.FromSlash(inst.Path)) || !strings.HasPrefix(inst.Path, "spool/") {
 		return nil, fmt.Errorf("store: open: %q is not a spool path", inst.Path)
 	}
 	f, err := os.Open(filepath.Join(s.dir, filepath.FromSlash(inst.Path)))
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, fmt.Errorf("store: instance %s: spool file missing: %w", inst.SOPInstanceUID, ErrCorrupt)
+	}
 	if err != nil {
 		return nil, fmt.Errorf("store: open instance %s: %w", inst.SOPInstanceUID, err)
 	}
+	if err := verify(f, inst); err != nil {
+		f.Close()
+		return nil, err
+	}
+	if _, err := f.Seek(0, io.SeekStart); err != nil {
+		f.Close()
+		return nil, fmt.Errorf("store: open instance %s: %w", inst.SOPInstanceUID, err)
+	}
 	return f, nil
+}
+
+// ErrCorrupt is returned when a spool file no longer holds the bytes its
+// row recorded (size or SHA-256), or is missing.
+var ErrCorrupt = errors.New("the spool file no longer holds the instance as stored")
+
+// verify reads r whole and compares its size and SHA-256 with inst's.
+func verify(r io.Reader, inst Instance) error {
+	h := sha256.New()
+	n, err := io.Copy(h, r)
+	if err != nil {
+		return fmt.Errorf("store: read instance %s: %w", inst.SOPInstanceUID, err)
+	}
+	if n != inst.Size {
+		return fmt.Errorf("store: instance %s: %d bytes in the spool, %d stored: %w", inst.SOPInstanceUID, n, inst.Size, ErrCorrupt)
+	}
+	if got := hex.EncodeToString(h.Sum(nil)); got != inst.SHA256 {
+		return fmt.Errorf("store: instance %s: sha256 %s, stored %s: %w", inst.SOPInstanceUID, got, inst.SHA256, ErrCorrupt)
+	}
+	return nil
 }
 
 // coveringStatuses are the statuses of whole-study records that cover their
@@ -204,9 +240,13 @@ func (s *Store) Stats(ctx context.Context) (Stats, error) {
 	return st, nil
 }
 
-// Ping proves the store can still write: it writes, fsyncs and removes a
+// Ping proves the store is sound and can still write: it returns what
+// PRAGMA quick_check found at Open, if anything, then writes, fsyncs and removes a
 // probe file in the spool and commits a write transaction.
 func (s *Store) Ping(ctx context.Context) error {
+	if s.damaged != nil {
+		return s.damaged
+	}
 	name := fmt.Sprintf(".ping-%d%s", time.Now().UnixNano(), tmpSuffix)
 	if err := atomicfile.WriteFile(filepath.Join(s.spool, name), []byte("ping"), atomicfile.SkipDirSync()); err != nil {
 		return fmt.Errorf("store: ping: %w", err)

@@ -74,6 +74,8 @@ type Store struct {
 	puts   sync.WaitGroup
 	// lock holds the folder's flock for the store's lifetime.
 	lock *os.File
+	// damaged is what PRAGMA quick_check found at Open (nil: nothing).
+	damaged error
 }
 
 // Open opens or creates the store in dir: dir/spool/ for instance files and
@@ -139,7 +141,12 @@ func Open(dir string, opts Options) (*Store, error) {
 	}
 	r.SetMaxOpenConns(4)
 	s := &Store{dir: dir, spool: spool, opts: opts, w: w, r: r, lock: lock}
-	if err := s.sweep(); err != nil {
+	// A damaged database still opens, so the service can say why it is
+	// not ready (Healthy) instead of failing to start in silence.
+	s.damaged = quickCheck(context.Background(), w, "quick_check")
+	// Never sweep by a damaged database: a row it cannot read would make
+	// an acknowledged file look unreferenced.
+	if err := s.sweepIfSound(); err != nil {
 		s.closeDBs()
 		return nil, err
 	}
@@ -284,6 +291,13 @@ func migrateOne(ctx context.Context, db *sql.DB) (done bool, err error) {
 		return false, fmt.Errorf("store: commit migration %d: %w", v+1, err)
 	}
 	return false, nil
+}
+
+func (s *Store) sweepIfSound() error {
+	if s.damaged != nil {
+		return nil
+	}
+	return s.sweep()
 }
 
 // sweep removes temporary files and spool files no row points to. Both

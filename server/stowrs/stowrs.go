@@ -10,12 +10,17 @@ package stowrs
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"io"
 	"log/slog"
 	"math"
 	"mime"
 	"mime/multipart"
 	"net/http"
+	"strconv"
+	"strings"
+	"time"
 
 	"github.com/midsag/midsag"
 	"github.com/midsag/midsag/inputs"
@@ -62,6 +67,10 @@ type Config struct {
 	Limits inputs.Limits
 	// Logger receives one line per refused part; nil discards.
 	Logger *slog.Logger
+	// ReadIdle and MinReadRate close a stalled or too slow body
+	// (server.BodyLimits); zero means the defaults there.
+	ReadIdle    time.Duration
+	MinReadRate int64
 }
 
 // handler is the STOW-RS handler built from a Config.
@@ -86,6 +95,10 @@ func Handler(cfg Config) http.Handler {
 // The response has no Retrieve URL (0008,1190) because midsag serves no
 // WADO-RS to retrieve from.
 func (a *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {
+	if err := acceptable(r.Header.Values("Accept")); err != nil {
+		server.WriteError(w, a.cfg.Logger, err)
+		return
+	}
 	if r.ContentLength > a.cfg.MaxBodyBytes {
 		server.WriteError(w, a.cfg.Logger, server.TooLarge(a.cfg.MaxBodyBytes))
 		return
@@ -96,19 +109,33 @@ func (a *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 			`STOW-RS takes multipart/related; type="application/dicom" (PS3.18 10.5.1)`))
 		return
 	}
-	mr, err := inputs.Related(params, http.MaxBytesReader(w, r.Body, a.cfg.MaxBodyBytes))
+	body := server.NewBody(w, r, server.BodyLimits{MaxBytes: a.cfg.MaxBodyBytes, Idle: a.cfg.ReadIdle, MinRate: a.cfg.MinReadRate})
+	defer body.Done()
+	mr, err := inputs.Related(params, body)
 	if err != nil {
 		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
 	}
 	origin := server.Origin{Listener: "stow", Remote: r.RemoteAddr, Study: r.PathValue("study")}
-	refs, fails, err := a.stowParts(r.Context(), origin, mr)
-	if err != nil {
-		// Parts before the broken one are stored (each is durable on its
-		// own); the client learns the body broke and may resend, which
-		// stores nothing twice.
+	held := map[string]func(){}
+	defer func() {
+		for _, release := range held {
+			release()
+		}
+	}()
+	refs, fails, err := a.stowParts(r.Context(), origin, mr, held)
+	if err != nil && len(refs) == 0 {
 		server.WriteError(w, a.cfg.Logger, server.Classify(err))
 		return
+	}
+	if err != nil {
+		// PS3.18 10.5: each instance is stored on its own. The parts
+		// before the broken one are stored and listed; the broken body is
+		// one failed item, so the client learns both and may resend,
+		// which stores nothing twice.
+		item, code := a.stowFailed(dicomJSON{tagReferencedSOPClass: uiAttr(""), tagReferencedSOPInstance: uiAttr("")}, len(refs)+len(fails)+1, err)
+		item[tagFailureReason] = dicomAttr{VR: "US", Value: []any{code}}
+		fails = append(fails, item)
 	}
 	if len(refs)+len(fails) == 0 {
 		server.WriteError(w, a.cfg.Logger, midsag.Rejectf(midsag.ReasonNoInput, "the multipart body has no parts"))
@@ -130,15 +157,52 @@ func (a *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	case len(fails) > 0:
 		code = http.StatusAccepted
 	}
-	server.WriteJSON(w, code, "application/dicom+json", resp)
+	server.WriteJSON(w, code, mediaType, resp)
 }
 
-// stowParts ingests every part of mr and returns the Referenced SOP items
+// mediaType is the one response type served: the DICOM JSON model
+// (PS3.18 F.2, 10.5.3).
+const mediaType = "application/dicom+json"
+
+// acceptable refuses an Accept header (RFC 9110 12.5.1) that admits no
+// DICOM JSON: application/dicom+json, application/json, application/*
+// or */* with a nonzero quality, or no header at all, are accepted.
+func acceptable(values []string) *midsag.Error {
+	if len(values) == 0 {
+		return nil
+	}
+	for _, v := range values {
+		for _, r := range strings.Split(v, ",") {
+			mt, params, err := mime.ParseMediaType(strings.TrimSpace(r))
+			if err != nil {
+				continue
+			}
+			if q := params["q"]; q != "" {
+				if f, err := strconv.ParseFloat(q, 64); err != nil || f <= 0 {
+					continue
+				}
+			}
+			switch mt {
+			case mediaType, "application/json", "application/*", "*/*":
+				return nil
+			}
+		}
+	}
+	return midsag.Rejectf(midsag.ReasonNotAcceptable,
+		"Accept %q admits no response this service makes; STOW-RS answers in %s (PS3.18 10.5.3)", strings.Join(values, ", "), mediaType)
+}
+
+// stowParts ingests every part of mr, holding each study stored to in
+// held, and returns the Referenced SOP items
 // of those stored and the failed items of the rest; the error is a body
-// that breaks off, is not valid MIME or is beyond the input limits.
-func (a *handler) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader) (refs, fails []any, err error) {
-	err = inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, data []byte) error {
-		ref, code := a.stowPart(ctx, origin, n, part.Header.Get("Content-Type"), data)
+// that breaks off, is not valid MIME or is beyond the input limits,
+// returned with the items of the parts before it.
+func (a *handler) stowParts(ctx context.Context, origin server.Origin, mr *multipart.Reader, held map[string]func()) (refs, fails []any, err error) {
+	err = inputs.Parts(mr, a.cfg.Limits, func(n int, part *multipart.Part, r io.Reader) error {
+		ref, code, err := a.stowPart(ctx, origin, n, part.Header.Get("Content-Type"), r, held)
+		if err != nil {
+			return err
+		}
 		if code != 0 {
 			ref[tagFailureReason] = dicomAttr{VR: "US", Value: []any{code}}
 			fails = append(fails, ref)
@@ -147,30 +211,67 @@ func (a *handler) stowParts(ctx context.Context, origin server.Origin, mr *multi
 		refs = append(refs, ref)
 		return nil
 	})
-	if err != nil {
-		return nil, nil, err
-	}
-	return refs, fails, nil
+	return refs, fails, err
 }
 
-// stowPart stores one part and returns its Referenced SOP item, with a
-// nonzero Failure Reason when it was not stored. The part is parsed once,
-// by Ingest, which also refuses an instance of another study than
-// origin.Study before storing it.
-func (a *handler) stowPart(ctx context.Context, origin server.Origin, n int, contentType string, data []byte) (dicomJSON, int) {
+// stowPart streams one part into the store and returns its Referenced SOP
+// item, with a nonzero Failure Reason when it was not stored. The part is
+// parsed once, by Ingest, which also refuses an instance of another study
+// than origin.Study before storing it. The error is the body's, which
+// ends the request.
+func (a *handler) stowPart(ctx context.Context, origin server.Origin, n int, contentType string, r io.Reader, held map[string]func()) (dicomJSON, int, error) {
 	item := dicomJSON{tagReferencedSOPClass: uiAttr(""), tagReferencedSOPInstance: uiAttr("")}
 	if contentType != "" {
 		if mt, _, err := mime.ParseMediaType(contentType); err != nil || mt != "application/dicom" {
-			return a.stowFailed(item, n, midsag.Rejectf(midsag.ReasonNotDICOM, "part is not application/dicom"))
+			item, code := a.stowFailed(item, n, midsag.Rejectf(midsag.ReasonNotDICOM, "part is not application/dicom"))
+			return item, code, nil
 		}
 	}
-	st, err := a.cfg.Backend.Ingest(ctx, origin, data)
+	tr := &trackReader{r: r}
+	st, err := a.cfg.Backend.IngestFrom(ctx, origin, tr, 0)
+	if tr.broken() {
+		return nil, 0, tr.err
+	}
 	item[tagReferencedSOPClass] = uiAttr(st.SOPClassUID)
 	item[tagReferencedSOPInstance] = uiAttr(st.SOPInstanceUID)
 	if err != nil {
-		return a.stowFailed(item, n, err)
+		item, code := a.stowFailed(item, n, err)
+		return item, code, nil
 	}
-	return item, 0
+	if _, ok := held[st.StudyInstanceUID]; !ok {
+		// The study settles from the request's end, not from this part.
+		held[st.StudyInstanceUID] = a.cfg.Backend.Hold(st.StudyInstanceUID)
+	}
+	return item, 0, nil
+}
+
+// trackReader remembers the error its reader returned.
+type trackReader struct {
+	r   io.Reader
+	err error
+}
+
+func (t *trackReader) Read(p []byte) (int, error) {
+	n, err := t.r.Read(p)
+	if err != nil && !errors.Is(err, io.EOF) {
+		t.err = err
+	}
+	return n, err
+}
+
+// broken reports whether the body failed (cut off, malformed, too slow,
+// beyond the request's limit), after which no further part can be read;
+// a part beyond the instance limit fails alone.
+func (t *trackReader) broken() bool {
+	if t.err == nil {
+		return false
+	}
+	var mbe *http.MaxBytesError
+	if errors.As(t.err, &mbe) {
+		return true
+	}
+	r, ok := midsag.ReasonOf(t.err)
+	return !ok || r != midsag.ReasonTooLarge
 }
 
 // stowFailed logs a refused part and returns its item with the Failure
